@@ -1,0 +1,56 @@
+"""Exceptions of the project.
+
+Every error a user can cause derives from :class:`FusionError`; the CLI turns
+it into one line and exit code 1. Anything else is a bug and shows a traceback
+only with ``--debug``.
+"""
+
+from __future__ import annotations
+
+__all__ = ["FusionError", "ConfigError", "InputError", "CapabilityError"]
+
+
+class FusionError(Exception):
+    """Base class of the errors a user can cause (bad config, bad input)."""
+
+
+class ConfigError(FusionError, ValueError):
+    """A config key holds a value the schema refuses.
+
+    Parameters
+    ----------
+    key : str
+        Dotted key path, e.g. ``"laminate.ply_thickness"`` or ``"run[2].thermal.frames"``.
+    message : str
+        What was expected, and where possible how to fix it.
+    source : str, optional
+        The config file, named in the message when given.
+    """
+
+    def __init__(self, key: str, message: str, *, source: str | None = None):
+        self.key = key
+        self.message = message
+        self.source = source
+        where = f"{source}: " if source else ""
+        super().__init__(f"{where}{key}: {message}")
+
+
+class InputError(FusionError, ValueError):
+    """An input file is missing, unreadable or not what the config says.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The offending file, always named in the message.
+    message : str
+        What was wrong and what was expected.
+    """
+
+    def __init__(self, path, message: str):
+        self.path = str(path)
+        self.message = message
+        super().__init__(f"{self.path}: {message}")
+
+
+class CapabilityError(FusionError):
+    """A requested capability is not available (yet) in this version."""

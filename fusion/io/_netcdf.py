@@ -1,0 +1,67 @@
+"""NetCDF writing and reading of results through xarray (netCDF4 engine)."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+
+from ..errors import InputError
+from ._atomic import atomic_path
+
+__all__ = ["write_netcdf", "read_netcdf"]
+
+
+def _clean_attrs(attrs: dict) -> dict:
+    """NetCDF attributes must be str, numbers or 1-D numeric arrays; encode the rest as JSON."""
+    out = {}
+    for k, v in attrs.items():
+        if isinstance(v, (bool, np.bool_)):
+            out[k] = int(v)
+        elif isinstance(v, (str, int, float, np.integer, np.floating)):
+            out[k] = v
+        elif isinstance(v, np.ndarray) and v.dtype.kind in "iuf":
+            out[k] = v
+        elif v is None:
+            out[k] = ""
+        else:
+            out[k] = json.dumps(v, default=str)
+    return out
+
+
+def write_netcdf(ds, path, *, overwrite: bool = False) -> Path:
+    """Write ``ds`` to ``path`` (NetCDF-4) via a temporary name and a rename.
+
+    Object-dtype coordinates are written as strings; non-scalar attributes are
+    JSON-encoded. Refuses to replace an existing file unless ``overwrite``.
+    """
+    ds = ds.copy()
+    ds.attrs = _clean_attrs(ds.attrs)
+    for name in list(ds.variables):
+        ds[name].attrs = _clean_attrs(ds[name].attrs)
+        if ds[name].dtype == object:
+            ds[name] = ds[name].astype(str)
+    encoding = {}
+    for name, var in ds.data_vars.items():
+        if var.dtype.kind == "f":
+            encoding[name] = {"zlib": True, "complevel": 4, "_FillValue": np.nan}
+        elif var.dtype.kind in "iu":
+            encoding[name] = {"zlib": True, "complevel": 4}
+    with atomic_path(path, overwrite=overwrite) as tmp:
+        ds.to_netcdf(tmp, engine="netcdf4", encoding=encoding)
+    return Path(path)
+
+
+def read_netcdf(path):
+    """Open a NetCDF file fully into memory as an :class:`xarray.Dataset`."""
+    import xarray as xr
+
+    path = Path(path)
+    if not path.is_file():
+        raise InputError(path, "no such NetCDF file")
+    try:
+        with xr.open_dataset(path, engine="netcdf4") as ds:
+            return ds.load()
+    except (OSError, ValueError, RuntimeError) as e:
+        raise InputError(path, f"cannot read as NetCDF ({e})") from e

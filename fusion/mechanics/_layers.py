@@ -1,0 +1,56 @@
+"""Through-thickness layer records shared by the laws and the heat model."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+__all__ = ["ThermalLayer"]
+
+
+@dataclass(frozen=True)
+class ThermalLayer:
+    """One layer of the through-thickness heat problem, viewed face first.
+
+    Parameters
+    ----------
+    name : str
+        ``"coating"``, ``"resin_layer"``, ``"ply 1 (45°)"``, ``"back_layer"``...
+    thickness : float
+        m.
+    density : float
+        kg/m3.
+    specific_heat : float
+        J/(kg K).
+    conductivity : float
+        Through-thickness thermal conductivity k3 in W/(m K).
+    coefficients : (3,) ndarray
+        Adiabatic dT/T0 of this layer per unit strain range, in the specimen frame:
+        ``ratio = coefficients @ [d eps_xx, d eps_yy, d gamma_xy]`` (dimensionless).
+    """
+
+    name: str
+    thickness: float
+    density: float
+    specific_heat: float
+    conductivity: float
+    coefficients: np.ndarray
+
+    def __post_init__(self):
+        c = np.asarray(self.coefficients, dtype=float).reshape(3)
+        object.__setattr__(self, "coefficients", c)
+
+    @property
+    def volumetric_heat_capacity(self) -> float:
+        """rho c in J/(m3 K)."""
+        return self.density * self.specific_heat
+
+    @property
+    def diffusivity(self) -> float:
+        """Through-thickness thermal diffusivity k / (rho c) in m2/s."""
+        return self.conductivity / (self.density * self.specific_heat)
+
+    def adiabatic_ratio(self, strain_ranges) -> np.ndarray:
+        """Adiabatic dT/T0 for strain ranges ``(..., 3)`` (d eps_xx, d eps_yy, d gamma_xy)."""
+        return np.asarray(strain_ranges) @ self.coefficients
