@@ -1,0 +1,150 @@
+"""The ``fusion`` command line: a thin layer over the Python API.
+
+Exit codes: 0 success; 1 bad input or a failed run (one line naming the file or
+key and what was expected; a traceback only with ``--debug``); 2 bad usage.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import logging
+import sys
+from pathlib import Path
+
+from . import __version__
+from .errors import FusionError
+
+log = logging.getLogger("fusion")
+
+CAUTION = ("Results support engineering judgement; they do not certify a component. Test rigs "
+           "under load are hazardous: follow your laboratory's procedures and the applicable test "
+           "standards.")
+
+
+def _parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(
+        prog="fusion",
+        description="Fuse thermoelastic (infrared lock-in) and correlation (strain) measurements on "
+                    "laminated composites: predicted dT/T0 per candidate source, residuals, the "
+                    "source-layer map and the loading-frequency band.",
+        epilog=CAUTION)
+    p.add_argument("--version", action="version", version=f"fusion {__version__}")
+    p.add_argument("--debug", action="store_true", help="show tracebacks and debug logging")
+    p.add_argument("-q", "--quiet", action="store_true", help="no progress bars, warnings only")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND")
+    sub.required = True
+
+    r = sub.add_parser("run", help="process every run of a campaign config")
+    r.add_argument("config", type=Path)
+    r.add_argument("--out", type=Path, help="output folder (default: [output] folder of the config)")
+    r.add_argument("--overwrite", action="store_true", help="replace existing results")
+    r.add_argument("--only", action="append", metavar="NAME", help="process only this run (repeatable)")
+    r.add_argument("--scheduler", metavar="ADDRESS",
+                   help="Dask scheduler: tcp://HOST:PORT, 'processes', 'threads' or 'synchronous'")
+    r.add_argument("--workers", type=int, metavar="N", help="runs processed at once")
+
+    c = sub.add_parser("check", help="validate a config and its input files without processing")
+    c.add_argument("config", type=Path)
+
+    pl = sub.add_parser("plan", help="frequency response of a laminate: which layer the camera "
+                                     "sees at which loading frequency (no measured data needed)")
+    pl.add_argument("config", type=Path)
+    pl.add_argument("--out", type=Path, help="folder for plan.nc and plan.png (default: beside the config)")
+    pl.add_argument("--laminate", metavar="NAME", help="laminate to plan (default: [plan] laminate or [laminate])")
+    pl.add_argument("--overwrite", action="store_true", help="replace an existing plan.nc")
+
+    d = sub.add_parser("demo", help="generate the built-in demo campaign and process it")
+    d.add_argument("--out", type=Path, default=Path("fusion-demo"), help="output folder (default: ./fusion-demo)")
+    d.add_argument("--overwrite", action="store_true", help="recompute runs that exist already")
+
+    b = sub.add_parser("bench", help="measure the speed of the hot kernels on this machine")
+    b.add_argument("--quick", action="store_true", help="small sizes (CI smoke test)")
+    b.add_argument("--json", action="store_true", help="print one flat JSON object")
+    b.add_argument("--only", action="append", metavar="NAME",
+                   help="run only these benchmarks (lockin, dic, predict, heat, campaign)")
+    return p
+
+
+def _setup_logging(debug: bool, quiet: bool) -> None:
+    level = logging.DEBUG if debug else logging.WARNING if quiet else logging.INFO
+    handler = logging.StreamHandler(sys.stderr)
+    handler.setFormatter(logging.Formatter("%(message)s" if not debug else "%(levelname)s %(name)s: %(message)s"))
+    root = logging.getLogger("fusion")
+    root.handlers[:] = [handler]
+    root.setLevel(level)
+    root.propagate = False
+
+
+def _cmd_run(args) -> int:
+    from .pipeline import run_campaign
+
+    outcome = run_campaign(args.config, out=args.out, overwrite=args.overwrite, only=args.only,
+                           scheduler=args.scheduler, workers=args.workers,
+                           progress=not args.quiet and sys.stderr.isatty())
+    print(outcome.describe())
+    return 0 if outcome.ok else 1
+
+
+def _cmd_check(args) -> int:
+    from .pipeline import check_campaign
+
+    lines = check_campaign(args.config)
+    for line in lines:
+        print(line)
+    return 0
+
+
+def _cmd_plan(args) -> int:
+    from .plan import plan_command
+
+    print(plan_command(args.config, out=args.out, laminate=args.laminate, overwrite=args.overwrite))
+    return 0
+
+
+def _cmd_demo(args) -> int:
+    from .demo import run_demo
+
+    outcome = run_demo(args.out, overwrite=args.overwrite, progress=not args.quiet and sys.stderr.isatty())
+    print(outcome.describe())
+    return 0 if outcome.ok else 1
+
+
+def _cmd_bench(args) -> int:
+    from .bench import run_benchmarks, format_table
+
+    results = run_benchmarks(quick=args.quick, only=args.only)
+    if args.json:
+        print(json.dumps(results, sort_keys=True))
+    else:
+        print(format_table(results))
+    return 0
+
+
+_COMMANDS = {"run": _cmd_run, "check": _cmd_check, "plan": _cmd_plan, "demo": _cmd_demo, "bench": _cmd_bench}
+
+
+def main(argv=None) -> int:
+    """Entry point of the ``fusion`` command; returns the exit code."""
+    args = _parser().parse_args(argv)
+    _setup_logging(args.debug, args.quiet)
+    try:
+        return _COMMANDS[args.command](args)
+    except FusionError as e:
+        if args.debug:
+            raise
+        print(f"fusion: error: {e}", file=sys.stderr)
+        return 1
+    except KeyboardInterrupt:
+        print("fusion: interrupted", file=sys.stderr)
+        return 130
+    except MemoryError:
+        if args.debug:
+            raise
+        print("fusion: error: out of memory; lower [compute] memory_budget or process fewer runs at once",
+              file=sys.stderr)
+        return 1
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

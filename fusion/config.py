@@ -1,0 +1,604 @@
+"""The campaign config: TOML read with the standard library, validated into typed objects.
+
+A config describes a test campaign: the materials and laminates, and one
+``[[run]]`` table per paired infrared/correlation run. :func:`load_config`
+returns a :class:`Config`; every mistake raises :class:`~fusion.errors.ConfigError`
+naming the dotted key (``laminate.ply_thickness``, ``run[2].thermal.frames``)
+and what was expected. Quantities may carry units ("135 GPa", "0.25 mm",
+"5 Hz"); a bare number means the SI unit documented for its key (angles in
+degrees). The key reference in ``configs/README.md`` is generated from this
+module (``python -m fusion.config``).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import re
+import tomllib
+from dataclasses import dataclass
+from pathlib import Path
+
+from . import _schema as s
+from ._schema import Context, key
+from .errors import ConfigError
+from .mechanics import (
+    IsotropicMaterial, Laminate, LayupError, MaterialError, OrthotropicMaterial, Ply,
+    SurfaceLayer, parse_layup,
+)
+
+__all__ = ["Config", "RunSpec", "load_config", "loads_config", "markdown_reference",
+           "RUN_NAME_PATTERN", "DEFAULT_CONFIG_NAME"]
+
+RUN_NAME_PATTERN = r"[A-Za-z0-9][A-Za-z0-9_.\-]{0,99}"
+DEFAULT_CONFIG_NAME = "fusion.toml"
+_RESERVED = {"con", "prn", "aux", "nul", "figures", "report.html", "frequency.nc", "summary.json"}
+_MAX_CONFIG_BYTES = 4 << 20
+
+
+# --------------------------------------------------------------------------- sections
+@dataclass(frozen=True)
+class LayerRef:
+    """A surface layer: an isotropic material from ``[materials]`` and its thickness."""
+
+    material: str = key(s.string(), "Name of an isotropic material in [materials].", required=True)
+    thickness: float = key(s.quantity("m", positive=True), "Layer thickness.", unit="m", required=True)
+
+
+@dataclass(frozen=True)
+class LaminateSpec:
+    """A laminate: plies listed from the viewed face inward, and optional surface layers."""
+
+    layup: tuple = key(s.either(s.string(), s.list_of(s.quantity("deg"), min_len=1)),
+                       "Ply angles in degrees from the viewed face inward, or a compact code such "
+                       "as \"[45/0/-45/90]s\", \"[0/90]2s\", \"[±45]s\".", required=True)
+    ply_material: str = key(s.string(), "Name of an orthotropic material in [materials].", required=True)
+    ply_thickness: float = key(s.quantity("m", positive=True), "Cured ply thickness.", unit="m",
+                               required=True)
+    zero_direction: float = key(s.quantity("deg", low=-360, high=360),
+                                "Angle of the laminate 0° direction from specimen x, CCW.",
+                                unit="deg", default=0.0)
+    resin_layer: LayerRef = key(s.table_of(LayerRef), "Resin-rich layer on the viewed face.")
+    coating: LayerRef = key(s.table_of(LayerRef), "Paint or coating on the viewed face (outermost).")
+    back_layer: LayerRef = key(s.table_of(LayerRef), "Resin-rich layer on the back face (heat model).")
+    convection_front: float = key(s.quantity("W/m^2/K", nonnegative=True),
+                                  "Heat-transfer coefficient of the viewed face (0: adiabatic).",
+                                  unit="W/(m2 K)", default=0.0)
+    convection_back: float = key(s.quantity("W/m^2/K", nonnegative=True),
+                                 "Heat-transfer coefficient of the back face (0: adiabatic).",
+                                 unit="W/(m2 K)", default=0.0)
+
+
+@dataclass(frozen=True)
+class ThermalSpec:
+    """Infrared input of a run: exactly one of ``frames`` (raw stack) or ``maps`` (precomputed)."""
+
+    frames: Path = key(s.path, "Frame stack (frame, row, col): .npy, .raw/.bin, .tif, .h5, .nc.")
+    maps: Path = key(s.path, "Precomputed maps (NetCDF/TIFF/CSV) with T0 and delta_T.")
+    frame_rate: float = key(s.quantity("Hz", positive=True), "Camera frame rate.", unit="Hz")
+    times: Path = key(s.path, "Optional file of frame times in s (.npy or one-column CSV).")
+    load: Path = key(s.path, "Load signal CSV (columns time, load), per frame or on its own clock.")
+    time_column: str = key(s.string(), "Name of the time column of the load file.", default="time")
+    load_column: str = key(s.string(), "Name of the load column of the load file.", default="load")
+    dataset: str = key(s.string(), "Dataset or variable name inside .h5/.nc stacks or maps.")
+    dtype: str = key(s.choice("uint8", "int16", "uint16", "int32", "uint32", "float32", "float64"),
+                     "Element type of a headerless raw stack.")
+    shape: tuple = key(s.list_of(s.integer(low=1), min_len=3, max_len=3),
+                       "Shape [frames, rows, cols] of a headerless raw stack.")
+    byte_order: str = key(s.choice("little", "big"), "Byte order of a raw stack.", default="little")
+    header_bytes: int = key(s.integer(low=0), "Bytes to skip at the start of a raw stack.", default=0)
+    values: str = key(s.choice("kelvin", "counts"), "Frames hold kelvin, or detector counts "
+                      "calibrated as gain*counts + offset.", default="kelvin")
+    gain: float = key(s.quantity("K", positive=True), "Kelvin per count (values = \"counts\").",
+                      unit="K", default=1.0)
+    offset: float = key(s.quantity("K"), "Kelvin at zero counts (values = \"counts\").", unit="K",
+                        default=0.0)
+    saturation: float = key(s.quantity(""), "Raw value at or above which a pixel is saturated.")
+    motion_compensation: bool = key(s.boolean, "Warp frames back to the unloaded configuration "
+                                    "from the correlation displacement before the lock-in.",
+                                    default=False)
+
+    def _check(self, prefix, ctx):
+        if (self.frames is None) == (self.maps is None):
+            raise ConfigError(prefix, "expected exactly one of 'frames' or 'maps'", source=ctx.source)
+        if self.frames is not None and self.frame_rate is None and self.times is None and self.load is None:
+            raise ConfigError(f"{prefix}.frame_rate", "is required with 'frames' (or give 'times', "
+                              "or a load file whose time column matches the frames)", source=ctx.source)
+
+
+@dataclass(frozen=True)
+class DicSpec:
+    """Correlation input of a run: exactly one of ``strain_ranges``, ``states``, ``series`` or ``images``."""
+
+    strain_ranges: Path = key(s.path, "Field of peak-to-peak strain ranges (columns x, y, exx, eyy, gxy).")
+    states: tuple = key(s.list_of(s.path, min_len=2, max_len=2),
+                        "Displacement fields at minimum and maximum load (columns x, y, u, v).")
+    series: tuple = key(s.list_of(s.path, min_len=3),
+                        "Displacement fields at several loads (with 'loads'): slope fit.")
+    images: tuple = key(s.list_of(s.path, min_len=2),
+                        "Speckle images: the reference (minimum load) first, then loaded states.")
+    loads: tuple = key(s.list_of(s.quantity("N")), "Load of each state, series entry or image.", unit="N")
+    coordinates: str = key(s.choice("mm", "px"), "Units of the x, y columns.", default="mm")
+    y_axis: str = key(s.choice("up", "down"), "Direction of the file's y axis (default: up for mm, "
+                      "down for px).")
+    shear: str = key(s.choice("engineering", "tensor"), "Shear column holds gamma_xy or eps_xy.",
+                     default="engineering")
+    columns: dict = key(s.mapping_of_strings, "Map our column names (x, y, z, u, v, exx, eyy, gxy, "
+                        "valid) to the file's header names.")
+    subset: int = key(s.integer(low=7, high=301), "Subset size in px (images).", default=21)
+    step: int = key(s.integer(low=1, high=200), "Grid step in px (images).", default=7)
+    strain_window: int = key(s.integer(low=3, high=51), "Points per side of the strain fit window.",
+                             default=5)
+    strain_order: int = key(s.integer(low=1, high=2), "Polynomial order of the strain fit.", default=1)
+    pixel_size: float = key(s.quantity("mm", positive=True), "Size of a visible-camera pixel on the "
+                            "specimen (images; turns px into mm).", unit="mm")
+    roi: tuple = key(s.list_of(s.integer(low=0), min_len=4, max_len=4),
+                     "Region of interest [row0, col0, row1, col1] in image px.")
+    reference_image: Path = key(s.path, "Visible reference image for the overlay figure.")
+
+    def _check(self, prefix, ctx):
+        given = [n for n in ("strain_ranges", "states", "series", "images") if getattr(self, n) is not None]
+        if len(given) != 1:
+            raise ConfigError(prefix, "expected exactly one of 'strain_ranges', 'states', 'series' or "
+                              f"'images', got {given or 'none'}", source=ctx.source)
+        n = {"states": 2, "series": len(self.series or ()), "images": len(self.images or ())}.get(given[0])
+        if given[0] in ("series", "images") and (self.loads is None or len(self.loads) != n):
+            raise ConfigError(f"{prefix}.loads", f"expected {n} loads, one per entry of '{given[0]}'",
+                              source=ctx.source)
+        if self.loads is not None and len(set(self.loads)) < 2:
+            raise ConfigError(f"{prefix}.loads", "expected at least two different loads", source=ctx.source)
+
+    @property
+    def effective_y_axis(self) -> str:
+        return self.y_axis or ("up" if self.coordinates == "mm" else "down")
+
+
+@dataclass(frozen=True)
+class RegistrationSpec:
+    """How correlation coordinates map onto infrared pixels."""
+
+    method: str = key(s.choice("homography", "affine", "similarity", "identity", "fiducials", "camera"),
+                      "Transform model; 'fiducials' finds markers automatically, 'camera' fits a "
+                      "pinhole model with distortion to 3D points.", default="homography")
+    dic_points: tuple = key(s.list_of(s.either(s.point, s.list_of(s.quantity(""), min_len=3, max_len=3))),
+                            "Control points in the correlation coordinates ([x, y] or [x, y, z]).")
+    ir_points: tuple = key(s.list_of(s.point), "The same points in IR pixels [col, row].")
+    ransac_threshold: float = key(s.quantity("", positive=True), "Outlier threshold in IR px "
+                                  "(RANSAC); none for plain least squares.")
+    max_error: float = key(s.quantity("", positive=True), "RMS reprojection error (IR px) above "
+                           "which a warning is raised.", default=0.5)
+    refine: bool = key(s.boolean, "Refine the transform by enhanced correlation of the measured "
+                       "and predicted maps.", default=False)
+    max_correction: float = key(s.quantity("", positive=True), "Largest refinement accepted, IR px.",
+                                default=2.0)
+    fiducials: int = key(s.integer(low=4, high=50), "Number of markers (method 'fiducials').")
+
+    def _check(self, prefix, ctx):
+        needs_points = self.method in ("homography", "affine", "similarity", "camera")
+        if needs_points and (self.dic_points is None or self.ir_points is None):
+            raise ConfigError(f"{prefix}.dic_points", f"method {self.method!r} needs 'dic_points' and "
+                              "'ir_points'", source=ctx.source)
+        if self.dic_points is not None and self.ir_points is not None and len(self.dic_points) != len(self.ir_points):
+            raise ConfigError(f"{prefix}.ir_points", f"expected {len(self.dic_points)} points, as many "
+                              f"as dic_points, got {len(self.ir_points)}", source=ctx.source)
+        if self.method == "fiducials" and self.fiducials is None:
+            raise ConfigError(f"{prefix}.fiducials", "method 'fiducials' needs the number of markers",
+                              source=ctx.source)
+
+
+@dataclass(frozen=True)
+class RegionSpec:
+    """A named region of the IR grid for the region table: a rectangle, a circle or a mask image."""
+
+    name: str = key(s.string(pattern=r"[^\x00-\x1f]{1,60}", hint="1-60 printable characters"),
+                    "Label in tables.", required=True)
+    rect: tuple = key(s.list_of(s.quantity(""), min_len=4, max_len=4), "[x0, y0, x1, y1] in IR px.")
+    circle: tuple = key(s.list_of(s.quantity(""), min_len=3, max_len=3), "[cx, cy, r] in IR px.")
+    mask: Path = key(s.path, "Image (non-zero inside) on the IR grid.")
+
+    def _check(self, prefix, ctx):
+        if sum(v is not None for v in (self.rect, self.circle, self.mask)) != 1:
+            raise ConfigError(prefix, "expected exactly one of 'rect', 'circle' or 'mask'", source=ctx.source)
+
+
+@dataclass(frozen=True)
+class CalibrationSpec:
+    """Calibrate the infrared measurement on a region whose source is known."""
+
+    region: str = key(s.string(), "Name of a region in diagnosis.regions.", required=True)
+    source: str = key(s.choice("coating", "resin_layer", "surface_ply", "laminate", "model"),
+                      "The source known to dominate there.", required=True)
+
+
+_SOURCE = s.choice("coating", "resin_layer", "surface_ply", "laminate", "model")
+
+
+@dataclass(frozen=True)
+class DiagnosisSpec:
+    """How measurement and predictions are compared."""
+
+    sources: tuple = key(s.list_of(_SOURCE, min_len=1), "Sources to evaluate (default: every source "
+                         "the laminate has, and the heat model).")
+    property_uncertainty: float = key(s.quantity("", nonnegative=True, high=1.0),
+                                      "Relative standard uncertainty of the material properties.",
+                                      default=0.05)
+    fit_threshold: float = key(s.quantity("", positive=True), "|z| above which a source does not fit.",
+                               default=3.0)
+    distinguish: float = key(s.quantity("", positive=True), "Predictions closer than this many "
+                             "combined sigmas are indistinguishable.", default=1.0)
+    min_snr: float = key(s.quantity("", nonnegative=True), "Pixels below this lock-in SNR are invalid.",
+                         default=2.0)
+    regions: tuple = key(s.list_of(s.table_of(RegionSpec)), "Named regions for the region table.",
+                         factory=tuple)
+    calibration: CalibrationSpec = key(s.table_of(CalibrationSpec), "Optional calibration region.")
+
+
+@dataclass(frozen=True)
+class ComputeSpec:
+    """Where and how runs are computed."""
+
+    workers: int = key(s.integer(low=1, high=1024), "Runs processed at once (default: cores).")
+    memory_budget: float = key(s.quantity("B", positive=True), "Memory a run may use for frame "
+                               "chunks.", unit="B", default=2e9)
+    scheduler: str = key(s.string(pattern=r"(tcp|tls|inproc)://\S+|processes|threads|synchronous",
+                                  hint="expected tcp://HOST:PORT, 'processes', 'threads' or 'synchronous'"),
+                         "Dask scheduler: 'threads', 'processes', 'synchronous' or tcp://HOST:PORT.")
+
+
+@dataclass(frozen=True)
+class OutputSpec:
+    """Where results go and which figures are made."""
+
+    folder: Path = key(s.path, "Output folder (default: 'results' beside the config).")
+    figures: bool = key(s.boolean, "Write figures.", default=True)
+    formats: tuple = key(s.list_of(s.choice("png", "pdf"), min_len=1), "Figure formats.",
+                         default=("png",))
+    dpi: int = key(s.integer(low=50, high=1200), "Figure resolution.", default=300)
+    profile_line: tuple = key(s.list_of(s.point, min_len=2, max_len=2),
+                              "Line [[x0, y0], [x1, y1]] in IR px for the profile figure.")
+    report: bool = key(s.boolean, "Write report.html.", default=True)
+
+
+@dataclass(frozen=True)
+class PlanSpec:
+    """The strain state and frequencies of ``fusion plan``."""
+
+    strain: float = key(s.quantity("", positive=True), "Strain range along the load axis "
+                        "(\"1000 microstrain\").", default=1e-3)
+    direction: float = key(s.quantity("deg"), "Load axis, degrees from specimen x.", unit="deg",
+                           default=0.0)
+    f_min: float = key(s.quantity("Hz", positive=True), "Lowest frequency.", unit="Hz", default=0.1)
+    f_max: float = key(s.quantity("Hz", positive=True), "Highest frequency.", unit="Hz", default=200.0)
+    count: int = key(s.integer(low=3, high=2000), "Number of log-spaced frequencies.", default=121)
+    tolerance: float = key(s.quantity("", positive=True, high=0.5), "Band tolerance (relative).",
+                           default=0.02)
+    laminate: str = key(s.string(), "Laminate to plan (default: [laminate]).")
+
+
+@dataclass(frozen=True)
+class RunSpec:
+    """One paired infrared/correlation run."""
+
+    name: str = key(s.string(pattern=RUN_NAME_PATTERN, hint="letters, digits, - _ . only, "
+                             "starting with a letter or digit, at most 100 characters"),
+                    "Run name; becomes its output folder name.", required=True)
+    specimen: str = key(s.string(pattern=r"[^\x00-\x1f]{1,100}", hint="1-100 printable characters"),
+                        "Specimen; runs of one specimen at several frequencies form a sweep.")
+    frequency: float = key(s.quantity("Hz", positive=True), "Loading frequency (optional with a "
+                           "load signal).", unit="Hz")
+    laminate: str = key(s.string(), "Name of a laminate in [laminates] (default: [laminate]).")
+    description: str = key(s.string(), "Free text for the report.")
+    thermal: ThermalSpec = key(s.table_of(ThermalSpec), "Infrared input.", required=True)
+    dic: DicSpec = key(s.table_of(DicSpec), "Correlation input.", required=True)
+    registration: RegistrationSpec = key(s.table_of(RegistrationSpec), "Per-run registration "
+                                         "(replaces the top-level [registration]).")
+
+    def _check(self, prefix, ctx):
+        if self.name.lower() in _RESERVED:
+            raise ConfigError(f"{prefix}.name", f"{self.name!r} is a reserved name", source=ctx.source)
+        if self.frequency is None and self.thermal.load is None and self.thermal.maps is None:
+            raise ConfigError(f"{prefix}.frequency", "is required when no load signal is given",
+                              source=ctx.source)
+
+
+@dataclass(frozen=True)
+class CampaignSpec:
+    """Labels for the report."""
+
+    name: str = key(s.string(), "Campaign title.", default="fusion campaign")
+    description: str = key(s.string(), "Free text for the report header.", default="")
+    operator: str = key(s.string(), "Who ran the tests (optional).")
+
+
+@dataclass(frozen=True)
+class TopLevel:
+    """The keys a config file may hold at its top level."""
+
+    campaign: CampaignSpec = key(s.table_of(CampaignSpec), "Labels for the report.")
+    material_library: tuple = key(s.either(s.list_of(s.path), s.path), "TOML file(s) with more "
+                                  "[materials.NAME] tables (e.g. materials.toml).")
+    materials: dict = key(lambda v, k, c: v, "Material tables [materials.NAME] (see below).",
+                          type_name="tables", factory=dict)
+    laminate: LaminateSpec = key(s.table_of(LaminateSpec), "The default laminate.")
+    laminates: dict = key(lambda v, k, c: v, "Further named laminates [laminates.NAME].",
+                          type_name="tables", factory=dict)
+    run: tuple = key(lambda v, k, c: v, "The runs [[run]].", type_name="array of tables", factory=tuple)
+    registration: RegistrationSpec = key(s.table_of(RegistrationSpec), "Registration for all runs.")
+    diagnosis: DiagnosisSpec = key(s.table_of(DiagnosisSpec), "Diagnosis settings.")
+    compute: ComputeSpec = key(s.table_of(ComputeSpec), "Compute settings.")
+    output: OutputSpec = key(s.table_of(OutputSpec), "Output settings.")
+    plan: PlanSpec = key(s.table_of(PlanSpec), "Settings of `fusion plan`.")
+
+
+@dataclass(frozen=True)
+class OrthotropicSpec:
+    """An orthotropic ply material (UD ply in its material axes, 1 along the fibres)."""
+
+    E1: float = key(s.quantity("Pa"), "Modulus along the fibres.", unit="Pa", required=True)
+    E2: float = key(s.quantity("Pa"), "Transverse modulus.", unit="Pa", required=True)
+    G12: float = key(s.quantity("Pa"), "In-plane shear modulus.", unit="Pa", required=True)
+    nu12: float = key(s.quantity(""), "Major Poisson ratio.", required=True)
+    alpha1: float = key(s.quantity("1/K"), "Expansion coefficient along the fibres.", unit="1/K", required=True)
+    alpha2: float = key(s.quantity("1/K"), "Transverse expansion coefficient.", unit="1/K", required=True)
+    density: float = key(s.quantity("kg/m^3"), "Density.", unit="kg/m3", required=True)
+    specific_heat: float = key(s.quantity("J/kg/K"), "Specific heat.", unit="J/(kg K)", required=True)
+    k1: float = key(s.quantity("W/m/K"), "Conductivity along the fibres.", unit="W/(m K)", required=True)
+    k2: float = key(s.quantity("W/m/K"), "Transverse in-plane conductivity.", unit="W/(m K)", required=True)
+    k3: float = key(s.quantity("W/m/K"), "Through-thickness conductivity.", unit="W/(m K)", required=True)
+    source: str = key(s.string(), "Where the values come from (shown in reports).")
+
+
+@dataclass(frozen=True)
+class IsotropicSpec:
+    """An isotropic material (resin, paint, metal)."""
+
+    E: float = key(s.quantity("Pa"), "Young's modulus.", unit="Pa", required=True)
+    nu: float = key(s.quantity(""), "Poisson ratio.", required=True)
+    alpha: float = key(s.quantity("1/K"), "Expansion coefficient.", unit="1/K", required=True)
+    density: float = key(s.quantity("kg/m^3"), "Density.", unit="kg/m3", required=True)
+    specific_heat: float = key(s.quantity("J/kg/K"), "Specific heat.", unit="J/(kg K)", required=True)
+    k: float = key(s.quantity("W/m/K"), "Thermal conductivity.", unit="W/(m K)", required=True)
+    source: str = key(s.string(), "Where the values come from (shown in reports).")
+
+
+# --------------------------------------------------------------------------- the config
+@dataclass(frozen=True)
+class Config:
+    """A validated campaign config (all quantities SI, paths resolved)."""
+
+    path: Path | None
+    text: str
+    campaign: CampaignSpec
+    materials: dict
+    laminates: dict
+    runs: tuple
+    registration: RegistrationSpec | None
+    diagnosis: DiagnosisSpec
+    compute: ComputeSpec
+    output: OutputSpec
+    plan: PlanSpec
+    material_sources: dict = dataclasses.field(default_factory=dict)
+
+    @property
+    def sha256(self) -> str:
+        """SHA-256 of the config text (provenance)."""
+        return hashlib.sha256(self.text.encode("utf-8")).hexdigest()
+
+    @property
+    def folder(self) -> Path:
+        return self.path.parent if self.path is not None else Path(".")
+
+    def laminate_for(self, run: RunSpec) -> Laminate:
+        """The laminate of ``run`` (its ``laminate`` key, or the default one)."""
+        return self.laminates[run.laminate or "default"]
+
+    def registration_for(self, run: RunSpec) -> RegistrationSpec | None:
+        return run.registration or self.registration
+
+    def output_folder(self, override=None) -> Path:
+        if override is not None:
+            return Path(override)
+        return self.output.folder if self.output.folder is not None else self.folder / "results"
+
+
+def _read_toml(path: Path, key_name: str, ctx: Context | None) -> tuple[dict, str]:
+    where = ctx.source if ctx else None
+    try:
+        if path.is_dir():
+            raise ConfigError(key_name, f"{str(path)!r} is a folder, expected a TOML file", source=where)
+        size = path.stat().st_size
+        if size > _MAX_CONFIG_BYTES:
+            raise ConfigError(key_name, f"{str(path)!r} is {size} bytes; a config is at most "
+                              f"{_MAX_CONFIG_BYTES} bytes", source=where)
+        raw = path.read_bytes()
+    except FileNotFoundError as e:
+        raise ConfigError(key_name, f"file {str(path)!r} does not exist", source=where) from e
+    except PermissionError as e:
+        raise ConfigError(key_name, f"file {str(path)!r} cannot be read (permission denied)", source=where) from e
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as e:
+        raise ConfigError(key_name, f"{str(path)!r} is not UTF-8 text (byte {e.start})", source=where) from e
+    try:
+        return tomllib.loads(text), text
+    except tomllib.TOMLDecodeError as e:
+        raise ConfigError(key_name, f"{str(path)!r} is not valid TOML: {e}", source=where) from e
+
+
+def load_config(path) -> Config:
+    """Read and validate a config file.
+
+    Raises
+    ------
+    ConfigError
+        Naming the key path and what was expected.
+    """
+    path = Path(path)
+    doc, text = _read_toml(path, "config", None)
+    return _validate(doc, text, path)
+
+
+def loads_config(text: str, *, base=".") -> Config:
+    """Validate config ``text`` (relative paths resolve from ``base``)."""
+    if not isinstance(text, str):
+        raise ConfigError("config", f"expected TOML text, got {type(text).__name__}")
+    try:
+        doc = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as e:
+        raise ConfigError("config", f"not valid TOML: {e}") from e
+    return _validate(doc, text, None, base=Path(base))
+
+
+def _validate(doc: dict, text: str, path: Path | None, *, base: Path | None = None) -> Config:
+    ctx = Context(source=str(path) if path else None, base=(path.parent if path else base or Path(".")))
+    top = s.build(TopLevel, doc, "", ctx)
+
+    raw_materials: dict = {}
+    library = top.material_library
+    if isinstance(library, Path):
+        library = (library,)
+    for i, lib in enumerate(library or ()):
+        lib_doc, _ = _read_toml(lib, f"material_library[{i}]" if len(library) > 1 else "material_library", ctx)
+        extra = set(lib_doc) - {"materials"}
+        if extra:
+            raise ConfigError(f"material_library ({lib.name})", f"expected only [materials.NAME] tables, "
+                              f"found {sorted(extra)}", source=ctx.source)
+        raw_materials.update(_table(lib_doc.get("materials", {}), "materials", ctx))
+    raw_materials.update(_table(top.materials, "materials", ctx))
+    materials, material_sources = {}, {}
+    for name, table in raw_materials.items():
+        materials[name], material_sources[name] = _material(name, table, ctx)
+
+    laminate_specs = {}
+    if top.laminate is not None:
+        laminate_specs["default"] = ("laminate", top.laminate)
+    for name, table in _table(top.laminates, "laminates", ctx).items():
+        if not re.fullmatch(r"[A-Za-z0-9_.\-]{1,60}", name):
+            raise ConfigError(f"laminates.{name}", "laminate names use letters, digits, - _ . only",
+                              source=ctx.source)
+        laminate_specs[name] = (f"laminates.{name}", s.build(LaminateSpec, table, f"laminates.{name}", ctx))
+    laminates = {name: _laminate(name, spec, k, materials, ctx) for name, (k, spec) in laminate_specs.items()}
+
+    if not isinstance(top.run, (list, tuple)):
+        raise ConfigError("run", "expected an array of tables [[run]]", source=ctx.source)
+    runs, seen = [], {}
+    for i, table in enumerate(top.run):
+        run = s.build(RunSpec, table, f"run[{i}]", ctx)
+        low = run.name.lower()
+        if low in seen:
+            raise ConfigError(f"run[{i}].name", f"{run.name!r} is used by run[{seen[low]}] already "
+                              "(names become folder names and must be unique, ignoring case)",
+                              source=ctx.source)
+        seen[low] = i
+        want = run.laminate or "default"
+        if want not in laminates:
+            if run.laminate is None:
+                raise ConfigError(f"run[{i}].laminate", "no laminate given and the config has no "
+                                  "[laminate] table", source=ctx.source)
+            raise ConfigError(f"run[{i}].laminate", f"unknown laminate {run.laminate!r}; known: "
+                              f"{sorted(k for k in laminates if k != 'default')}", source=ctx.source)
+        if run.registration is None and top.registration is None:
+            raise ConfigError(f"run[{i}].registration", "no [registration] for this run and none at "
+                              "the top level (use method = \"identity\" if the grids coincide)",
+                              source=ctx.source)
+        runs.append(run)
+
+    diagnosis = top.diagnosis or DiagnosisSpec()
+    region_names = [r.name for r in diagnosis.regions]
+    if len(set(region_names)) != len(region_names):
+        raise ConfigError("diagnosis.regions", "region names must be unique", source=ctx.source)
+    if diagnosis.calibration is not None and diagnosis.calibration.region not in region_names:
+        raise ConfigError("diagnosis.calibration.region", f"unknown region "
+                          f"{diagnosis.calibration.region!r}; regions: {region_names}", source=ctx.source)
+    plan = top.plan or PlanSpec()
+    if plan.f_min >= plan.f_max:
+        raise ConfigError("plan.f_max", f"expected f_max > f_min ({plan.f_min} Hz)", source=ctx.source)
+    if plan.laminate is not None and plan.laminate not in laminates:
+        raise ConfigError("plan.laminate", f"unknown laminate {plan.laminate!r}", source=ctx.source)
+
+    return Config(path=path, text=text, campaign=top.campaign or CampaignSpec(), materials=materials,
+                  laminates=laminates, runs=tuple(runs), registration=top.registration,
+                  diagnosis=diagnosis, compute=top.compute or ComputeSpec(),
+                  output=top.output or OutputSpec(), plan=plan, material_sources=material_sources)
+
+
+def _table(value, k, ctx) -> dict:
+    if not isinstance(value, dict) or not all(isinstance(v, dict) for v in value.values()):
+        raise ConfigError(k, f"expected tables [{k}.NAME], got {value!r}", source=ctx.source)
+    return value
+
+
+def _material(name, table, ctx):
+    k = f"materials.{name}"
+    if not re.fullmatch(r"[A-Za-z0-9_.\-]{1,60}", name):
+        raise ConfigError(k, "material names use letters, digits, - _ . only", source=ctx.source)
+    if "E1" in table:
+        spec_cls, cls = OrthotropicSpec, OrthotropicMaterial
+    elif "E" in table:
+        spec_cls, cls = IsotropicSpec, IsotropicMaterial
+    else:
+        raise ConfigError(k, "expected an orthotropic ply (E1 E2 G12 nu12 alpha1 alpha2 density "
+                          "specific_heat k1 k2 k3) or an isotropic material (E nu alpha density "
+                          "specific_heat k)", source=ctx.source)
+    spec = s.build(spec_cls, table, k, ctx)
+    values = {f.name: getattr(spec, f.name) for f in dataclasses.fields(spec) if f.name != "source"}
+    try:
+        return cls(name=name, **values), spec.source
+    except MaterialError as e:
+        raise ConfigError(f"{k}.{e.field}", str(e).split(": ", 1)[-1], source=ctx.source) from e
+
+
+def _layer(ref: LayerRef | None, k, materials, ctx):
+    if ref is None:
+        return None
+    mat = materials.get(ref.material)
+    if mat is None:
+        raise ConfigError(f"{k}.material", f"unknown material {ref.material!r}; known: {sorted(materials)}",
+                          source=ctx.source)
+    if not isinstance(mat, IsotropicMaterial):
+        raise ConfigError(f"{k}.material", f"{ref.material!r} is orthotropic; a surface layer needs an "
+                          "isotropic material (E, nu, alpha...)", source=ctx.source)
+    return SurfaceLayer(material=mat, thickness=ref.thickness)
+
+
+def _laminate(name, spec: LaminateSpec, k, materials, ctx) -> Laminate:
+    try:
+        angles = parse_layup(spec.layup if isinstance(spec.layup, str) else list(spec.layup))
+    except LayupError as e:
+        raise ConfigError(f"{k}.layup", str(e), source=ctx.source) from e
+    mat = materials.get(spec.ply_material)
+    if mat is None:
+        raise ConfigError(f"{k}.ply_material", f"unknown material {spec.ply_material!r}; known: "
+                          f"{sorted(materials)}", source=ctx.source)
+    if not isinstance(mat, OrthotropicMaterial):
+        raise ConfigError(f"{k}.ply_material", f"{spec.ply_material!r} is isotropic; plies need an "
+                          "orthotropic material (E1, E2, G12...)", source=ctx.source)
+    plies = tuple(Ply(material=mat, angle=a, thickness=spec.ply_thickness) for a in angles)
+    return Laminate(plies=plies, zero_direction=spec.zero_direction,
+                    coating=_layer(spec.coating, f"{k}.coating", materials, ctx),
+                    resin_layer=_layer(spec.resin_layer, f"{k}.resin_layer", materials, ctx),
+                    back_layer=_layer(spec.back_layer, f"{k}.back_layer", materials, ctx),
+                    convection_front=spec.convection_front, convection_back=spec.convection_back,
+                    name=name, layup_code=spec.layup if isinstance(spec.layup, str) else None)
+
+
+def markdown_reference() -> str:
+    """The key reference of the config, as Markdown (for configs/README.md)."""
+    parts = [
+        s.markdown_reference(TopLevel, "top level", title="top level"),
+        s.markdown_reference(CampaignSpec, "campaign"),
+        s.markdown_reference(OrthotropicSpec, "materials.NAME", title="materials.NAME (orthotropic ply)"),
+        s.markdown_reference(IsotropicSpec, "materials.NAME", title="materials.NAME (isotropic)"),
+        s.markdown_reference(LaminateSpec, "laminate", title="laminate and laminates.NAME"),
+        s.markdown_reference(RunSpec, "run", title="[[run]]"),
+        s.markdown_reference(RegistrationSpec, "registration"),
+        s.markdown_reference(DiagnosisSpec, "diagnosis"),
+        s.markdown_reference(ComputeSpec, "compute"),
+        s.markdown_reference(OutputSpec, "output"),
+        s.markdown_reference(PlanSpec, "plan"),
+    ]
+    return "\n".join(parts)
+
+
+if __name__ == "__main__":  # pragma: no cover - documentation helper
+    print(markdown_reference())
