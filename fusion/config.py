@@ -296,9 +296,9 @@ class RunSpec:
     def _check(self, prefix, ctx):
         if self.name.lower() in _RESERVED:
             raise ConfigError(f"{prefix}.name", f"{self.name!r} is a reserved name", source=ctx.source)
-        if self.frequency is None and self.thermal.load is None and self.thermal.maps is None:
-            raise ConfigError(f"{prefix}.frequency", "is required when no load signal is given",
-                              source=ctx.source)
+        if self.frequency is None and (self.thermal.load is None or self.thermal.maps is not None):
+            raise ConfigError(f"{prefix}.frequency", "is required with precomputed maps or when no "
+                              "load signal is given (e.g. frequency = \"10 Hz\")", source=ctx.source)
 
 
 @dataclass(frozen=True)
@@ -558,7 +558,10 @@ def _layer(ref: LayerRef | None, k, materials, ctx):
     if not isinstance(mat, IsotropicMaterial):
         raise ConfigError(f"{k}.material", f"{ref.material!r} is orthotropic; a surface layer needs an "
                           "isotropic material (E, nu, alpha...)", source=ctx.source)
-    return SurfaceLayer(material=mat, thickness=ref.thickness)
+    try:
+        return SurfaceLayer(material=mat, thickness=ref.thickness)
+    except MaterialError as e:
+        raise ConfigError(f"{k}.{e.field}", str(e).split(": ", 1)[-1], source=ctx.source) from e
 
 
 def _laminate(name, spec: LaminateSpec, k, materials, ctx) -> Laminate:
@@ -573,13 +576,16 @@ def _laminate(name, spec: LaminateSpec, k, materials, ctx) -> Laminate:
     if not isinstance(mat, OrthotropicMaterial):
         raise ConfigError(f"{k}.ply_material", f"{spec.ply_material!r} is isotropic; plies need an "
                           "orthotropic material (E1, E2, G12...)", source=ctx.source)
-    plies = tuple(Ply(material=mat, angle=a, thickness=spec.ply_thickness) for a in angles)
-    return Laminate(plies=plies, zero_direction=spec.zero_direction,
-                    coating=_layer(spec.coating, f"{k}.coating", materials, ctx),
-                    resin_layer=_layer(spec.resin_layer, f"{k}.resin_layer", materials, ctx),
-                    back_layer=_layer(spec.back_layer, f"{k}.back_layer", materials, ctx),
-                    convection_front=spec.convection_front, convection_back=spec.convection_back,
-                    name=name, layup_code=spec.layup if isinstance(spec.layup, str) else None)
+    try:
+        plies = tuple(Ply(material=mat, angle=a, thickness=spec.ply_thickness) for a in angles)
+        return Laminate(plies=plies, zero_direction=spec.zero_direction,
+                        coating=_layer(spec.coating, f"{k}.coating", materials, ctx),
+                        resin_layer=_layer(spec.resin_layer, f"{k}.resin_layer", materials, ctx),
+                        back_layer=_layer(spec.back_layer, f"{k}.back_layer", materials, ctx),
+                        convection_front=spec.convection_front, convection_back=spec.convection_back,
+                        name=name, layup_code=spec.layup if isinstance(spec.layup, str) else None)
+    except MaterialError as e:
+        raise ConfigError(f"{k}.{e.field}", str(e).split(": ", 1)[-1], source=ctx.source) from e
 
 
 def markdown_reference() -> str:

@@ -1,1 +1,85 @@
-"""(in progress)"""
+"""Benchmarks of the hot paths (``fusion bench``): ratios measured in one run.
+
+Speed targets are checked here, never in timed tests (machines are shared and
+noisy). Each benchmark module returns a flat dict; :func:`run_benchmarks`
+merges them into the object ``fusion bench --json`` prints, with the keys
+``lockin_f32_ratio``, ``lockin_i16_ratio``, ``dic_subsets_per_s``,
+``dic_points_per_s``, ``dic_flow_seconds``, ``predict_ratio``, ``heat_seconds``,
+``campaign_speedup`` and ``cores`` always present (null where a benchmark was
+not run or is not available).
+"""
+
+from __future__ import annotations
+
+import importlib
+import logging
+import os
+import time
+
+log = logging.getLogger(__name__)
+
+__all__ = ["run_benchmarks", "format_table", "REQUIRED_KEYS"]
+
+REQUIRED_KEYS = ("lockin_f32_ratio", "lockin_i16_ratio", "dic_subsets_per_s", "dic_points_per_s",
+                 "dic_flow_seconds", "predict_ratio", "heat_seconds", "campaign_speedup", "cores")
+
+# name -> (module, function)
+_BENCHES = {
+    "predict": ("fusion.bench._predict", "bench_predict"),
+    "heat": ("fusion.bench._heat", "bench_heat"),
+    "lockin": ("fusion.bench._lockin", "bench_lockin"),
+    "dic": ("fusion.bench._dic", "bench_dic"),
+    "campaign": ("fusion.bench._campaign", "bench_campaign"),
+}
+
+_TARGETS = {
+    "lockin_f32_ratio": ("<=", 1.2, "time of the lock-in / one parallel read of the float32 stack"),
+    "lockin_i16_ratio": ("<=", 1.6, "time of the lock-in on int16 counts / one parallel read of them"),
+    "dic_subsets_per_s": (">=", 20000, "IC-GN subsets per second (21 px subsets)"),
+    "dic_points_per_s": (">=", 15000, "correlation points per second end to end"),
+    "dic_flow_seconds": (None, None, "OpenCV dense optical flow on the same pair, s"),
+    "predict_ratio": ("<=", 20, "predictions of every source / one numpy pass, 1e6 pixels"),
+    "heat_seconds": ("<=", 1.0, "transfer coefficients, 200 frequencies, 32 plies, s"),
+    "campaign_speedup": (">=", 1.3, "8 demo-sized runs on 2 local workers vs one by one"),
+}
+
+
+def run_benchmarks(*, quick: bool = False, only=None) -> dict:
+    """Run the benchmarks (all, or those named in ``only``) and return one flat dict."""
+    out = {k: None for k in REQUIRED_KEYS}
+    out["cores"] = os.cpu_count()
+    out["quick"] = bool(quick)
+    names = list(only) if only else list(_BENCHES)
+    unknown = [n for n in names if n not in _BENCHES]
+    if unknown:
+        from ..errors import ConfigError
+
+        raise ConfigError("--only", f"unknown benchmark {unknown[0]!r}; choose from {sorted(_BENCHES)}")
+    for name in names:
+        mod_name, fn_name = _BENCHES[name]
+        t0 = time.perf_counter()
+        try:
+            fn = getattr(importlib.import_module(mod_name), fn_name)
+        except (ImportError, AttributeError) as e:
+            log.warning("benchmark %s not available: %s", name, e)
+            continue
+        out.update(fn(quick=quick))
+        log.info("benchmark %s took %.1f s", name, time.perf_counter() - t0)
+    return out
+
+
+def format_table(results: dict) -> str:
+    """The benchmark results as a plain-text table with their targets."""
+    lines = [f"fusion bench on {results.get('cores')} cores{' (quick sizes)' if results.get('quick') else ''}",
+             f"{'measure':<22} {'value':>12}  {'target':>10}  meaning"]
+    for k, v in results.items():
+        if k in ("cores", "quick"):
+            continue
+        op, target, meaning = _TARGETS.get(k, (None, None, ""))
+        val = "n/a" if v is None else f"{v:.4g}" if isinstance(v, float) else str(v)
+        tgt = f"{op} {target:g}" if op else ""
+        flag = ""
+        if op and isinstance(v, (int, float)):
+            flag = "  ok" if (v <= target if op == "<=" else v >= target) else "  MISSED"
+        lines.append(f"{k:<22} {val:>12}  {tgt:>10}  {meaning}{flag}")
+    return "\n".join(lines)

@@ -2,11 +2,18 @@
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
+from numbers import Real
 
 from ._materials import IsotropicMaterial, MaterialError, OrthotropicMaterial
 
 __all__ = ["Ply", "SurfaceLayer", "Laminate"]
+
+
+def _require_thickness(value, key):
+    if isinstance(value, bool) or not (isinstance(value, Real) and math.isfinite(value) and value > 0):
+        raise MaterialError(key, f"expected a positive thickness, got {value!r} m")
 
 
 @dataclass(frozen=True)
@@ -19,8 +26,12 @@ class Ply:
     thickness: float
 
     def __post_init__(self):
-        if not self.thickness > 0:
-            raise MaterialError("ply_thickness", f"expected a positive thickness, got {self.thickness!r} m")
+        if not isinstance(self.material, OrthotropicMaterial):
+            raise MaterialError("ply_material", f"a ply needs an OrthotropicMaterial, got "
+                                f"{type(self.material).__name__} {getattr(self.material, 'name', '')!r}")
+        if isinstance(self.angle, bool) or not (isinstance(self.angle, Real) and math.isfinite(self.angle)):
+            raise MaterialError("ply_angle", f"expected a finite angle in degrees, got {self.angle!r}")
+        _require_thickness(self.thickness, "ply_thickness")
 
 
 @dataclass(frozen=True)
@@ -31,8 +42,10 @@ class SurfaceLayer:
     thickness: float
 
     def __post_init__(self):
-        if not self.thickness > 0:
-            raise MaterialError("thickness", f"expected a positive thickness, got {self.thickness!r} m")
+        if not isinstance(self.material, IsotropicMaterial):
+            raise MaterialError("material", f"a surface layer needs an IsotropicMaterial, got "
+                                f"{type(self.material).__name__} {getattr(self.material, 'name', '')!r}")
+        _require_thickness(self.thickness, "thickness")
 
 
 @dataclass(frozen=True)
@@ -55,6 +68,8 @@ class Laminate:
         Heat-transfer coefficients of the faces in W/(m2 K); 0 means adiabatic.
     name : str
         Label for reports.
+    layup_code : str, optional
+        The compact code the plies came from (for reports; not compared).
     """
 
     plies: tuple[Ply, ...]
@@ -71,6 +86,48 @@ class Laminate:
         if not self.plies:
             raise MaterialError("layup", "the laminate has no plies")
         object.__setattr__(self, "plies", tuple(self.plies))
+        for i, p in enumerate(self.plies):
+            if not isinstance(p, Ply):
+                raise MaterialError("layup", f"entry {i} of plies is {type(p).__name__}, expected a Ply")
+        for key in ("coating", "resin_layer", "back_layer"):
+            layer = getattr(self, key)
+            if layer is not None and not isinstance(layer, SurfaceLayer):
+                raise MaterialError(key, f"expected a SurfaceLayer or None, got {type(layer).__name__}")
+        z = self.zero_direction
+        if isinstance(z, bool) or not (isinstance(z, Real) and math.isfinite(z)):
+            raise MaterialError("zero_direction", f"expected a finite angle in degrees, got {z!r}")
+        for key in ("convection_front", "convection_back"):
+            h = getattr(self, key)
+            if isinstance(h, bool) or not (isinstance(h, Real) and math.isfinite(h) and h >= 0):
+                raise MaterialError(key, f"expected a heat-transfer coefficient >= 0 W/(m2 K), got {h!r}")
+
+    @classmethod
+    def from_layup(cls, material: OrthotropicMaterial, layup, ply_thickness: float, **options) -> Laminate:
+        """A laminate of one ply material from a layup code or list of angles.
+
+        Parameters
+        ----------
+        material : OrthotropicMaterial
+            The ply material of every ply.
+        layup : str or sequence of float
+            ``"[0/90]s"`` style code (see :func:`parse_layup`) or angles in degrees,
+            viewed face first.
+        ply_thickness : float
+            Cured ply thickness in m.
+        **options
+            Any other :class:`Laminate` field (``zero_direction``, ``coating``...).
+
+        Returns
+        -------
+        Laminate
+        """
+        from ._layup import parse_layup
+
+        angles = parse_layup(layup)
+        if isinstance(layup, str):
+            options.setdefault("layup_code", layup)
+        plies = tuple(Ply(material, a, ply_thickness) for a in angles)
+        return cls(plies, **options)
 
     @property
     def angles(self) -> tuple[float, ...]:
@@ -81,3 +138,8 @@ class Laminate:
     def thickness(self) -> float:
         """Thickness of the plies alone (the structural laminate) in m."""
         return sum(p.thickness for p in self.plies)
+
+    @property
+    def surface_layers(self) -> tuple[tuple[str, SurfaceLayer], ...]:
+        """The viewed-face layers present, outermost first: ``(("coating", layer), ...)``."""
+        return tuple((k, getattr(self, k)) for k in ("coating", "resin_layer") if getattr(self, k))
