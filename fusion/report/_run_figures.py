@@ -1,0 +1,121 @@
+"""All figures of one run, written atomically in the requested formats."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from ..io import atomic_path
+from ._figures import (
+    evaluated_sources, measured_vs_predicted_figure, overlay_figure, residuals_figure, source_map_figure,
+)
+from ._profiles import default_profile_line, profile_figure, through_thickness_figure
+
+__all__ = ["run_figures", "save_figure", "FIGURE_NAMES"]
+
+#: Figure names in report order.
+FIGURE_NAMES = ("measured_vs_predicted", "residuals", "source_map", "overlay", "profile", "through_thickness")
+
+_FORMATS = {"png", "pdf", "svg"}
+
+
+def save_figure(fig, path, *, dpi: int = 300, overwrite: bool = False) -> Path:
+    """Write ``fig`` to ``path`` (format from the suffix) through a temporary name.
+
+    PDF and SVG are written without a creation date so that the same figure
+    gives the same bytes (reproducible outputs).
+    """
+    path = Path(path)
+    fmt = path.suffix.lstrip(".").lower()
+    if fmt not in _FORMATS:
+        raise ValueError(f"figure path {str(path)!r}: suffix must be one of {sorted(_FORMATS)}")
+    metadata = {"png": None, "pdf": {"CreationDate": None}, "svg": {"Date": None}}[fmt]
+    with atomic_path(path, overwrite=overwrite) as tmp:
+        fig.savefig(tmp, format=fmt, dpi=dpi, metadata=metadata)
+    return path
+
+
+def _check_formats(formats):
+    if isinstance(formats, str):
+        formats = (formats,)
+    formats = tuple(str(f).lower().lstrip(".") for f in formats)
+    bad = [f for f in formats if f not in _FORMATS]
+    if not formats or bad:
+        raise ValueError(f"formats={formats!r}: choose from {sorted(_FORMATS)}")
+    return formats
+
+
+def run_figures(ds, out_dir, *, formats=("png",), dpi=300, reference_image=None, region_mask=None,
+                profile_line=None, ply_profile=None, overwrite: bool = False) -> dict[str, Path]:
+    """Write the figures of one run.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Result of the run (the variables of :mod:`fusion.datamodel`).
+    out_dir : str or Path
+        Folder of the figures (created when missing).
+    formats : sequence of {"png", "pdf", "svg"}
+        File formats; the first is the one returned.
+    dpi : int
+        Resolution of raster output, dots per inch.
+    reference_image : (Y, X) ndarray, optional
+        Visible reference image on the IR grid; enables ``overlay``.
+    region_mask : (Y, X) bool ndarray, optional
+        Correlation region on the IR grid, outlined on the overlay.
+    profile_line : ((x0, y0), (x1, y1)), optional
+        IR pixels; default a horizontal line through the middle of the valid area.
+    ply_profile : list of dict, optional
+        Rows ``name, z_top, z_bottom (m), ratio``; enables ``through_thickness``.
+    overwrite : bool
+        Replace existing files (otherwise :class:`fusion.errors.InputError`).
+
+    Returns
+    -------
+    dict of str to Path
+        Figure name (see :data:`FIGURE_NAMES`) to the file in the first format;
+        other formats sit beside it with the same stem. Figures whose inputs
+        are missing are left out (no residual maps, no source map, no overlay
+        without a reference image, no through-thickness profile without rows).
+    """
+    formats = _check_formats(formats)
+    if not (isinstance(dpi, (int, np.integer)) and 30 <= dpi <= 1200):
+        raise ValueError(f"dpi={dpi!r} must be an integer between 30 and 1200")
+    if "ratio_measured" not in ds.data_vars:
+        raise ValueError(f"the result has no 'ratio_measured' map; present: {sorted(ds.data_vars)}")
+    out_dir = Path(out_dir)
+    builders = {"measured_vs_predicted": lambda: measured_vs_predicted_figure(ds)}
+    if evaluated_sources(ds, "residual_"):
+        builders["residuals"] = lambda: residuals_figure(ds)
+    if "source_layer" in ds.data_vars:
+        builders["source_map"] = lambda: source_map_figure(ds)
+    if reference_image is not None:
+        builders["overlay"] = lambda: overlay_figure(ds, reference_image, region_mask=region_mask)
+    line = profile_line if profile_line is not None else default_profile_line(ds)
+    if line is not None:
+        builders["profile"] = lambda: profile_figure(ds, line)
+    if ply_profile is not None:
+        builders["through_thickness"] = lambda: through_thickness_figure(ply_profile, measured=_measured_quartiles(ds))
+
+    written = {}
+    for name in FIGURE_NAMES:
+        if name not in builders:
+            continue
+        fig = builders[name]()
+        for k, fmt in enumerate(formats):
+            path = save_figure(fig, out_dir / f"{name}.{fmt}", dpi=int(dpi), overwrite=overwrite)
+            if k == 0:
+                written[name] = path
+    return written
+
+
+def _measured_quartiles(ds):
+    m = np.asarray(ds["ratio_measured"].values, dtype=np.float64)
+    ok = np.isfinite(m)
+    if "valid" in ds.data_vars:
+        ok &= np.asarray(ds["valid"].values) == 1
+    if not ok.any():
+        return None
+    q1, med, q3 = np.percentile(m[ok], [25, 50, 75])
+    return float(med), float(q1), float(q3)

@@ -1,0 +1,377 @@
+"""The run summary: verdict sentence, area fractions, statistics, warnings; summary.json."""
+
+from __future__ import annotations
+
+import datetime as _dt
+import functools
+import json
+import math
+from importlib import resources
+from pathlib import Path
+
+import numpy as np
+
+from .. import __version__
+from ..io import atomic_write_text
+from ._figures import evaluated_sources
+from ._style import attr_float, category_label, frequency_text, pixel_size_mm, source_categories
+
+__all__ = [
+    "summarize_run", "verdict", "write_summary", "validate_summary", "summary_schema", "format_percent",
+    "WARNING_CODES",
+]
+
+WARNING_CODES = ("registration_error", "low_snr", "dissipative_heating", "below_band", "above_band",
+                 "low_valid_area", "other")
+
+_PHRASES = {
+    "coating": "signal from the coating",
+    "resin_layer": "signal from the resin-rich surface layer",
+    "surface_ply": "signal from the surface ply",
+    "laminate": "signal from the whole laminate (homogenised)",
+    "model": "signal explained by the through-thickness heat model",
+}
+
+
+@functools.lru_cache(maxsize=1)
+def _schema_text() -> str:
+    return resources.files("fusion").joinpath("schema", "summary.schema.json").read_text(encoding="utf-8")
+
+
+def summary_schema() -> dict:
+    """The JSON Schema (draft 2020-12) of ``summary.json``, as a dict."""
+    return json.loads(_schema_text())
+
+
+def _jsonable(value):
+    """numpy scalars and arrays to Python, non-finite floats to None, keys to str."""
+    if isinstance(value, dict):
+        return {str(k): _jsonable(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_jsonable(v) for v in value]
+    if isinstance(value, np.ndarray):
+        return _jsonable(value.tolist())
+    if isinstance(value, (bool, np.bool_)):
+        return bool(value)
+    if isinstance(value, (int, np.integer)):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        f = float(value)
+        return f if math.isfinite(f) else None
+    if isinstance(value, Path):
+        return str(value)
+    return value
+
+
+def validate_summary(summary: dict) -> dict:
+    """Check a summary against :func:`summary_schema`; returns the JSON-ready copy.
+
+    Raises
+    ------
+    ValueError
+        Naming the first offending key path and the rule it breaks.
+    """
+    import jsonschema
+
+    clean = _jsonable(summary)
+    validator = jsonschema.Draft202012Validator(summary_schema())
+    errors = sorted(validator.iter_errors(clean), key=lambda e: list(e.absolute_path))
+    if errors:
+        e = errors[0]
+        where = "/".join(str(p) for p in e.absolute_path) or "(top level)"
+        raise ValueError(f"summary does not match summary.schema.json at {where!r}: {e.message}"
+                         + (f" (and {len(errors) - 1} more)" if len(errors) > 1 else ""))
+    return clean
+
+
+def write_summary(summary: dict, path, *, overwrite: bool = False) -> Path:
+    """Validate ``summary`` and write it as UTF-8 JSON to ``path`` (atomically).
+
+    Non-finite numbers become ``null``; nothing is written when validation fails.
+
+    Parameters
+    ----------
+    summary : dict
+        From :func:`summarize_run`.
+    path : str or Path
+        Usually ``<run name>/summary.json``.
+    overwrite : bool
+        Replace an existing file (otherwise :class:`fusion.errors.InputError`).
+
+    Returns
+    -------
+    Path
+
+    References
+    ----------
+    JSON Schema draft 2020-12 (json-schema.org); T. Bray (ed.), RFC 8259, *The
+    JavaScript Object Notation (JSON) Data Interchange Format*, 2017 (no NaN).
+    """
+    clean = validate_summary(summary)
+    text = json.dumps(clean, indent=2, ensure_ascii=False, allow_nan=False) + "\n"
+    return atomic_write_text(path, text, overwrite=overwrite)
+
+
+def format_percent(fraction: float) -> str:
+    """``"97 %"``; never rounds a partial area up to 100 % or a present one down to 0 %."""
+    p = 100.0 * float(fraction)
+    if p >= 100.0:
+        return "100 %"
+    if p >= 99.5:
+        return "> 99 %"
+    if p <= 0.0:
+        return "0 %"
+    if p < 0.5:
+        return "< 1 %"
+    return f"{math.floor(p + 0.5):d} %"
+
+
+def _valid_mask(ds) -> np.ndarray:
+    m = np.isfinite(np.asarray(ds["ratio_measured"].values)) if "ratio_measured" in ds.data_vars else None
+    if "valid" in ds.data_vars:
+        v = np.asarray(ds["valid"].values) == 1
+        return v if m is None else v & m
+    if m is None:
+        raise ValueError("the result has neither 'valid' nor 'ratio_measured'")
+    return m
+
+
+def _fractions(ds, valid) -> dict[str, float]:
+    if "source_layer" not in ds.data_vars:
+        return {}
+    codes = source_categories(ds)
+    raw = np.asarray(ds["source_layer"].values)[valid]
+    unknown = set(np.unique(raw).tolist()) - set(codes)
+    if unknown:
+        raise ValueError(f"source_layer holds codes {sorted(unknown)!r} not listed in its flag_values {sorted(codes)!r}")
+    n = raw.size
+    return {name: (float(np.count_nonzero(raw == code)) / n if n else 0.0) for code, name in codes.items()}
+
+
+def _verdict_text(fractions, n_valid, frequency, has_map=True) -> tuple[str, dict | None]:
+    at = f" at {frequency_text(frequency)}" if frequency is not None else ""
+    if n_valid == 0:
+        return (f"no valid data{at}: no pixel has both thermal and strain data of usable quality", None)
+    if not has_map:
+        return (f"no source map was computed{at}; see the measured and predicted maps", None)
+    ranked = sorted(((f, c) for c, f in fractions.items() if f > 0), reverse=True)
+    if not ranked:
+        return (f"no pixel of the valid area was assigned a source{at}", None)
+    top_f, top = ranked[0]
+    dominant = {"category": top, "fraction": top_f}
+    if top_f < 0.5:
+        parts = ", ".join(f"{category_label(c, frequency)} {format_percent(f)}" for f, c in ranked[:3])
+        return (f"no single source dominates{at}: {parts} of the valid area", dominant)
+    pct = format_percent(top_f)
+    if top in _PHRASES:
+        return (f"{_PHRASES[top]} in {pct} of the valid area{at}", dominant)
+    if top == "indistinguishable":
+        text = f"candidate sources indistinguishable in {pct} of the valid area{at}"
+        rest = [(f, c) for f, c in ranked[1:] if c in _PHRASES]
+        if rest:
+            text += f"; elsewhere mostly the {category_label(rest[0][1], frequency)} ({format_percent(rest[0][0])})"
+        return (text, dominant)
+    if top == "no_source_fits":
+        return (f"no candidate source fits the measurement in {pct} of the valid area{at}", dominant)
+    return (f"{category_label(top, frequency)} in {pct} of the valid area{at}", dominant)
+
+
+def verdict(ds) -> str:
+    """One sentence naming the source of the signal over the valid area.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Result of a run with ``source_layer`` (CF flags) and ``valid``.
+
+    Returns
+    -------
+    str
+        e.g. ``"signal from the surface ply in 97 % of the valid area at 20 Hz"``;
+        states plainly when the candidates are indistinguishable, when no source
+        fits, when no category holds half the area, and when there is no valid
+        data.
+
+    Notes
+    -----
+    The fraction is the share of valid pixels assigned to the category by the
+    source map; it says nothing about pixels outside the valid mask.
+    """
+    valid = _valid_mask(ds)
+    text, _ = _verdict_text(_fractions(ds, valid), int(valid.sum()), attr_float(ds, "frequency"),
+                            has_map="source_layer" in ds.data_vars)
+    return text
+
+
+def _stats(values) -> dict:
+    a = np.asarray(values, dtype=np.float64)
+    a = a[np.isfinite(a)]
+    if a.size == 0:
+        return {"n": 0, "mean": None, "std": None, "median": None, "p05": None, "p95": None, "min": None, "max": None}
+    p05, med, p95 = np.percentile(a, [5, 50, 95])
+    return {"n": int(a.size), "mean": float(a.mean()), "std": float(a.std()), "median": float(med),
+            "p05": float(p05), "p95": float(p95), "min": float(a.min()), "max": float(a.max())}
+
+
+def _prediction(ds, source, valid, measured):
+    pred = np.asarray(ds[f"ratio_{source}"].values, dtype=np.float64)[valid]
+    if f"residual_{source}" in ds.data_vars:
+        res = np.asarray(ds[f"residual_{source}"].values, dtype=np.float64)[valid]
+    else:
+        res = measured - pred
+    res = res[np.isfinite(res)]
+    residual = ({"mean": float(res.mean()), "median": float(np.median(res)), "rms": float(np.sqrt(np.mean(res * res)))}
+                if res.size else {"mean": None, "median": None, "rms": None})
+    within = None
+    if f"zscore_{source}" in ds.data_vars:
+        z = np.asarray(ds[f"zscore_{source}"].values, dtype=np.float64)[valid]
+        z = z[np.isfinite(z)]
+        within = float(np.count_nonzero(np.abs(z) <= 2.0)) / z.size if z.size else None
+    return {"ratio": _stats(pred), "residual": residual, "within_2_sigma": within}
+
+
+def _snr(ds, valid):
+    if "snr" in ds.data_vars:
+        s = np.asarray(ds["snr"].values, dtype=np.float64)
+    elif "delta_T" in ds.data_vars and "delta_T_std" in ds.data_vars:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            s = np.abs(ds["delta_T"].values.astype(np.float64)) / ds["delta_T_std"].values
+    elif "ratio_measured_std" in ds.data_vars:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            s = np.abs(ds["ratio_measured"].values.astype(np.float64)) / ds["ratio_measured_std"].values
+    else:
+        return None
+    s = s[valid]
+    s = s[np.isfinite(s)]
+    return float(np.median(s)) if s.size else None
+
+
+def _normalise_warnings(items):
+    out = []
+    for w in items or ():
+        if isinstance(w, str):
+            w = {"code": "other", "message": w}
+        elif isinstance(w, dict):
+            w = {"code": str(w.get("code", "other")), "message": str(w.get("message", "")).strip()}
+        else:
+            raise TypeError(f"warning {w!r} must be a str or a dict with 'code' and 'message'")
+        if w["code"] not in WARNING_CODES:
+            raise ValueError(f"warning code {w['code']!r} is not one of {WARNING_CODES!r}")
+        if not w["message"]:
+            raise ValueError(f"warning {w!r} has an empty message")
+        if w not in out:
+            out.append(w)
+    return out
+
+
+def _auto_warnings(ds, *, valid_fraction, snr_median, rms, frequency, meta, registration_limit_px,
+                   snr_limit, second_harmonic_limit, valid_area_limit):
+    out = []
+    if rms is not None and rms > registration_limit_px:
+        out.append({"code": "registration_error", "message": (
+            f"registration RMS error {rms:.2f} IR px exceeds {registration_limit_px:g} px: strain and "
+            "temperature may be compared at different points, worst where gradients are steep")})
+    if snr_median is not None and snr_median < snr_limit:
+        out.append({"code": "low_snr", "message": (
+            f"median signal-to-noise ratio {snr_median:.1f} is below {snr_limit:g}: source assignments are "
+            "weak; average more cycles or raise the load range within the specimen's limits")})
+    harm = meta.get("second_harmonic_ratio", ds.attrs.get("second_harmonic_ratio"))
+    if harm not in (None, "") and float(harm) > second_harmonic_limit:
+        out.append({"code": "dissipative_heating", "message": (
+            f"second harmonic at {float(harm):.0%} of the fundamental (limit {second_harmonic_limit:.0%}) "
+            "suggests dissipative heating or non-linear response; the adiabatic laws may not apply")})
+    band = meta.get("recommended_band_hz")
+    if band is not None and frequency is not None:
+        lo, hi = band
+        if lo is not None and frequency < float(lo):
+            out.append({"code": "below_band", "message": (
+                f"loading frequency {frequency:g} Hz is below the recommended band starting at "
+                f"{float(lo):g} Hz: heat conduction between layers blurs the source")})
+        elif hi is not None and frequency > float(hi):
+            out.append({"code": "above_band", "message": (
+                f"loading frequency {frequency:g} Hz is above the recommended band ending at {float(hi):g} Hz")})
+    if valid_fraction < valid_area_limit:
+        out.append({"code": "low_valid_area", "message": (
+            f"only {format_percent(valid_fraction)} of the field is valid (limit {format_percent(valid_area_limit)})")})
+    return out
+
+
+def summarize_run(ds, *, regions=None, warnings=None, meta=None, registration_limit_px: float = 0.5,
+                  snr_limit: float = 3.0, second_harmonic_limit: float = 0.1,
+                  valid_area_limit: float = 0.25) -> dict:
+    """The numbers of one run for the report and for scripts (``summary.json``).
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Result of the run (variables of :mod:`fusion.datamodel`; global attrs
+        ``run_name``, ``specimen``, ``frequency`` (Hz), ``registration_rms``
+        (IR px), ``pixel_size_mm``, ``config_sha256``, ``version``).
+    regions : list of dict, optional
+        Region-table rows, each with a ``name`` and numbers or strings.
+    warnings : list of str or dict, optional
+        Warnings from earlier steps (``{"code", "message"}``; bare strings get
+        the code ``"other"``), merged with those found here.
+    meta : dict, optional
+        Free metadata kept under ``meta``. Read keys: ``recommended_band_hz``
+        ``(f_low, f_high)`` for the band check, ``second_harmonic_ratio``
+        (median |2f| / |1f| amplitude, also read from the attrs), ``created``.
+    registration_limit_px, snr_limit, second_harmonic_limit, valid_area_limit : float
+        Thresholds of the automatic warnings (IR px; median |dT|/std;
+        fraction of the fundamental; fraction of the field). They are this
+        project's defaults, not values from a standard; laboratories should set
+        their own.
+
+    Returns
+    -------
+    dict
+        Matches :func:`summary_schema`: ``verdict``, ``dominant``,
+        ``valid_fraction``, ``source_fractions`` (of the valid area),
+        ``measured`` and ``predicted`` statistics (dimensionless dT/T0),
+        ``frequency_hz``, ``registration_rms_px``, ``warnings``...
+    """
+    if "ratio_measured" not in ds.data_vars:
+        raise ValueError(f"the result has no 'ratio_measured' map; present: {sorted(ds.data_vars)}")
+    meta = dict(meta or {})
+    valid = _valid_mask(ds)
+    n_valid = int(valid.sum())
+    total = int(valid.size)
+    frequency = attr_float(ds, "frequency")
+    fractions = _fractions(ds, valid)
+    text, dominant = _verdict_text(fractions, n_valid, frequency, has_map="source_layer" in ds.data_vars)
+    measured = np.asarray(ds["ratio_measured"].values, dtype=np.float64)[valid]
+    predicted = {s: _prediction(ds, s, valid, measured) for s in evaluated_sources(ds)}
+    beta = (_stats(np.asarray(ds["surface_fraction"].values)[valid]) if "surface_fraction" in ds.data_vars else None)
+    rms = attr_float(ds, "registration_rms")
+    snr_median = _snr(ds, valid)
+    valid_fraction = n_valid / total if total else 0.0
+    found = _auto_warnings(ds, valid_fraction=valid_fraction, snr_median=snr_median, rms=rms, frequency=frequency,
+                           meta=meta, registration_limit_px=registration_limit_px, snr_limit=snr_limit,
+                           second_harmonic_limit=second_harmonic_limit, valid_area_limit=valid_area_limit)
+    created = meta.get("created") or ds.attrs.get("created") or _dt.datetime.now(_dt.timezone.utc).isoformat(
+        timespec="seconds")
+    sha = ds.attrs.get("config_sha256") or None
+    summary = {
+        "schema_version": 1,
+        "run": str(ds.attrs.get("run_name") or "run"),
+        "specimen": (str(ds.attrs["specimen"]) if ds.attrs.get("specimen") not in (None, "") else None),
+        "frequency_hz": frequency,
+        "verdict": text,
+        "dominant": dominant,
+        "grid": {"ny": int(ds.sizes["y"]), "nx": int(ds.sizes["x"]), "pixel_size_mm": pixel_size_mm(ds)},
+        "valid_pixels": n_valid,
+        "valid_fraction": valid_fraction,
+        "source_fractions": fractions,
+        "measured": _stats(measured),
+        "predicted": predicted,
+        "surface_fraction": beta,
+        "snr_median": snr_median,
+        "registration_rms_px": rms,
+        "regions": _jsonable(list(regions or [])),
+        "warnings": _normalise_warnings(found + _normalise_warnings(warnings)),
+        "provenance": {"config_sha256": str(sha) if sha else None,
+                       "version": str(ds.attrs.get("version") or __version__),
+                       "created": str(created)},
+        "meta": _jsonable(meta),
+    }
+    return _jsonable(summary)
