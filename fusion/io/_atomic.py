@@ -36,6 +36,10 @@ def atomic_path(path, *, overwrite: bool = False):
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     os.close(fd)
     tmp = Path(tmp)
+    # mkstemp makes the file private (0600); results should follow the user's umask
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o666 & ~umask)
     try:
         yield tmp
         os.replace(tmp, path)
