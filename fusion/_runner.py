@@ -201,7 +201,7 @@ def _fit_registration(reg, ranges, ir_shape, T0, run):
 
     method = reg.method
     if method == "identity":
-        return R.fit_transform(np.zeros((0, 2)), np.zeros((0, 2)), method="identity"), None
+        return R.fit_transform(np.zeros((0, 2)), np.zeros((0, 2)), method="identity", warn_limit=None), None
     if method == "camera":
         pts = np.asarray(reg.dic_points, float)
         if pts.shape[1] != 3:
@@ -220,15 +220,35 @@ def _fit_registration(reg, ranges, ir_shape, T0, run):
         vis_pts = R.find_fiducials(vis, count=reg.fiducials)
         src = _visible_px_to_dic(vis_pts, vis.shape, run.dic)
         si, di = R.match_fiducials(src, ir_pts)
-        return R.fit_transform(src[si], ir_pts[di], method="homography",
-                               ransac_threshold=reg.ransac_threshold, warn_limit=reg.max_error), None
-    pts = np.asarray([p[:2] for p in reg.dic_points], float)
+        return _quiet_fit(R.fit_transform, src[si], ir_pts[di], method="homography",
+                          ransac_threshold=reg.ransac_threshold, warn_limit=reg.max_error), None
+    pts = _dic_points(reg, run)
     try:
-        t = R.fit_transform(pts, np.asarray(reg.ir_points, float), method=method,
-                            ransac_threshold=reg.ransac_threshold, warn_limit=reg.max_error)
+        t = _quiet_fit(R.fit_transform, pts, np.asarray(reg.ir_points, float), method=method,
+                       ransac_threshold=reg.ransac_threshold, warn_limit=reg.max_error)
     except ValueError as e:
         raise ConfigError("registration.dic_points", str(e)) from e
     return t, None
+
+
+def _quiet_fit(fn, *args, **kw):
+    # the registration's quality warnings are collected in .warnings and reported with the run
+    import warnings
+
+    from .register import RegistrationWarning
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RegistrationWarning)
+        return fn(*args, **kw)
+
+
+def _dic_points(reg, run):
+    """Control points as written in the config (the correlation file's own axes), converted to the
+    specimen frame the same way the correlation data are."""
+    pts = np.asarray([p[:2] for p in reg.dic_points], float)
+    if run.dic.images is None and run.dic.effective_y_axis == "down":
+        pts = pts * np.array([1.0, -1.0])
+    return pts
 
 
 def _visible_px_to_dic(pts, shape, dic):

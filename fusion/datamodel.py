@@ -65,7 +65,7 @@ def _maps():
         VariableSpec("source_layer", yx, "1", "best-supported source of the thermoelastic signal", dtype="int8"),
         VariableSpec("valid", yx, "1", "pixel has thermal and strain data of usable quality", dtype="int8"),
         VariableSpec("snr", yx, "1", "signal-to-noise ratio |delta_T| / delta_T_std"),
-        VariableSpec("motion_amplitude", yx, "pixel", "amplitude of the in-plane motion under load, IR pixels"),
+        VariableSpec("motion_amplitude", yx, "pixel", "peak-to-peak in-plane motion of the surface under the load range, IR pixels"),
     ]
     for s in SOURCES:
         specs.append(VariableSpec(f"ratio_{s}", yx, "1", f"predicted delta_T / T0: {SOURCE_LONG_NAMES[s]}"))
