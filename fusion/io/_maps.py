@@ -1,0 +1,240 @@
+"""Precomputed thermal maps (T0, delta_T, phase...) made by other processing.
+
+A run may bring its thermal maps instead of frames; they enter the pipeline the
+same way as the lock-in's maps. Accepted layouts:
+
+* NetCDF: variables named ``T0``, ``delta_T`` and optionally ``phase``,
+  ``delta_T_std``, ``delta_T_quadrature`` (other names through ``variables``).
+  A ``units`` attribute is honoured: K, kelvin or mK for temperatures (Celsius is
+  refused for T0), degree or rad for the phase.
+* Multi-page TIFF: one page per quantity in the order
+  ``T0, delta_T, phase, delta_T_std, delta_T_quadrature`` (the first two
+  required), or the order given as a list in ``variables``.
+* CSV: a long table with columns ``row, col`` and one column per quantity, or a
+  mapping ``{quantity: path}`` of headerless numeric grids (one row of values per
+  image row).
+
+Maps are float32 ``(Y, X)`` on the infrared pixel grid; the conventions are those
+of the lock-in (signed peak-to-peak ranges in K, phase in degrees).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from pathlib import Path
+
+import numpy as np
+
+from ..errors import InputError
+
+__all__ = ["read_thermal_maps", "MAP_QUANTITIES"]
+
+#: Quantities a map set may hold, in the default TIFF page order; the first two are required.
+MAP_QUANTITIES = ("T0", "delta_T", "phase", "delta_T_std", "delta_T_quadrature")
+_REQUIRED = ("T0", "delta_T")
+# plausible absolute temperatures of a loaded specimen, K (cryogenic to hot-cell testing)
+_T0_RANGE = (100.0, 1000.0)
+_TEMPERATURE_UNITS = {"k": 1.0, "kelvin": 1.0, "kelvins": 1.0, "mk": 1e-3, "millikelvin": 1e-3}
+_CELSIUS = {"degc", "deg_c", "celsius", "degree_celsius", "degrees_celsius", "°c", "c"}
+_ANGLE_UNITS = {"degree": 1.0, "degrees": 1.0, "deg": 1.0, "°": 1.0,
+                "rad": 180.0 / np.pi, "radian": 180.0 / np.pi, "radians": 180.0 / np.pi}
+
+
+def _scale(path, name, units):
+    """Factor to K (temperatures) or degrees (phase) for a ``units`` string; None means as is."""
+    if units is None or not str(units).strip():
+        return 1.0
+    u = str(units).strip().lower().replace(" ", "_")
+    if name == "phase":
+        if u in _ANGLE_UNITS:
+            return _ANGLE_UNITS[u]
+        raise InputError(path, f"phase has units {units!r}; expected degree or rad")
+    if u in _CELSIUS:
+        if name == "T0":
+            raise InputError(path, "T0 is in degrees Celsius; give kelvin (add 273.15) or set units = 'K'")
+        return 1.0  # a difference in degC equals one in K
+    if u in _TEMPERATURE_UNITS:
+        return _TEMPERATURE_UNITS[u]
+    raise InputError(path, f"{name} has units {units!r}; expected K, kelvin or mK")
+
+
+def _names(variables, default=MAP_QUANTITIES):
+    if variables is None:
+        return {q: q for q in default}
+    if isinstance(variables, Mapping):
+        unknown = [k for k in variables if k not in MAP_QUANTITIES]
+        if unknown:
+            raise ValueError(f"variables: unknown quantity {unknown[0]!r}; known: {list(MAP_QUANTITIES)!r}")
+        out = {q: q for q in default if q not in variables}
+        out.update(variables)
+        return out
+    raise TypeError(f"variables must be a mapping of quantity to name, got {variables!r}")
+
+
+def _read_netcdf(path, variables):
+    import netCDF4
+
+    names = _names(variables)
+    try:
+        ds = netCDF4.Dataset(path, "r")
+    except OSError as e:
+        raise InputError(path, f"cannot read as NetCDF ({e})") from e
+    out = {}
+    with ds:
+        for q, v in names.items():
+            if v not in ds.variables:
+                if q in _REQUIRED:
+                    raise InputError(path, f"has no variable {v!r} for {q}; variables are {list(ds.variables)!r}")
+                continue
+            var = ds.variables[v]
+            var.set_auto_mask(True)
+            data = np.ma.filled(var[...].astype(np.float64), np.nan)
+            data = np.squeeze(data)
+            if data.ndim != 2:
+                raise InputError(path, f"variable {v!r} must be a 2-D (y, x) map, got shape {data.shape!r}")
+            out[q] = data * _scale(path, q, getattr(var, "units", None))
+    return out
+
+
+def _read_tiff(path, variables):
+    import tifffile
+
+    order = list(MAP_QUANTITIES) if variables is None else list(variables)
+    unknown = [q for q in order if q not in MAP_QUANTITIES]
+    if unknown or isinstance(variables, Mapping):
+        raise ValueError(f"variables for a TIFF is the page order, a list from {list(MAP_QUANTITIES)!r}; "
+                         f"got {variables!r}")
+    try:
+        data = tifffile.imread(path)
+    except (tifffile.TiffFileError, ValueError, OSError) as e:
+        raise InputError(path, f"cannot read as TIFF ({e})") from e
+    if data.ndim != 3:
+        raise InputError(path, f"expected one page per quantity ({', '.join(order)}), got shape {data.shape!r}")
+    if data.shape[0] < 2 or data.shape[0] > len(order):
+        raise InputError(path, f"has {data.shape[0]} pages; expected 2 to {len(order)} in the order "
+                         f"{', '.join(order)}")
+    return {q: data[i].astype(np.float64) for i, q in enumerate(order[:data.shape[0]])}
+
+
+def _read_grid(path):
+    path = Path(path)
+    if not path.is_file():
+        raise InputError(path, "no such map file")
+    try:
+        with open(path, encoding="utf-8-sig") as fh:
+            first = next((ln for ln in fh if ln.strip() and not ln.lstrip().startswith("#")), "")
+        delim = next((d for d in (",", ";", "\t") if d in first), None)
+        grid = np.loadtxt(path, delimiter=delim, ndmin=2, comments="#", encoding="utf-8-sig")
+    except (ValueError, UnicodeDecodeError) as e:
+        raise InputError(path, f"expected a headerless numeric grid, one image row per line ({e})") from e
+    return grid
+
+
+def _read_long_csv(path, variables):
+    from ._signals import _header
+
+    line, delim, names = _header(path)
+    low = [n.lower() for n in names]
+    if "row" not in low or "col" not in low:
+        raise InputError(path, f"a map table needs columns row, col and T0, delta_T...; columns are {names!r}. "
+                         "For one grid per quantity pass a mapping {quantity: path}")
+    wanted = _names(variables)
+    present = {q: names[low.index(n.lower())] for q, n in wanted.items() if n.lower() in low}
+    missing = [q for q in _REQUIRED if q not in present]
+    if missing:
+        raise InputError(path, f"has no column {wanted[missing[0]]!r} for {missing[0]}; columns are {names!r}")
+    cols = [low.index("row"), low.index("col")] + [names.index(present[q]) for q in present]
+    try:
+        data = np.loadtxt(path, delimiter=delim, skiprows=line + 1, usecols=cols, ndmin=2, comments="#",
+                          encoding="utf-8-sig")
+    except ValueError as e:
+        raise InputError(path, f"expected numbers in columns {[names[c] for c in cols]!r} ({e})") from e
+    rc = data[:, :2]
+    if not np.all(np.isfinite(rc)) or np.any(rc < 0) or np.any(rc != np.round(rc)):
+        raise InputError(path, "row and col must be non-negative integers (IR pixel indices)")
+    r, c = rc[:, 0].astype(np.int64), rc[:, 1].astype(np.int64)
+    ny, nx = int(r.max()) + 1, int(c.max()) + 1
+    flat = r * nx + c
+    if np.unique(flat).size != flat.size:
+        raise InputError(path, "a (row, col) pixel appears twice")
+    out = {}
+    for k, q in enumerate(present):
+        grid = np.full(ny * nx, np.nan)
+        grid[flat] = data[:, 2 + k]
+        out[q] = grid.reshape(ny, nx)
+    return out
+
+
+def _validate(where, maps):
+    shapes = {q: m.shape for q, m in maps.items()}
+    if len(set(shapes.values())) != 1:
+        raise InputError(where, f"maps differ in shape: {shapes!r}")
+    T0 = maps["T0"]
+    fin = T0[np.isfinite(T0)]
+    if fin.size == 0:
+        raise InputError(where, "T0 has no finite value")
+    med = float(np.median(fin))
+    if not (_T0_RANGE[0] <= fin.min() and fin.max() <= _T0_RANGE[1]):
+        hint = (" — it looks like degrees Celsius: convert to kelvin (add 273.15)" if -100.0 < med < 100.0
+                else "")
+        raise InputError(where, f"T0 must be an absolute temperature in kelvin within "
+                         f"{_T0_RANGE[0]:g}..{_T0_RANGE[1]:g} K; found {fin.min():.4g}..{fin.max():.4g} "
+                         f"(median {med:.4g}){hint}")
+    if "delta_T_std" in maps and np.any(maps["delta_T_std"][np.isfinite(maps["delta_T_std"])] < 0):
+        raise InputError(where, "delta_T_std must be >= 0 (a standard deviation in K)")
+    if "phase" in maps:
+        ph = maps["phase"][np.isfinite(maps["phase"])]
+        if ph.size and np.max(np.abs(ph)) > 360.0:
+            raise InputError(where, "phase must be in degrees within -360..360 (set units = 'rad' on a "
+                             "NetCDF variable in radians)")
+
+
+def read_thermal_maps(path, *, variables=None) -> dict:
+    """Read precomputed thermal maps.
+
+    Parameters
+    ----------
+    path : str, os.PathLike or mapping of str to path
+        A NetCDF file (``.nc``), a multi-page TIFF, a long CSV table (columns ``row``,
+        ``col``, ``T0``, ``delta_T``...), or a mapping ``{quantity: path}`` of headerless
+        CSV grids.
+    variables : mapping or list, optional
+        NetCDF and CSV: ``{quantity: name in the file}`` for names that differ. TIFF: the
+        page order, a list of quantities.
+
+    Returns
+    -------
+    dict of str to (Y, X) float32 ndarray
+        ``T0`` (K), ``delta_T`` (K), and when present ``phase`` (degrees),
+        ``delta_T_std`` (K), ``delta_T_quadrature`` (K).
+
+    Raises
+    ------
+    InputError
+        Missing required maps, shapes that disagree, units that are not temperatures,
+        T0 outside 100..1000 K (with a hint when it looks like Celsius).
+    """
+    if isinstance(path, Mapping):
+        unknown = [q for q in path if q not in MAP_QUANTITIES]
+        if unknown:
+            raise ValueError(f"unknown quantity {unknown[0]!r}; known: {list(MAP_QUANTITIES)!r}")
+        missing = [q for q in _REQUIRED if q not in path]
+        if missing:
+            raise ValueError(f"map files must include {missing[0]!r} (required: {list(_REQUIRED)!r})")
+        maps = {q: _read_grid(p) for q, p in path.items()}
+        where = Path(path["T0"])
+    else:
+        where = Path(path)
+        if not where.is_file():
+            raise InputError(where, "no such map file")
+        suffix = where.suffix.lower()
+        if suffix in (".nc", ".nc4", ".cdf"):
+            maps = _read_netcdf(where, variables)
+        elif suffix in (".tif", ".tiff"):
+            maps = _read_tiff(where, variables)
+        elif suffix in (".csv", ".txt"):
+            maps = _read_long_csv(where, variables)
+        else:
+            raise InputError(where, f"unknown map format {suffix!r}: expected .nc, .tif/.tiff or .csv")
+    _validate(where, maps)
+    return {q: np.asarray(maps[q], dtype=np.float32) for q in MAP_QUANTITIES if q in maps}

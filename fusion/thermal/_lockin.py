@@ -1,0 +1,510 @@
+"""Thermal lock-in of infrared frame stacks: one streaming least-squares pass.
+
+Every pixel's series y(t) is fitted by linear least squares on the basis
+``[1, tau, cos theta, sin theta, cos 2 theta, sin 2 theta]`` with
+``theta(t) = 2 pi f t + phi`` the phase of the load (the load is
+``L0 + dL/2 cos theta``) and ``tau`` the time from the middle of the record
+scaled to [-1, 1]. The normal matrix is common to all pixels; only the
+per-pixel products with the basis and the sum of squares are accumulated,
+chunk by chunk (see :mod:`fusion.thermal._kernels`).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import logging
+import math
+
+import numpy as np
+
+from . import _kernels
+
+log = logging.getLogger(__name__)
+
+__all__ = ["LockinResult", "LoadReference", "lockin", "load_reference", "estimate_frequency"]
+
+_N_BASIS = 6
+
+
+# --------------------------------------------------------------------------- records
+@dataclasses.dataclass(frozen=True)
+class LoadReference:
+    """Mean, range and phase of the load fundamental: ``L(t) = mean + range/2 cos(2 pi f t + phase)``.
+
+    Attributes
+    ----------
+    mean : float
+        Load at the middle of the record, file units.
+    range : float
+        Peak-to-peak range dL of the fundamental, file units (>= 0).
+    phase : float
+        Reference phase phi, rad, in (-pi, pi].
+    frequency : float
+        Loading frequency, Hz.
+    residual_std : float
+        Standard deviation of the load about its fitted model, file units.
+    second_harmonic_ratio : float
+        Peak-to-peak second harmonic over ``range`` (a measure of distortion).
+    """
+
+    mean: float
+    range: float
+    phase: float
+    frequency: float
+    residual_std: float = 0.0
+    second_harmonic_ratio: float = 0.0
+
+    def theta(self, times):
+        """Phase of the load fundamental at ``times`` (s), rad."""
+        return 2.0 * math.pi * self.frequency * np.asarray(times, dtype=np.float64) + self.phase
+
+
+@dataclasses.dataclass
+class LockinResult:
+    """Maps and figures of one lock-in pass.
+
+    Maps are ``(Y, X)`` float32, NaN where ``valid`` is false. Harmonic quantities are
+    complex peak-to-peak amplitudes C relative to the load: ``y(t) = T0 + Re(C/2 exp(i theta))``.
+
+    Attributes
+    ----------
+    T0 : ndarray
+        Mean temperature at the middle of the record, K.
+    delta_T : ndarray
+        Re C: signed temperature range in phase with the load, K (T at max load minus T at min load).
+    delta_T_quadrature : ndarray
+        Im C: range in quadrature with the load, K.
+    magnitude : ndarray
+        abs(C), K.
+    phase : ndarray
+        angle(C), degrees in (-180, 180]; with Re C > 0 a response lagging the load has a
+        negative angle (a tension-cooled pixel, Re C < 0, sits near +-180).
+    delta_T_std : ndarray
+        Standard deviation of ``delta_T`` from the residual variance, K.
+    second_harmonic, second_harmonic_ratio : ndarray
+        abs(C2) in K (peak-to-peak at 2f) and abs(C2)/abs(C).
+    drift_rate : ndarray
+        Linear drift of the temperature, K/s.
+    residual_std : ndarray
+        Standard deviation of the residual of the fit, K.
+    snr : ndarray
+        abs(delta_T) / delta_T_std.
+    valid : ndarray of bool
+        Pixel fitted (no NaN/inf, saturated or dead frames).
+    frequency : float
+        Loading frequency used, Hz.
+    reference_phase : float
+        Load phase phi at t = 0, rad (0 without a load signal).
+    n_frames : int
+    frame_rate : float
+        Mean frame rate, Hz.
+    bad_pixels : dict
+        Counts of masked pixels by reason: ``nonfinite``, ``saturated``, ``dead``.
+    warnings : list of str
+        Notes on the sampling and the data (undersampling, noise inflation, masked pixels).
+    load : LoadReference or None
+        The fitted load reference, when a load signal was given.
+    """
+
+    T0: np.ndarray
+    delta_T: np.ndarray
+    delta_T_quadrature: np.ndarray
+    magnitude: np.ndarray
+    phase: np.ndarray
+    delta_T_std: np.ndarray
+    second_harmonic: np.ndarray
+    second_harmonic_ratio: np.ndarray
+    drift_rate: np.ndarray
+    residual_std: np.ndarray
+    snr: np.ndarray
+    valid: np.ndarray
+    frequency: float
+    reference_phase: float
+    n_frames: int
+    frame_rate: float
+    bad_pixels: dict
+    warnings: list
+    load: LoadReference | None = None
+
+    def to_maps(self) -> dict:
+        """The maps of the result data model (:mod:`fusion.datamodel`) as float32 arrays."""
+        return {name: getattr(self, name) for name in
+                ("T0", "delta_T", "delta_T_std", "delta_T_quadrature", "phase", "snr")}
+
+
+# --------------------------------------------------------------------------- basis
+def _check_times(times, n, name="times"):
+    t = np.asarray(times, dtype=np.float64)
+    if t.shape != (n,):
+        raise ValueError(f"{name} must have shape ({n},) to match the frames, got {t.shape!r}")
+    if not np.all(np.isfinite(t)):
+        raise ValueError(f"{name} must be finite")
+    if n > 1 and np.any(np.diff(t) <= 0):
+        raise ValueError(f"{name} must increase strictly (s)")
+    return t
+
+
+def _design(times, frequency, phase):
+    """(N, 6) basis [1, tau, cos th, sin th, cos 2th, sin 2th] and the half span of tau (s)."""
+    t = np.asarray(times, dtype=np.float64)
+    mid = 0.5 * (t[0] + t[-1])
+    half = max(0.5 * (t[-1] - t[0]), np.finfo(float).tiny)
+    theta = 2.0 * math.pi * frequency * t + phase
+    B = np.empty((t.size, _N_BASIS))
+    B[:, 0] = 1.0
+    B[:, 1] = (t - mid) / half
+    B[:, 2] = np.cos(theta)
+    B[:, 3] = np.sin(theta)
+    B[:, 4] = np.cos(2.0 * theta)
+    B[:, 5] = np.sin(2.0 * theta)
+    return B, half
+
+
+def _sampling_check(B, frequency, frame_rate, span):
+    """Refuse a basis the samples cannot resolve; return notes on a weak one.
+
+    The noise of the in-phase and quadrature coefficients is inflated by the variance
+    inflation factor (VIF) of their columns; with orthogonal columns it is 1.
+    """
+    n = B.shape[0]
+    where = f"frequency {frequency!r} Hz with frame rate {frame_rate!r} Hz over {n} frames"
+    cycles = frequency * span
+    if cycles < 1.0:
+        raise ValueError(f"{where}: the record covers {cycles:.2f} load cycles; at least one is "
+                         "needed (record more frames)")
+    G = B.T @ B
+    d = np.diag(G)
+    if np.any(d < 1e-9 * n):
+        raise ValueError(f"{where}: a basis column vanishes at the sample times (the frequency or "
+                         "its second harmonic falls on a multiple of half the frame rate); change "
+                         "the frame rate")
+    Gn = G / np.sqrt(np.outer(d, d))
+    if np.linalg.cond(Gn) > 1e10:
+        raise ValueError(f"{where}: the sampled basis is singular (the frequency or its second "
+                         "harmonic aliases onto the mean, the drift or each other); change the "
+                         "frame rate or record more frames")
+    vif = np.diag(np.linalg.inv(Gn))
+    notes = []
+    if max(vif[2], vif[3]) > 100.0 or max(vif[1], vif[4], vif[5]) > 1e6:
+        raise ValueError(f"{where}: the samples barely separate the fundamental from the mean, "
+                         f"drift or second harmonic (noise amplified {math.sqrt(max(vif[2:4])):.0f}x); "
+                         "change the frame rate or record more frames")
+    if max(vif[2], vif[3]) > 4.0:
+        notes.append(f"sampling inflates the noise of delta_T by {math.sqrt(max(vif[2:4])):.1f}x "
+                     f"({where})")
+    if frame_rate < 2.0 * frequency:
+        alias = abs(frequency - round(frequency / frame_rate) * frame_rate)
+        notes.append(f"frame rate {frame_rate:g} Hz is below twice the loading frequency "
+                     f"{frequency:g} Hz (undersampled; the fundamental appears at {alias:g} Hz): "
+                     "the fit relies on the frequency being exact")
+    return G, notes
+
+
+# --------------------------------------------------------------------------- load signal
+def _fit_basis(times, values, frequency, phase=0.0):
+    B, half = _design(times, frequency, phase)
+    coef, _, rank, _ = np.linalg.lstsq(B, values, rcond=None)
+    resid = values - B @ coef
+    dof = max(B.shape[0] - _N_BASIS, 1)
+    return coef, rank, float(np.sqrt(resid @ resid / dof)), half
+
+
+def load_reference(times, load, frequency) -> LoadReference:
+    """Mean, peak-to-peak range and phase of the load fundamental.
+
+    Parameters
+    ----------
+    times : (N,) array_like
+        Sample times of the load, s (strictly increasing, same clock as the frames).
+    load : (N,) array_like
+        Load values, any unit.
+    frequency : float
+        Loading frequency, Hz.
+
+    Returns
+    -------
+    LoadReference
+        With ``theta(t) = 2 pi f t + phase`` such that the load is ``mean + range/2 cos(theta)``.
+
+    Notes
+    -----
+    Linear least squares on the same basis as the temperature (mean, linear drift,
+    fundamental and second harmonic), so a drifting or slightly distorted load does not
+    bias the phase. With ``a cos(2 pi f t) + b sin(2 pi f t) = R cos(2 pi f t + phi)``,
+    ``R = hypot(a, b)`` and ``phi = atan2(-b, a)``.
+
+    References
+    ----------
+    .. [1] S. M. Kay, *Fundamentals of Statistical Signal Processing: Estimation Theory*,
+       Prentice Hall, 1993, ch. 4 (linear model, sinusoidal regression).
+    """
+    t = np.asarray(times, dtype=np.float64).ravel()
+    v = np.asarray(load, dtype=np.float64).ravel()
+    frequency = _positive(frequency, "frequency")
+    if t.shape != v.shape or t.size < 8:
+        raise ValueError(f"times and load must be 1-D of equal length >= 8, got {t.shape!r} and {v.shape!r}")
+    if not (np.all(np.isfinite(t)) and np.all(np.isfinite(v))) or np.any(np.diff(t) <= 0):
+        raise ValueError("load times must be finite and strictly increasing, and load values finite")
+    coef, rank, res_std, _ = _fit_basis(t, v, frequency)
+    if rank < _N_BASIS:
+        rate = (t.size - 1) / (t[-1] - t[0])
+        raise ValueError(f"frequency {frequency!r} Hz cannot be resolved from load samples at "
+                         f"{rate:g} Hz (singular basis)")
+    amp = math.hypot(coef[2], coef[3])
+    if amp <= 3.0 * res_std * math.sqrt(2.0 / t.size) or amp == 0.0:
+        raise ValueError(f"the load signal shows no cycle at {frequency:g} Hz (fitted amplitude "
+                         f"{amp:.3g}, residual std {res_std:.3g})")
+    return LoadReference(mean=float(coef[0]), range=2.0 * amp, phase=math.atan2(-coef[3], coef[2]),
+                         frequency=float(frequency), residual_std=res_std,
+                         second_harmonic_ratio=math.hypot(coef[4], coef[5]) / amp)
+
+
+def _rss_at(t, v, f):
+    """Residual sum of squares of the fit [1, t, cos, sin] at frequency f (normal equations)."""
+    w = 2.0 * math.pi * f * t
+    M = np.stack([np.ones_like(t), t, np.cos(w), np.sin(w)])
+    G = M @ M.T
+    r = M @ v
+    try:
+        return float(v @ v - r @ np.linalg.solve(G, r))
+    except np.linalg.LinAlgError:
+        return float(v @ v)
+
+
+def estimate_frequency(times, values) -> float:
+    """Loading frequency of a sampled signal: periodogram peak refined by a sine fit.
+
+    Parameters
+    ----------
+    times : (N,) array_like
+        Sample times, s (strictly increasing; uniform or not).
+    values : (N,) array_like
+        Signal (the load), N >= 8.
+
+    Returns
+    -------
+    float
+        Frequency of the dominant sinusoid, Hz.
+
+    Notes
+    -----
+    A linear trend is removed, then the peak of a zero-padded, Hann-windowed
+    periodogram (of the signal linearly resampled onto a uniform clock when the
+    sampling is uneven) is refined by minimising the residual of a least-squares fit of
+    ``[1, t, cos 2 pi f t, sin 2 pi f t]`` within one periodogram bin either side,
+    which for a clean sine is the maximum-likelihood estimate. A signal sampled below
+    twice its frequency returns its alias: give the frequency explicitly then.
+
+    References
+    ----------
+    .. [1] D. C. Rife and R. R. Boorstyn, "Single-tone parameter estimation from
+       discrete-time observations", IEEE Trans. Inf. Theory 20(5), 591-598, 1974.
+    """
+    from scipy.optimize import minimize_scalar
+
+    t = np.asarray(times, dtype=np.float64).ravel()
+    v = np.asarray(values, dtype=np.float64).ravel()
+    if t.shape != v.shape or t.size < 8:
+        raise ValueError(f"times and values must be 1-D of equal length >= 8, got {t.shape!r} and {v.shape!r}")
+    if not (np.all(np.isfinite(t)) and np.all(np.isfinite(v))) or np.any(np.diff(t) <= 0):
+        raise ValueError("times must be finite and strictly increasing, values finite")
+    t = t - t[0]
+    span = t[-1]
+    v = v - np.polyval(np.polyfit(t, v, 1), t)
+    dt = np.diff(t)
+    step = float(np.median(dt))
+    lo = 1.0 / span  # below one cycle per record a "frequency" is a trend
+    n = t.size
+    # the coarse peak only has to fall within a bin: an uneven clock is resampled for it,
+    # while the refinement below fits the actual samples
+    vu = v if np.ptp(dt) <= 1e-3 * step else np.interp(np.linspace(0.0, span, n), t, v)
+    step = span / (n - 1) if vu is not v else step
+    nfft = 1 << int(math.ceil(math.log2(8 * n)))
+    power = np.abs(np.fft.rfft(vu * np.hanning(n), nfft)) ** 2
+    freqs = np.fft.rfftfreq(nfft, step)
+    keep = freqs >= lo
+    if not np.any(keep):
+        raise ValueError("the signal is too short to hold one cycle")
+    freqs, power = freqs[keep], power[keep]
+    k = int(np.argmax(power))
+    if not power[k] > 10.0 * np.median(power):
+        raise ValueError("no dominant periodic component found in the signal")
+    fp = float(freqs[k])
+    half_bin = 1.0 / span
+    res = minimize_scalar(lambda f: _rss_at(t, v, f), bounds=(max(fp - half_bin, 0.5 * lo), fp + half_bin),
+                          method="bounded", options={"xatol": 1e-7 / span})
+    return float(res.x)
+
+
+# --------------------------------------------------------------------------- main entry
+def _positive(value, name):
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        raise TypeError(f"{name} must be a number, got {value!r}") from None
+    if not (math.isfinite(v) and v > 0):
+        raise ValueError(f"{name} must be a positive finite number, got {value!r}")
+    return v
+
+
+def lockin(frames, *, frequency=None, times=None, frame_rate=None, load=None, load_times=None,
+           gain=1.0, offset=0.0, saturation=None, chunk_frames=None, progress=False) -> LockinResult:
+    """Least-squares lock-in of an infrared frame stack against the load, in one pass.
+
+    Parameters
+    ----------
+    frames : (F, Y, X) ndarray, numpy.memmap, FrameStack or dask array
+        Frames in time order; values ``gain * frame + offset`` are temperatures in K.
+        Integer counts are fitted directly (no float copy of the stack). A dask array
+        is processed block by block along frames (rechunked to whole frames), on the
+        active scheduler. Any object with ``shape`` and frame-slice indexing also works.
+    frequency : float, optional
+        Loading frequency, Hz. Estimated from ``load`` when omitted (then ``load`` is required).
+    times : (F,) array_like, optional
+        Frame times, s. Exactly one of ``times`` and ``frame_rate``.
+    frame_rate : float, optional
+        Frames per second, Hz; frame k is at ``k / frame_rate``.
+    load : (M,) array_like or LoadSignal, optional
+        Load signal giving the reference phase. Without it the reference phase is 0 at
+        t = 0 (the phase maps are then relative to ``cos(2 pi f t)``).
+    load_times : (M,) array_like, optional
+        Times of the load samples on the frame clock, s; by default the load has one
+        sample per frame at the frame times.
+    gain, offset : float
+        Calibration ``T = gain * value + offset`` (K per count, K), applied to the fitted
+        coefficients, never to the frames.
+    saturation : float, optional
+        Raw value (counts, or K for temperature frames) at or above which a pixel is
+        taken as saturated and masked.
+    chunk_frames : int, optional
+        Frames per streamed block. Default: a C-contiguous array in memory in one pass
+        (about 20 blocks with a progress bar); memory maps and lazy stacks in blocks of
+        about 32 MiB, each released from memory once added; dask arrays as chunked.
+    progress : bool
+        Show a progress bar on stderr when it is a terminal.
+
+    Returns
+    -------
+    LockinResult
+        float32 maps (K, K/s, degrees) and the scalars of the pass.
+
+    Raises
+    ------
+    ValueError
+        Bad arguments, or sampling that cannot resolve the frequency (the message names
+        the frequency and the frame rate). Undersampling itself is allowed.
+
+    Notes
+    -----
+    With the coefficients ``a, b`` of ``cos theta, sin theta``, ``C = 2a - 2ib``; the
+    same for ``C2`` at ``2 theta``. The coefficients are ``(X^T X)^-1 X^T y`` with the
+    common 6x6 normal matrix; the residual variance is
+    ``s^2 = (sum d^2 - beta . X^T d) / (N - 6)`` and ``std(Re C) = 2 s sqrt((X^T X)^-1_aa)``,
+    which for white noise of std sigma and many whole cycles is ``sigma sqrt(8/N)``
+    (each quadrature amplitude has std ``sigma sqrt(2/N)``). A pixel with any NaN or
+    infinite value, any value at or above ``saturation``, or no variation at all is masked
+    and counted in ``bad_pixels``; its sums are its own, so neighbours are untouched.
+    Frames with a non-uniform clock are handled exactly through ``times``. Results are
+    only as good as the frequency: an error df walks the phase by 360 df T degrees over a
+    record of length T.
+
+    References
+    ----------
+    .. [1] S. M. Kay, *Fundamentals of Statistical Signal Processing: Estimation Theory*,
+       Prentice Hall, 1993, ch. 4 (linear model; Fourier coefficients of a sinusoid in
+       white noise have variance 2 sigma^2 / N).
+    .. [2] P. Bloomfield, *Fourier Analysis of Time Series*, 2nd ed., Wiley, 2000, ch. 2-3.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> t = np.arange(400) / 50.0
+    >>> frames = (293.0 - 0.5 * np.cos(2 * np.pi * 5.0 * t))[:, None, None] * np.ones((1, 2, 3))
+    >>> r = lockin(frames, frequency=5.0, frame_rate=50.0)
+    >>> round(float(r.delta_T[0, 0]), 4), round(float(r.T0[0, 0]), 3)
+    (-1.0, 293.0)
+    """
+    shape = tuple(getattr(frames, "shape", ()))
+    if len(shape) != 3:
+        raise ValueError(f"frames must be a (frames, rows, cols) stack, got shape {shape!r}")
+    n, ny, nx = (int(s) for s in shape)
+    if n < 2 * _N_BASIS:
+        raise ValueError(f"at least {2 * _N_BASIS} frames are needed for a lock-in, got {n}")
+    if (times is None) == (frame_rate is None):
+        raise ValueError("give exactly one of times and frame_rate")
+    if times is not None:
+        t = _check_times(times, n)
+        rate = 1.0 / float(np.median(np.diff(t)))
+    else:
+        rate = _positive(frame_rate, "frame_rate")
+        t = np.arange(n, dtype=np.float64) / rate
+    gain = float(gain)
+    offset = float(offset)
+    if not (math.isfinite(gain) and gain != 0.0 and math.isfinite(offset)):
+        raise ValueError(f"gain must be finite and non-zero and offset finite, got {gain!r}, {offset!r}")
+
+    notes: list[str] = []
+    ref_load = None
+    if load is not None:
+        if hasattr(load, "times") and hasattr(load, "load"):
+            load_times, load = (load.times if load_times is None else load_times), load.load
+        lv = np.asarray(load, dtype=np.float64).ravel()
+        lt = t if load_times is None else np.asarray(load_times, dtype=np.float64).ravel()
+        if lt.shape != lv.shape:
+            raise ValueError(f"load has {lv.size} samples but its times {lt.size} (without load_times "
+                             f"the load needs one sample per frame, {n})")
+        if frequency is None:
+            frequency = estimate_frequency(lt, lv)
+            note = f"loading frequency estimated from the load signal: {frequency:.6g} Hz"
+            if load_times is None:
+                note += (f" (sampled at the frame rate, so an alias if the true frequency exceeds "
+                         f"{rate / 2:g} Hz: give the frequency to be sure)")
+            notes.append(note)
+        frequency = _positive(frequency, "frequency")
+        ref_load = load_reference(lt, lv, frequency)
+        phi = ref_load.phase
+    else:
+        if frequency is None:
+            raise ValueError("frequency is required when no load signal is given")
+        frequency = _positive(frequency, "frequency")
+        phi = 0.0
+
+    B, half = _design(t, frequency, phi)
+    G, sampling_notes = _sampling_check(B, frequency, rate, t[-1] - t[0])
+    notes += sampling_notes
+    with_max = saturation is not None
+    if with_max:
+        saturation = float(saturation)
+
+    if _kernels.is_dask(frames):
+        acc, vmax, ref = _kernels.stream_dask(frames, B, with_max, chunk_frames, progress)
+    else:
+        if chunk_frames is not None and int(chunk_frames) < 1:
+            raise ValueError(f"chunk_frames must be a positive integer, got {chunk_frames!r}")
+        acc, vmax, ref = _kernels.stream(frames, B, with_max, chunk_frames, progress)
+
+    maps, bad = _solve(acc, vmax, ref, G, half, n, gain, offset, saturation)
+    nbad = sum(bad.values())
+    if nbad:
+        notes.append(f"{nbad} of {ny * nx} pixels masked: " +
+                     ", ".join(f"{v} {k}" for k, v in bad.items() if v))
+    for msg in notes:
+        log.info("lock-in: %s", msg)
+    return LockinResult(**maps, frequency=float(frequency), reference_phase=float(phi), n_frames=n,
+                        frame_rate=float(rate), bad_pixels=bad, warnings=notes, load=ref_load)
+
+
+def _solve(acc, vmax, ref, G, half, n, gain, offset, saturation):
+    """Per-pixel maps and masks from the accumulated sums (compiled, no large temporaries)."""
+    ny, _, nx = acc.shape
+    out = np.empty((len(_kernels.MAP_NAMES), ny, nx), np.float32)
+    reason = np.empty((ny, nx), np.int8)
+    vm = vmax if vmax is not None else np.empty((0, 0))
+    sat = float(saturation) if saturation is not None else math.inf
+    _kernels.solve(acc, ref, np.linalg.inv(G), vm, sat, gain, offset, half, float(n - _N_BASIS), out, reason)
+    counts = np.bincount(reason.ravel(), minlength=4)
+    bad = {"nonfinite": int(counts[1]), "saturated": int(counts[2]), "dead": int(counts[3])}
+    maps = {name: out[k] for k, name in enumerate(_kernels.MAP_NAMES)}
+    maps["phase"] = np.degrees(np.arctan2(maps["delta_T_quadrature"], maps["delta_T"]))
+    maps["valid"] = reason == 0
+    return maps, bad
