@@ -110,50 +110,42 @@ def _fit_specimen(cfg, spec, items, datasets):
             "runs": [run.name for run, _ in items]}
 
 
-def _frequency_dataset(fits: dict):
+def _write_frequency(fits: dict, path: Path, *, overwrite=True) -> Path:
+    """frequency.nc: one NetCDF group per specimen (the sweep fit and, where the runs share the
+    infrared grid, the per-pixel maps), written atomically."""
     import xarray as xr
 
-    specs = list(fits)
-    runs = [(sp, i) for sp in specs for i in range(len(fits[sp]["frequencies"]))]
-    ds = xr.Dataset()
-    ds["sweep_specimen"] = ("sweep_point", np.array([sp for sp, _ in runs], dtype=object),
-                            {"long_name": "specimen of the sweep point"})
-    ds["sweep_frequency"] = ("sweep_point", np.array([fits[sp]["frequencies"][i] for sp, i in runs]),
-                             {"units": "Hz", "long_name": "loading frequency of the run"})
-    ds["sweep_ratio"] = ("sweep_point", np.array([fits[sp]["ratio"][i] for sp, i in runs]),
-                         {"units": "1", "long_name": "whole-field mean measured delta_T/T0"})
-    ds["sweep_ratio_std"] = ("sweep_point", np.array([fits[sp]["ratio_std"][i] for sp, i in runs]),
-                             {"units": "1", "long_name": "standard deviation of the mean ratio"})
-    params = sorted({p for sp in specs for p in fits[sp]["fit"].params})
-    ds = ds.assign_coords(specimen=("specimen", np.array(specs, dtype=object)),
-                          parameter=("parameter", np.array(params, dtype=object)))
-    val = np.full((len(specs), len(params)), np.nan)
-    err = np.full_like(val, np.nan)
-    for i, sp in enumerate(specs):
-        for j, p in enumerate(params):
-            if p in fits[sp]["fit"].params:
-                val[i, j] = fits[sp]["fit"].params[p]
-                err[i, j] = fits[sp]["fit"].std_errors[p]
-    ds["fitted_value"] = (("specimen", "parameter"), val,
-                          {"units": "1", "long_name": "fitted heat-model parameter (thickness in m, scale factor -)"})
-    ds["fitted_std"] = (("specimen", "parameter"), err, {"units": "1", "long_name": "standard error of the fitted parameter"})
-    band = np.array([[_band(fits[sp]["fit"])[k] for k in range(2)] for sp in specs])
-    ds["band_low"] = ("specimen", band[:, 0], {"units": "Hz", "long_name": "lower end of the recommended loading-frequency band"})
-    ds["band_high"] = ("specimen", band[:, 1], {"units": "Hz", "long_name": "upper end of the recommended loading-frequency band"})
-    ds["low_frequency_source"] = ("specimen", np.array([str(fits[sp]["fit"].low_frequency_source) for sp in specs], dtype=object),
-                                  {"long_name": "source the response tends to at low frequency"})
-    ds["high_frequency_source"] = ("specimen", np.array([str(fits[sp]["fit"].high_frequency_source) for sp in specs], dtype=object),
-                                   {"long_name": "source the response tends to at high frequency"})
-    ds["chi2_per_dof"] = ("specimen", np.array([fits[sp]["fit"].chi2 / max(1, fits[sp]["fit"].dof) for sp in specs]),
-                          {"units": "1", "long_name": "reduced chi-square of the sweep fit"})
-    shapes = {tuple(np.shape(v)) for sp in specs if fits[sp]["maps"] for v in fits[sp]["maps"].values()}
-    if len(shapes) == 1 and all(fits[sp]["maps"] for sp in specs):
-        for name in fits[specs[0]]["maps"]:
-            ds[f"map_{name}"] = (("specimen", "y", "x"), np.stack([np.asarray(fits[sp]["maps"][name], np.float32) for sp in specs]),
-                                 {"units": "m" if "thickness" in name and "std" not in name or name.endswith("thickness_std") else "Hz" if "frequency" in name else "1",
-                                  "long_name": f"per-pixel sweep fit: {name.replace('_', ' ')}"})
-    ds.attrs.update(title="frequency sweep fits of the campaign", fusion_version=__version__, Conventions="CF-1.10")
-    return ds
+    from .io import atomic_path
+    from .io._netcdf import _clean_attrs
+    from .mechanics import sweep_dataset
+
+    with atomic_path(path, overwrite=overwrite) as tmp:
+        root = xr.Dataset(attrs={"title": "frequency-sweep fits of the campaign", "Conventions": "CF-1.10",
+                                 "fusion_version": __version__, "specimens": " ".join(fits)})
+        root.to_netcdf(tmp, engine="netcdf4", mode="w")
+        for spec, f in fits.items():
+            ds = sweep_dataset(f["fit"])
+            ds.attrs.update(specimen=spec, runs=" ".join(f["runs"]), laminate=f["laminate"].name)
+            for name, arr in (f["maps"] or {}).items():
+                a = np.asarray(arr)
+                if a.ndim != 2:
+                    continue
+                units = "m" if "thickness" in name else "Hz" if "frequency" in name else "1"
+                ds[f"map_{name}"] = (("y", "x"), a.astype(np.float32),
+                                     {"units": units, "long_name": f"per-pixel sweep fit: {name.replace('_', ' ')}"})
+            ds.attrs = _clean_attrs(ds.attrs)
+            for v in ds.variables:
+                ds[v].attrs = _clean_attrs(ds[v].attrs)
+                if ds[v].dtype == object:
+                    ds[v] = ds[v].astype(str)
+            ds.to_netcdf(tmp, engine="netcdf4", mode="a", group=_group_name(spec))
+    return path
+
+
+def _group_name(spec: str) -> str:
+    import re
+
+    return re.sub(r"[^A-Za-z0-9_]", "_", spec) or "specimen"
 
 
 def _band(fit):
@@ -166,7 +158,6 @@ def _band(fit):
 def write_campaign(cfg, out: Path, outcomes, *, overwrite=True):
     """Write frequency.nc (when a specimen has a sweep) and report.html; return their paths."""
     from . import report as P
-    from .io import write_netcdf
 
     fits = {}
     for spec, (items, datasets) in _sweeps(cfg, outcomes, out).items():
@@ -176,7 +167,7 @@ def write_campaign(cfg, out: Path, outcomes, *, overwrite=True):
             log.warning("specimen %s: sweep fit failed (%s)", spec, e)
     freq_path = None
     if fits:
-        freq_path = write_netcdf(_frequency_dataset(fits), out / "frequency.nc", overwrite=overwrite)
+        freq_path = _write_frequency(fits, out / "frequency.nc", overwrite=overwrite)
     report_path = None
     if cfg.output.report:
         runs, figures = [], {}
@@ -195,10 +186,9 @@ def write_campaign(cfg, out: Path, outcomes, *, overwrite=True):
         fig_dir = out / "figures"
         if cfg.output.figures:
             specimens = {sp: _specimen_figure_input(f) for sp, f in fits.items()}
-            if specimens:
-                figures.update(P.campaign_figures(specimens, fig_dir, dpi=150))
-            if results:
-                figures["source_maps"] = P.source_map_grid(results, fig_dir / "source_maps.png")
+            if specimens or results:
+                figures.update(P.campaign_figures(specimens, fig_dir, dpi=150, datasets=results or None,
+                                                  overwrite=True))
         failures = [{"run": o.name, "error": o.error} for o in outcomes if o.status == "failed"]
         campaign = {"name": cfg.campaign.name, "description": cfg.campaign.description,
                     "config_sha256": cfg.sha256, "version": __version__,
@@ -206,15 +196,16 @@ def write_campaign(cfg, out: Path, outcomes, *, overwrite=True):
                     "config_text": cfg.text, "config_path": str(cfg.path) if cfg.path else None,
                     "sweeps": {sp: _sweep_summary(f) for sp, f in fits.items()}}
         report_path = P.write_report(out / "report.html", campaign=campaign, runs=runs,
-                                     campaign_figures=figures, failures=failures)
+                                     campaign_figures=figures, failures=failures, overwrite=True)
     return freq_path, report_path
 
 
 def _specimen_figure_input(f):
     fit = f["fit"]
-    curve = getattr(fit, "model_curve", None) or getattr(fit, "curve", None)
-    return {"frequencies": f["frequencies"], "ratio": f["ratio"], "ratio_std": f["ratio_std"],
-            "model_curve": curve, "limits": f["limits"], "band": _band(fit)}
+    mf, mr = fit.model_curve
+    return {"frequency": f["frequencies"], "ratio": f["ratio"], "ratio_std": f["ratio_std"],
+            "model": {"frequency": np.asarray(mf), "ratio": np.real(np.asarray(mr))},
+            "adiabatic": f["limits"], "band": _band(fit)}
 
 
 def _sweep_summary(f):

@@ -26,8 +26,9 @@ def kirsch_displacement(x, y, *, stress, modulus, poisson, radius):
     """
     # Work in a frame whose X axis is the load axis (specimen y): X = y, Y = -x.
     X, Y = np.asarray(y, float), -np.asarray(x, float)
-    r = np.hypot(X, Y)
-    r = np.where(r < 1e-12, 1e-12, r)
+    # inside the hole there is no material; continue the boundary values along rays so that
+    # the field stays smooth there (image rendering needs a smooth map everywhere)
+    r = np.maximum(np.hypot(X, Y), radius)
     th = np.arctan2(Y, X)
     G = modulus / (2.0 * (1.0 + poisson))
     kappa = (3.0 - poisson) / (1.0 + poisson)           # plane stress
@@ -64,7 +65,7 @@ def coupon_mask(x, y, *, half_width, radius):
 
 def fiducial_centres(half_width, half_height):
     """Four marker centres (m), inset from the corners of the correlation region."""
-    fx, fy = 0.75 * half_width, 0.8 * half_height
+    fx, fy = 0.7 * half_width, 0.75 * half_height
     return np.array([[-fx, fy], [fx, fy], [fx, -fy], [-fx, -fy]])
 
 

@@ -84,7 +84,10 @@ def strain_side(run, *, load_range=None):
         roi = tuple(spec.roi) if spec.roi is not None else None
         fields = []
         for i, img in enumerate(imgs[1:], 1):
-            res = D.correlate(imgs[0], img, subset=spec.subset, step=spec.step, roi=roi)
+            try:
+                res = D.correlate(imgs[0], img, subset=spec.subset, step=spec.step, roi=roi)
+            except ValueError as e:
+                raise InputError(spec.images[i], f"correlation: {e}") from e
             ok = np.asarray(res.converged).mean() if np.size(res.converged) else 0.0
             if ok < 0.5:
                 raise InputError(spec.images[i], f"correlation with the reference converged at only "
@@ -181,14 +184,19 @@ def thermal_side(run, *, budget, motion=None, progress=False):
         src = motion_compensate(frames, motion, load_at_frames)
     row_bytes = 8 * int(np.prod(frames.shape[1:]))
     chunk = int(max(16, min(4096, budget // max(1, 4 * row_bytes))))
-    res = lockin(src, frequency=run.frequency, times=times, frame_rate=spec.frame_rate if times is None else None,
-                 load=None if load_sig is None else load_sig.load,
-                 load_times=None if load_sig is None else load_sig.times,
-                 gain=gain, offset=offset, saturation=spec.saturation, chunk_frames=chunk, progress=progress)
+    try:
+        res = lockin(src, frequency=run.frequency, times=times,
+                     frame_rate=spec.frame_rate if times is None else None,
+                     load=None if load_sig is None else load_sig.load,
+                     load_times=None if load_sig is None else load_sig.times,
+                     gain=gain, offset=offset, saturation=spec.saturation, chunk_frames=chunk,
+                     progress=progress)
+    except ValueError as e:
+        raise InputError(path, f"lock-in: {e}") from e
     maps = res.to_maps()
     info = {"frequency": float(res.frequency), "source": "lock-in", "n_frames": int(res.n_frames),
             "bad_pixels": dict(res.bad_pixels), "warnings": list(res.warnings),
-            "second_harmonic_ratio_median": float(np.nanmedian(res.second_harmonic_ratio)),
+            "second_harmonic_ratio": float(np.nanmedian(res.second_harmonic_ratio)),
             "drift_rate_median": float(np.nanmedian(res.drift_rate)),
             "load_range": None if load_sig is None else float(np.ptp(load_sig.load))}
     return maps, np.asarray(res.valid, bool), info, load_sig
@@ -216,10 +224,25 @@ def _fit_registration(reg, ranges, ir_shape, T0, run):
         from .io import read_image
 
         vis = read_image(_need_file(ref, "dic.reference_image"))
-        ir_pts = R.find_fiducials(T0, count=reg.fiducials)
-        vis_pts = R.find_fiducials(vis, count=reg.fiducials)
+        try:
+            ir_pts = R.find_fiducials(T0, count=reg.fiducials, polarity=reg.fiducial_polarity_ir,
+                                      min_radius=reg.fiducial_radius_ir[0], max_radius=reg.fiducial_radius_ir[1])
+        except ValueError as e:
+            raise InputError(run.thermal.frames or run.thermal.maps, f"fiducials in the T0 map: {e}") from e
+        try:
+            vis_pts = R.find_fiducials(vis, count=reg.fiducials, polarity=reg.fiducial_polarity_visible,
+                                       min_radius=reg.fiducial_radius_visible[0],
+                                       max_radius=reg.fiducial_radius_visible[1])
+        except ValueError as e:
+            raise InputError(ref, f"fiducials in the visible reference image: {e}") from e
         src = _visible_px_to_dic(vis_pts, vis.shape, run.dic)
-        si, di = R.match_fiducials(src, ir_pts)
+        try:
+            # the correlation frame is y-up and the IR image rows-down: an orientation flip
+            si, di = R.match_fiducials(src, ir_pts, method="homography", reflection=True,
+                                       max_rotation=reg.max_rotation)
+        except ValueError as e:
+            raise ConfigError("registration.fiducials", f"cannot match the markers of the two "
+                              f"cameras: {e}") from e
         return _quiet_fit(R.fit_transform, src[si], ir_pts[di], method="homography",
                           ransac_threshold=reg.ransac_threshold, warn_limit=reg.max_error), None
     pts = _dic_points(reg, run)
@@ -258,11 +281,16 @@ def _visible_px_to_dic(pts, shape, dic):
     return np.column_stack([col * scale, -row * scale])
 
 
-def registration_side(run, reg, ranges, ir_shape, T0):
-    """Strain ranges and their noise on every IR pixel, and the registration report."""
+def registration_side(run, reg, ranges, ir_shape, T0, *, transform=None):
+    """Strain ranges and their noise on every IR pixel, and the registration report.
+
+    ``transform`` replaces the fit (used after a signal-based refinement).
+    """
     from . import register as R
 
-    transform, camera = _fit_registration(reg, ranges, ir_shape, T0, run)
+    camera = None
+    if transform is None:
+        transform, camera = _fit_registration(reg, ranges, ir_shape, T0, run)
     pts = np.column_stack([ranges.x, ranges.y])
     if camera is not None:
         z = getattr(ranges, "z", None)
@@ -275,9 +303,9 @@ def registration_side(run, reg, ranges, ir_shape, T0):
         ir = transform.apply(pts)
         rms, mx, scale = transform.rms, transform.max_error, transform.scale
         report = {"method": transform.method, **transform.to_dict()}
-    values = np.column_stack([_arr(ranges.exx, len(pts)), _arr(ranges.eyy, len(pts)), _arr(ranges.gxy, len(pts)),
-                              _arr(ranges.exx_std, len(pts)), _arr(ranges.eyy_std, len(pts)),
-                              _arr(ranges.gxy_std, len(pts))])
+    n = len(pts)
+    values = np.column_stack([_arr(getattr(ranges, k), n) for k in
+                              ("exx", "eyy", "gxy", "exx_std", "eyy_std", "gxy_std")])
     vsg = ranges.attrs.get("vsg_mm" if ranges.units == "mm" else "vsg_px")
     margin = 0.5 * float(vsg) * float(scale) if (vsg and scale and np.isfinite(vsg)) else 0.0
     maps, inside = R.resample_to_grid(ir, values, ir_shape, grid_shape=ranges.grid_shape,
@@ -291,7 +319,7 @@ def registration_side(run, reg, ranges, ir_shape, T0):
         msg = f"registration RMS error {rms:.2f} IR px exceeds the limit {reg.max_error:.2f} px"
         if msg not in warnings:
             warnings.append(msg)
-    return maps, inside, report, warnings, transform, ir
+    return maps, inside, report, warnings, transform
 
 
 def _arr(v, n):
@@ -324,7 +352,8 @@ def predictions(lam, strain, strain_std, frequency, *, sources, property_uncerta
         var = sum((np.real(coef[j]) * strain_std[..., j]) ** 2 for j in range(3))
         std["model"] = np.sqrt(var + (property_uncertainty * pred["model"]) ** 2).astype(np.float32)
         lags["model"] = np.asarray(lag, np.float32)
-        info["model_coefficients"] = [complex(c) for c in coef]
+        info["model_coefficients_re"] = [float(c.real) for c in coef]
+        info["model_coefficients_im"] = [float(c.imag) for c in coef]
     order = [s for s in SOURCES if s in pred]
     return {s: pred[s] for s in order}, {s: std[s] for s in order}, {s: lags[s] for s in order}, info
 
@@ -365,8 +394,11 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
     T0 = thermal["T0"]
     ir_shape = T0.shape
 
-    smaps, inside, reg_report, reg_warn, transform, _ = registration_side(run, reg, ranges, ir_shape, T0)
+    smaps, inside, reg_report, reg_warn, transform = registration_side(run, reg, ranges, ir_shape, T0)
     warnings += reg_warn
+    if reg.refine and transform is not None:
+        smaps, inside, reg_report, transform = _refine(run, reg, ranges, lam, thermal, t_valid, smaps,
+                                                       inside, reg_report, transform, warnings)
 
     if run.thermal.motion_compensation:
         if disp is None or transform is None or load_range is None:
@@ -431,7 +463,7 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
     diag = G.diagnose(measured, measured_std, pred, pstd, valid=valid, measured_lag=lag,
                       measured_lag_std=lag_std, predicted_lag=plag, fit_threshold=dg.fit_threshold,
                       distinguish=dg.distinguish)
-    table = G.region_table(measured, diag, pred, regions=regions, valid=valid)
+    table = _flat_regions(G.region_table(measured, diag, pred, regions=regions, valid=valid))
 
     maps = {k: v for k, v in thermal.items() if k in ("T0", "delta_T", "delta_T_std", "delta_T_quadrature",
                                                       "phase", "motion_amplitude")}
@@ -468,6 +500,8 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
         "registration": reg_report, "thermal": t_info, "strain": dict(ranges.attrs),
         "calibration": calibration, "model": pinfo, "valid_fraction": float(valid.mean()),
     }
+    if t_info.get("second_harmonic_ratio") is not None:
+        meta["second_harmonic_ratio"] = t_info["second_harmonic_ratio"]
     if "pixel_size_mm" in reg_report:
         meta["pixel_size_mm"] = reg_report["pixel_size_mm"]
     attrs = {
@@ -492,6 +526,45 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
     fig_inputs = {"region_mask": inside, "ply_profile": _ply_profile(lam, strain, valid),
                   "reference_image": _reference_on_ir(run, transform, ir_shape)}
     return RunResult(ds, table, warnings, meta, fig_inputs)
+
+
+def _refine(run, reg, ranges, lam, thermal, t_valid, smaps, inside, report, transform, warnings):
+    """Refine the registration by enhanced correlation of the measured and predicted maps."""
+    from . import register as R
+    from .mechanics import source_coefficients
+
+    coef = source_coefficients(lam)["laminate"]
+    predicted = np.moveaxis(smaps[:3], 0, -1) @ coef
+    with np.errstate(invalid="ignore", divide="ignore"):
+        measured = thermal["delta_T"] / thermal["T0"]
+    ok = inside & t_valid & np.isfinite(predicted) & np.isfinite(measured)
+    warp, info = R.refine_with_signal(np.nan_to_num(measured), np.nan_to_num(predicted), valid=ok,
+                                      max_correction=reg.max_correction)
+    report = dict(report, refinement={k: (float(v) if isinstance(v, (int, float, np.floating)) else v)
+                                      for k, v in info.items() if k != "warp"})
+    if not info.get("accepted"):
+        warnings.append(f"registration refinement not applied: {info.get('message', 'no convergence')}")
+        return smaps, inside, report, transform
+    transform = transform.corrected(warp)
+    smaps, inside, new_report, _, transform = registration_side(run, reg, ranges, inside.shape, None,
+                                                                 transform=transform)
+    new_report["refinement"] = report["refinement"]
+    return smaps, inside, new_report, transform
+
+
+def _flat_regions(rows):
+    """Region-table rows flattened for summary.json and the report (one value per column)."""
+    out = []
+    for row in rows:
+        flat = {"name": row["name"], "pixels": int(row["n_pixels"]),
+                "measured_mean": row["measured_mean"], "measured_std": row["measured_std"],
+                "winner": row.get("winner"), "winner_share": row.get("winner_share")}
+        for s, v in (row.get("predicted_mean") or {}).items():
+            flat[f"predicted_{s}"] = v
+        for s, v in (row.get("abs_z_mean") or {}).items():
+            flat[f"mean_abs_z_{s}"] = v
+        out.append({k: (None if isinstance(v, float) and not np.isfinite(v) else v) for k, v in flat.items()})
+    return out
 
 
 def _region(r, shape, G):
@@ -546,9 +619,8 @@ def write_run(result: RunResult, folder: Path, *, cfg, run, stamp: str) -> dict:
     ds = result.dataset
     ds.attrs["input_sha256"] = inputs
     write_netcdf(ds, folder / "result.nc")
-    meta = dict(result.meta, provenance={"stamp": stamp, "config_sha256": cfg.sha256,
-                                         "version": __version__, "inputs": inputs})
-    summary = P.summarize_run(ds, regions=result.regions, warnings=result.warnings, meta=meta)
+    summary = P.summarize_run(ds, regions=result.regions, warnings=result.warnings, meta=result.meta)
+    summary["provenance"].update(stamp=stamp, inputs=inputs)
     if cfg.output.figures:
         figs = P.run_figures(ds, folder / "figures", formats=cfg.output.formats, dpi=cfg.output.dpi,
                              reference_image=result.figure_inputs.get("reference_image"),

@@ -172,6 +172,19 @@ class RegistrationSpec:
     max_correction: float = key(s.quantity("", positive=True), "Largest refinement accepted, IR px.",
                                 default=2.0)
     fiducials: int = key(s.integer(low=4, high=50), "Number of markers (method 'fiducials').")
+    fiducial_radius_ir: tuple = key(s.list_of(s.quantity("", positive=True), min_len=2, max_len=2),
+                                    "Marker radius range [min, max] in IR px (method 'fiducials').",
+                                    default=(1.5, 8.0))
+    fiducial_radius_visible: tuple = key(s.list_of(s.quantity("", positive=True), min_len=2, max_len=2),
+                                         "Marker radius range [min, max] in visible px; keep min "
+                                         "above the speckle size.", default=(6.0, 40.0))
+    fiducial_polarity_ir: str = key(s.choice("auto", "bright", "dark"), "Markers warmer ('bright') or "
+                                    "colder ('dark') than the surface in the T0 map.", default="auto")
+    fiducial_polarity_visible: str = key(s.choice("auto", "bright", "dark"), "Markers lighter or darker "
+                                         "than the speckle in the visible image.", default="auto")
+    max_rotation: float = key(s.quantity("deg", positive=True, high=179), "Largest rotation between the "
+                              "cameras (method 'fiducials'; rules out symmetric twins of the marker "
+                              "layout).", unit="deg", default=45.0)
 
     def _check(self, prefix, ctx):
         needs_points = self.method in ("homography", "affine", "similarity", "camera")

@@ -44,9 +44,10 @@ DATA = Path(__file__).parent / "data"
 HALF_WIDTH, HALF_HEIGHT, RADIUS = 15e-3, 21e-3, 4e-3
 REMOTE_STRAIN = 2.0e-3            # peak-to-peak strain range along the load axis, far from the hole
 LOAD_MEAN, LOAD_RANGE = 11e3, 18e3  # N (cyclic tension 2 kN .. 20 kN)
-IR_SHAPE = (96, 72)               # rows, cols
+IR_SHAPE = (96, 80)               # rows, cols
 IR_SCALE = 2.0                    # IR px per mm
-T_AMBIENT, T_SPECIMEN, T_FIDUCIAL = 293.15, 296.0, 300.0
+T_AMBIENT, T_SPECIMEN, T_FIDUCIAL = 293.15, 296.0, 304.0
+FIDUCIAL_RADIUS = 2.0e-3          # m; high-emissivity dots look warmer than the bare surface
 NETD = 0.020                      # K, per frame
 VIS_PIXEL = 0.1                   # mm per visible px
 VIS_ORIGIN = (-16.0, 21.5)        # specimen mm of visible pixel (col 0, row 0)
@@ -70,12 +71,12 @@ class DemoRun:
 
 DEMO_RUNS = (
     DemoRun("CQ-0p05Hz", "CQ", "carbon_qi_resin", 0.05, 12.5, 1000, "ranges", "frames", "laminate", seed=1),
-    DemoRun("CQ-150Hz", "CQ", "carbon_qi_resin", 150.0, 400.0, 1000, "ranges", "counts", "resin_layer", seed=2),
+    DemoRun("CQ-150Hz", "CQ", "carbon_qi_resin", 150.0, 383.0, 1000, "ranges", "counts", "resin_layer", seed=2),
     DemoRun("CX-0p05Hz", "CX", "carbon_cross", 0.05, 12.5, 1000, "states", "frames", "laminate", motion=True, seed=3),
     DemoRun("CX-2Hz", "CX", "carbon_cross", 2.0, 50.0, 1000, "ranges", "frames", "model", seed=4),
-    DemoRun("CX-100Hz", "CX", "carbon_cross", 100.0, 400.0, 1000, "images", "frames", "surface_ply", motion=True, seed=5),
+    DemoRun("CX-100Hz", "CX", "carbon_cross", 100.0, 383.0, 1000, "images", "frames", "surface_ply", motion=True, seed=5),
     DemoRun("GP-0p05Hz", "GP", "glass_painted", 0.05, 12.5, 1000, "ranges", "frames", "laminate", seed=6),
-    DemoRun("GP-100Hz", "GP", "glass_painted", 100.0, 400.0, 1000, "ranges", "maps", "coating", seed=7),
+    DemoRun("GP-100Hz", "GP", "glass_painted", 100.0, 383.0, 1000, "ranges", "maps", "coating", seed=7),
 )
 
 
@@ -137,7 +138,7 @@ def _ir_truth(run, lam):
     ratio = np.where(on, strain @ coef, 0.0)
     T0 = np.where(on, T_SPECIMEN + 0.02 * xy_mm[:, 1], T_AMBIENT)
     for c in fiducial_centres(HALF_WIDTH, HALF_HEIGHT):
-        T0 = np.where(np.hypot(xy[:, 0] - c[0], xy[:, 1] - c[1]) < 1.2e-3, T_FIDUCIAL, T0)
+        T0 = np.where(np.hypot(xy[:, 0] - c[0], xy[:, 1] - c[1]) < FIDUCIAL_RADIUS, T_FIDUCIAL, T0)
     # displacement range in IR px (rigid grip motion + Kirsch field), per unit load
     u, v = kirsch_displacement(xy[:, 0], xy[:, 1], **kw)
     v = v + 0.5 * REMOTE_STRAIN * 2 * HALF_HEIGHT     # the lower grip is fixed, the upper moves
@@ -165,8 +166,9 @@ def _frames(run, T0, ratio, disp, rng):
         if run.motion:
             # the surface point seen at pixel p at load L came from p - d(p) (L - Lmean)
             s = load[k] - LOAD_MEAN
-            frame = cv2.remap(frame.astype(np.float32), cols - disp[0] * s, rows - disp[1] * s,
-                              cv2.INTER_CUBIC, borderMode=cv2.BORDER_REPLICATE)
+            frame = cv2.remap(frame.astype(np.float32), (cols - disp[0] * s).astype(np.float32),
+                              (rows - disp[1] * s).astype(np.float32), cv2.INTER_CUBIC,
+                              borderMode=cv2.BORDER_REPLICATE)
         out[k] = frame + rng.normal(0.0, NETD, T0.shape)
     return out, t, load, phi
 
@@ -246,7 +248,7 @@ def _write_images(folder, run, lam):
         on = coupon_mask(xr * 1e-3, yr * 1e-3, half_width=HALF_WIDTH, radius=RADIUS)
         img = np.where(on, img, 0.08)
         for c in fiducial_centres(HALF_WIDTH, HALF_HEIGHT) * 1e3:
-            img = np.where(np.hypot(xr - c[0], yr - c[1]) < 1.2, 0.02, img)
+            img = np.where(np.hypot(xr - c[0], yr - c[1]) < FIDUCIAL_RADIUS * 1e3, 0.02, img)
         rng = np.random.default_rng(run.seed * 10 + i)
         img = np.clip(img * 255 + rng.normal(0, 1.0, img.shape), 0, 255).astype(np.uint8)
         p = folder / f"{run.name}_speckle_{tag}.png"
