@@ -196,7 +196,7 @@ def thermal_side(run, *, budget, motion=None, progress=False):
     maps = res.to_maps()
     info = {"frequency": float(res.frequency), "source": "lock-in", "n_frames": int(res.n_frames),
             "bad_pixels": dict(res.bad_pixels), "warnings": list(res.warnings),
-            "second_harmonic_ratio": float(np.nanmedian(res.second_harmonic_ratio)),
+            "second_harmonic_ratio_map": res.second_harmonic_ratio,
             "drift_rate_median": float(np.nanmedian(res.drift_rate)),
             "load_range": None if load_sig is None else float(np.ptp(load_sig.load))}
     return maps, np.asarray(res.valid, bool), info, load_sig
@@ -500,8 +500,10 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
         "registration": reg_report, "thermal": t_info, "strain": dict(ranges.attrs),
         "calibration": calibration, "model": pinfo, "valid_fraction": float(valid.mean()),
     }
-    if t_info.get("second_harmonic_ratio") is not None:
-        meta["second_harmonic_ratio"] = t_info["second_harmonic_ratio"]
+    harm = t_info.pop("second_harmonic_ratio_map", None)
+    if harm is not None:
+        # judged where the signal is (the valid pixels), not on the background
+        meta["second_harmonic_ratio"] = float(np.nanmedian(np.asarray(harm)[valid]))
     if "pixel_size_mm" in reg_report:
         meta["pixel_size_mm"] = reg_report["pixel_size_mm"]
     attrs = {

@@ -126,50 +126,63 @@ def _strain_at(xy_m, lam):
         dict(stress=S, modulus=E, poisson=nu, radius=RADIUS)
 
 
+EDGE_BLUR = 0.35                   # mm: optics and detector blur of every sharp edge (0.7 IR px)
+
+
+def _soft_step(d):
+    """0 -> 1 across an edge at d = 0 (mm, positive inside), blurred by EDGE_BLUR (Gaussian PSF)."""
+    from scipy.special import erfc
+
+    return 0.5 * erfc(-d / (np.sqrt(2.0) * EDGE_BLUR))
+
+
+def _scene(xy_mm):
+    """Apparent T0 (K) and the material fraction at specimen positions (mm), with blurred edges."""
+    x, y = xy_mm[:, 0], xy_mm[:, 1]
+    material = _soft_step(HALF_WIDTH * 1e3 - np.abs(x)) * _soft_step(np.hypot(x, y) - RADIUS * 1e3)
+    T0 = T_AMBIENT + (T_SPECIMEN + 0.02 * y - T_AMBIENT) * material
+    for c in fiducial_centres(HALF_WIDTH, HALF_HEIGHT) * 1e3:
+        T0 = T0 + (T_FIDUCIAL - T_SPECIMEN) * _soft_step(FIDUCIAL_RADIUS * 1e3 - np.hypot(x - c[0], y - c[1]))
+    return T0, material
+
+
 def _ir_truth(run, lam):
-    """T0 map, complex ratio map, material mask and displacement per unit load on the IR grid."""
+    """Positions (mm) of the IR pixels, their complex ratio, material fraction and displacement
+    range (mm) of the surface point seen there, and the homography."""
     from .mechanics import thermal_layers, transfer_coefficients
 
     H, xy_mm = _ir_geometry()
     xy = xy_mm * 1e-3
-    on = coupon_mask(xy[:, 0], xy[:, 1], half_width=HALF_WIDTH, radius=RADIUS)
     strain, kw = _strain_at(xy, lam)
     coef = transfer_coefficients(thermal_layers(lam), np.array([run.frequency]))[0]
+    on = coupon_mask(xy[:, 0], xy[:, 1], half_width=HALF_WIDTH, radius=RADIUS)
     ratio = np.where(on, strain @ coef, 0.0)
-    T0 = np.where(on, T_SPECIMEN + 0.02 * xy_mm[:, 1], T_AMBIENT)
-    for c in fiducial_centres(HALF_WIDTH, HALF_HEIGHT):
-        T0 = np.where(np.hypot(xy[:, 0] - c[0], xy[:, 1] - c[1]) < FIDUCIAL_RADIUS, T_FIDUCIAL, T0)
-    # displacement range in IR px (rigid grip motion + Kirsch field), per unit load
+    # displacement range (rigid grip motion + Kirsch field): the lower grip is fixed
     u, v = kirsch_displacement(xy[:, 0], xy[:, 1], **kw)
-    v = v + 0.5 * REMOTE_STRAIN * 2 * HALF_HEIGHT     # the lower grip is fixed, the upper moves
-    moved = apply_homography(H, xy_mm + np.column_stack([u, v]) * 1e3)
-    disp = (moved - apply_homography(H, xy_mm)).T / LOAD_RANGE
-    shape = IR_SHAPE
-    return (T0.reshape(shape), ratio.reshape(shape), on.reshape(shape), disp.reshape(2, *shape), H, kw)
+    v = v + 0.5 * REMOTE_STRAIN * 2 * HALF_HEIGHT
+    return xy_mm, ratio, np.column_stack([u, v]) * 1e3, H
 
 
-def _frames(run, T0, ratio, disp, rng):
-    """The infrared stack (F, Y, X) float32 in K, its times and the load at each frame."""
-    import cv2
+def _frames(run, xy_mm, ratio, disp_mm, rng):
+    """The infrared stack (F, Y, X) float32 in K, its times and the load at each frame.
 
+    Each frame is rendered exactly (no resampling): the pixel at p sees the surface point that
+    sits there at the frame's load, x_ref = x(p) - U(x(p)) (L - L_mean) / dL to first order in
+    the displacement range U, with the blurred scene of :func:`_scene`.
+    """
     t = np.arange(run.frames) / run.frame_rate
     phi = rng.uniform(-np.pi, np.pi)
     theta = 2 * np.pi * run.frequency * t + phi
     load = LOAD_MEAN + 0.5 * LOAD_RANGE * np.cos(theta)
     drift = 2e-4 * t                      # K/s: slow warm-up of the rig
-    base = T0.astype(np.float64)
-    re, im = ratio.real * T0, ratio.imag * T0
-    out = np.empty((run.frames, *T0.shape), np.float32)
-    rows, cols = np.mgrid[0:T0.shape[0], 0:T0.shape[1]].astype(np.float32)
+    out = np.empty((run.frames, *IR_SHAPE), np.float32)
+    T0, material = _scene(xy_mm)
     for k in range(run.frames):
-        frame = base + 0.5 * (re * np.cos(theta[k]) - im * np.sin(theta[k])) + drift[k]
         if run.motion:
-            # the surface point seen at pixel p at load L came from p - d(p) (L - Lmean)
-            s = load[k] - LOAD_MEAN
-            frame = cv2.remap(frame.astype(np.float32), (cols - disp[0] * s).astype(np.float32),
-                              (rows - disp[1] * s).astype(np.float32), cv2.INTER_CUBIC,
-                              borderMode=cv2.BORDER_REPLICATE)
-        out[k] = frame + rng.normal(0.0, NETD, T0.shape)
+            T0, material = _scene(xy_mm - disp_mm * (load[k] - LOAD_MEAN) / LOAD_RANGE)
+        signal = 0.5 * T0 * material * (ratio.real * np.cos(theta[k]) - ratio.imag * np.sin(theta[k]))
+        frame = T0 + signal + drift[k] + rng.normal(0.0, NETD, T0.shape)
+        out[k] = frame.reshape(IR_SHAPE)
     return out, t, load, phi
 
 
@@ -210,8 +223,8 @@ def _write_states(folder, run, lam, rng):
     col, row = _vis_px(x, y)
     names = []
     for tag, frac in (("min", -0.5), ("max", 0.5)):
-        du = frac * u * 1e3 / VIS_PIXEL + rng.normal(0, 0.01, x.shape)     # px, 0.01 px noise
-        dv = -frac * v * 1e3 / VIS_PIXEL + rng.normal(0, 0.01, x.shape)    # rows down
+        du = frac * u * 1e3 / VIS_PIXEL + rng.normal(0, 0.002, x.shape)     # px, 0.002 px noise
+        dv = -frac * v * 1e3 / VIS_PIXEL + rng.normal(0, 0.002, x.shape)    # rows down
         du[~on] = np.nan
         dv[~on] = np.nan
         p = folder / f"{run.name}_dic_{tag}.csv"
@@ -309,11 +322,13 @@ def _generate_into(folder: Path):
     for run in DEMO_RUNS:
         lam = cfg.laminates[run.laminate]
         rng = np.random.default_rng(1000 + run.seed)
-        T0, ratio, on, disp, H, _ = _ir_truth(run, lam)
+        xy_mm, ratio, disp_mm, _ = _ir_truth(run, lam)
         if run.thermal == "maps":
-            _write_maps(folder / f"{run.name}_maps.nc", run, T0, ratio, rng)
+            T0, material = _scene(xy_mm)
+            _write_maps(folder / f"{run.name}_maps.nc", run, T0.reshape(IR_SHAPE),
+                        (ratio * material).reshape(IR_SHAPE), rng)
         else:
-            frames, t, load, _ = _frames(run, T0, ratio, disp, rng)
+            frames, t, load, _ = _frames(run, xy_mm, ratio, disp_mm, rng)
             if run.thermal == "counts":
                 counts = np.round((frames - 270.0) / 0.002).astype("<i2")   # 2 mK per count from 270 K
                 counts.tofile(folder / f"{run.name}_ir.raw")
