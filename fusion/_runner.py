@@ -82,6 +82,15 @@ def strain_side(run, *, load_range=None):
     else:
         imgs = [read_image(_need_file(p, f"dic.images[{i}]")) for i, p in enumerate(spec.images)]
         roi = tuple(spec.roi) if spec.roi is not None else None
+        if spec.mask is not None:
+            m = read_image(_need_file(spec.mask, "dic.mask")) > 0
+            if m.shape != imgs[0].shape:
+                raise InputError(spec.mask, f"mask has shape {m.shape}, the speckle images {imgs[0].shape}")
+            if roi is not None:
+                box = np.zeros_like(m)
+                box[roi[0]:roi[2], roi[1]:roi[3]] = True
+                m &= box
+            roi = m
         fields = []
         for i, img in enumerate(imgs[1:], 1):
             try:
@@ -193,11 +202,19 @@ def thermal_side(run, *, budget, motion=None, progress=False):
                      progress=progress)
     except ValueError as e:
         raise InputError(path, f"lock-in: {e}") from e
+    if not np.asarray(res.valid).any():
+        raise InputError(path, f"no usable pixel in the stack: bad pixels by reason {dict(res.bad_pixels)} "
+                         "(NaN/Inf, saturated or dead everywhere)")
     maps = res.to_maps()
+    ok = np.asarray(res.valid, bool)
     info = {"frequency": float(res.frequency), "source": "lock-in", "n_frames": int(res.n_frames),
             "bad_pixels": dict(res.bad_pixels), "warnings": list(res.warnings),
-            "second_harmonic_ratio_map": res.second_harmonic_ratio,
-            "drift_rate_median": float(np.nanmedian(res.drift_rate)),
+            # |C2| debiased for noise (E|C2|^2 = 2 std^2 for pure noise), over |C|: a warning of
+            # dissipative heating should not fire on a noisy but clean run
+            "second_harmonic_ratio_map": np.sqrt(np.maximum(
+                np.asarray(res.second_harmonic, float) ** 2 - 2 * np.asarray(res.delta_T_std, float) ** 2, 0.0))
+            / np.asarray(res.magnitude, float),
+            "drift_rate_median": float(np.nanmedian(np.asarray(res.drift_rate)[ok])),
             "load_range": None if load_sig is None else float(np.ptp(load_sig.load))}
     return maps, np.asarray(res.valid, bool), info, load_sig
 
@@ -431,8 +448,6 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
         raise InputError(run.thermal.frames or run.thermal.maps,
                          "no pixel has both usable thermal data and strain data: check the "
                          "registration (points, method) and the signal-to-noise ratio")
-    if valid.mean() < 0.2:
-        warnings.append(f"only {100 * valid.mean():.0f} % of the infrared pixels are valid")
 
     sources = list(dg.sources) if dg.sources else list(SOURCES)
     pred, pstd, plag, pinfo = predictions(lam, strain, strain_std, frequency, sources=sources,
@@ -621,7 +636,11 @@ def write_run(result: RunResult, folder: Path, *, cfg, run, stamp: str) -> dict:
     ds = result.dataset
     ds.attrs["input_sha256"] = inputs
     write_netcdf(ds, folder / "result.nc")
-    summary = P.summarize_run(ds, regions=result.regions, warnings=result.warnings, meta=result.meta)
+    # the IR field usually shows grips and background as well: warn below 10 % valid, not 25 %
+    summary = P.summarize_run(ds, regions=result.regions, warnings=result.warnings, meta=result.meta,
+                              valid_area_limit=0.10,
+                              registration_limit_px=cfg.registration_for(run).max_error,
+                              snr_limit=cfg.diagnosis.min_snr)
     summary["provenance"].update(stamp=stamp, inputs=inputs)
     if cfg.output.figures:
         figs = P.run_figures(ds, folder / "figures", formats=cfg.output.formats, dpi=cfg.output.dpi,

@@ -134,6 +134,8 @@ class DicSpec:
                             "specimen (images; turns px into mm).", unit="mm")
     roi: tuple = key(s.list_of(s.integer(low=0), min_len=4, max_len=4),
                      "Region of interest [row0, col0, row1, col1] in image px.")
+    mask: Path = key(s.path, "Mask image, same size as the speckle images: non-zero where to "
+                     "correlate (leave out markers, holes, background).")
     reference_image: Path = key(s.path, "Visible reference image for the overlay figure.")
 
     def _check(self, prefix, ctx):

@@ -259,14 +259,22 @@ def _write_images(folder, run, lam):
         xr = VIS_ORIGIN[0] + (cols - u) * VIS_PIXEL
         yr = VIS_ORIGIN[1] - (rows - v) * VIS_PIXEL
         on = coupon_mask(xr * 1e-3, yr * 1e-3, half_width=HALF_WIDTH, radius=RADIUS)
+        # a well-lit, high-contrast pattern: grey-level std about a fifth of full scale
+        img = np.clip(0.5 + 1.8 * (img - 0.5), 0.0, 1.0)
         img = np.where(on, img, 0.08)
         for c in fiducial_centres(HALF_WIDTH, HALF_HEIGHT) * 1e3:
-            img = np.where(np.hypot(xr - c[0], yr - c[1]) < FIDUCIAL_RADIUS * 1e3, 0.02, img)
+            img = np.where(np.hypot(xr - c[0], yr - c[1]) < FIDUCIAL_RADIUS * 1e3, 1.0, img)   # white dots
         rng = np.random.default_rng(run.seed * 10 + i)
         img = np.clip(img * 255 + rng.normal(0, 1.0, img.shape), 0, 255).astype(np.uint8)
         p = folder / f"{run.name}_speckle_{tag}.png"
         cv2.imwrite(str(p), img)
         names.append(p.name)
+        if frac == 0.0:
+            # the mask a user would paint: the coupon without the hole and the markers
+            keep = coupon_mask(xr * 1e-3, yr * 1e-3, half_width=HALF_WIDTH - 0.3e-3, radius=RADIUS + 0.3e-3)
+            for c in fiducial_centres(HALF_WIDTH, HALF_HEIGHT) * 1e3:
+                keep &= np.hypot(xr - c[0], yr - c[1]) > FIDUCIAL_RADIUS * 1e3 + 0.3
+            cv2.imwrite(str(folder / f"{run.name}_mask.png"), (keep * 255).astype(np.uint8))
     return names
 
 

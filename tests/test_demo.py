@@ -1,0 +1,162 @@
+"""End to end on the demo campaign: the recovered source maps match the sources built in.
+
+The demo data are synthetic (fusion/demo.py, sample_data/README.md): each run is generated with a
+known source of the signal. These tests run the whole pipeline on them and check what a user
+relies on: the source map, the residual of the true source, the contract of the outputs.
+"""
+
+import json
+import re
+from pathlib import Path
+
+import jsonschema
+import numpy as np
+import pytest
+import xarray as xr
+
+from fusion.datamodel import RESULT_VARIABLES
+from fusion.demo import DEMO_RUNS, generate
+from fusion.pipeline import run_campaign
+
+pytestmark = pytest.mark.slow
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory):
+    data = tmp_path_factory.mktemp("demo_data")
+    cfg = generate(data)
+    out = tmp_path_factory.mktemp("demo_out")
+    outcome = run_campaign(cfg, out=out, workers=2)
+    return cfg, out, outcome
+
+
+def _open(out, name):
+    with xr.open_dataset(out / name / "result.nc") as ds:
+        return ds.load()
+
+
+def test_every_run_succeeds(demo):
+    _, out, outcome = demo
+    assert outcome.ok, outcome.describe()
+    assert {r.name for r in outcome.runs} == {r.name for r in DEMO_RUNS}
+    assert (out / "report.html").is_file() and (out / "frequency.nc").is_file()
+
+
+@pytest.mark.parametrize("run", DEMO_RUNS, ids=lambda r: r.name)
+def test_source_map_matches_built_in_source(demo, run):
+    _, out, _ = demo
+    ds = _open(out, run.name)
+    valid = ds["valid"].values.astype(bool)
+    meanings = ds["source_layer"].attrs["flag_meanings"].split()
+    values = list(np.atleast_1d(ds["source_layer"].attrs["flag_values"]))
+    code = values[meanings.index(run.expected)]
+    share = np.mean(ds["source_layer"].values[valid] == code)
+    assert valid.sum() > 500
+    assert share >= 0.95, f"{run.name}: {run.expected} in {share:.1%} of the valid pixels"
+
+
+@pytest.mark.parametrize("run", DEMO_RUNS, ids=lambda r: r.name)
+def test_residual_of_true_source_centred_on_zero(demo, run):
+    _, out, _ = demo
+    ds = _open(out, run.name)
+    valid = ds["valid"].values.astype(bool)
+    z = ds[f"zscore_{run.expected}"].values[valid]
+    r = ds[f"residual_{run.expected}"].values[valid]
+    sigma = np.sqrt(ds["ratio_measured_std"].values[valid] ** 2 + ds[f"ratio_{run.expected}_std"].values[valid] ** 2)
+    # centred within its uncertainty: the median residual is a small fraction of one sigma
+    assert abs(np.median(z)) < 0.5
+    assert abs(np.median(r)) < 0.5 * np.median(sigma)
+
+
+def test_carbon_cross_ply_moves_from_laminate_to_surface_ply(demo):
+    # fact of the trade (common practice): heat flow between the plies homogenises the response
+    # at low loading frequency; at high frequency the surface ply is adiabatic
+    _, out, _ = demo
+    share = {}
+    for name in ("CX-0p05Hz", "CX-100Hz"):
+        ds = _open(out, name)
+        v = ds["valid"].values.astype(bool)
+        m = ds["source_layer"].attrs["flag_meanings"].split()
+        fv = list(np.atleast_1d(ds["source_layer"].attrs["flag_values"]))
+        share[name] = {k: np.mean(ds["source_layer"].values[v] == fv[m.index(k)]) for k in ("laminate", "surface_ply")}
+    assert share["CX-0p05Hz"]["laminate"] > 0.9 and share["CX-100Hz"]["surface_ply"] > 0.9
+
+
+def test_every_variable_has_units_and_long_name(demo):
+    _, out, _ = demo
+    ds = _open(out, DEMO_RUNS[0].name)
+    for name, var in ds.data_vars.items():
+        assert name in RESULT_VARIABLES
+        assert "long_name" in var.attrs, name
+        if "flag_values" not in var.attrs:
+            assert "units" in var.attrs, name
+    for key in ("config_text", "fusion_version", "input_sha256", "frequency", "registration_rms"):
+        assert key in ds.attrs
+    assert ds["T0"].dtype == np.float32 and ds["source_layer"].dtype == np.int8
+    # NaN outside the valid mask
+    assert np.all(np.isnan(ds["ratio_measured"].values[ds["valid"].values == 0]))
+
+
+def test_summaries_validate_against_schema(demo):
+    _, out, _ = demo
+    schema = json.loads((ROOT / "fusion" / "schema" / "summary.schema.json").read_text())
+    for run in DEMO_RUNS:
+        summary = json.loads((out / run.name / "summary.json").read_text())
+        jsonschema.validate(summary, schema)
+        assert re.fullmatch(r"[0-9a-f]{64}", summary["provenance"]["stamp"])
+
+
+def test_frequency_file_has_a_group_per_specimen(demo):
+    _, out, _ = demo
+    for spec in ("CQ", "CX", "GP"):
+        with xr.open_dataset(out / "frequency.nc", group=spec) as g:
+            assert g.attrs["specimen"] == spec
+            assert "units" in g[list(g.data_vars)[0]].attrs or "long_name" in g[list(g.data_vars)[0]].attrs
+
+
+def test_rerun_skips_unchanged_runs(demo):
+    cfg, out, _ = demo
+    again = run_campaign(cfg, out=out, workers=1)
+    assert again.ok and all(r.status == "skipped" for r in again.runs)
+
+
+def test_bad_runs_fail_alone(demo, tmp_path):
+    cfg, _, _ = demo
+    data = cfg.parent
+    text = cfg.read_text()
+    # three broken runs appended: a missing file, a stack of the wrong shape, a NaN-only stack
+    np.save(data / "nan_stack.npy", np.full((64, 96, 80), np.nan, np.float32))
+    np.save(data / "bad_shape.npy", np.zeros((64, 10), np.float32))
+    broken = ""
+    for name, frames in (("BAD-missing", "no_such_stack.npy"), ("BAD-shape", "bad_shape.npy"),
+                         ("BAD-nan", "nan_stack.npy")):
+        broken += f'''
+[[run]]
+name = "{name}"
+specimen = "BAD"
+laminate = "carbon_cross"
+frequency = "2 Hz"
+[run.thermal]
+frames = "{frames}"
+frame_rate = "50 Hz"
+[run.dic]
+strain_ranges = "CX-2Hz_strain.csv"
+'''
+    bad_cfg = data / "with_bad_runs.toml"
+    bad_cfg.write_text(text + broken)
+    out = tmp_path / "out"
+    res = run_campaign(bad_cfg, out=out, only=["CX-2Hz", "BAD-missing", "BAD-shape", "BAD-nan"], workers=1)
+    status = {r.name: r for r in res.runs}
+    assert status["CX-2Hz"].status == "done"
+    for name, needle in (("BAD-missing", "no_such_stack.npy"), ("BAD-shape", "bad_shape.npy"),
+                         ("BAD-nan", "nan_stack.npy")):
+        assert status[name].status == "failed"
+        assert needle in status[name].error, status[name].error
+        assert "internal error" not in status[name].error
+        assert not (out / name).exists()
+    assert not res.ok
+    assert not list(out.glob(".*partial*"))
+    report = (out / "report.html").read_text()
+    assert "BAD-missing" in report
