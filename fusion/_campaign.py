@@ -87,7 +87,10 @@ def _fit_specimen(cfg, spec, items, datasets):
     if lam.coating is not None:
         params.insert(0, "coating_thickness")
     params = params[: max(1, len(f) - 1)]
-    fit = fit_sweep(lam, f, r, s, strain, measured_lag=lag, lag_std=lag_std, parameters=tuple(params))
+    # the model curve spans the plan's default range and every measured frequency
+    f_range = (min(0.1, float(f.min()) / 2), max(200.0, float(f.max()) * 2))
+    fit = fit_sweep(lam, f, r, s, strain, measured_lag=lag, lag_std=lag_std, parameters=tuple(params),
+                    frequency_range=f_range)
     mean_strain = np.median(strain, axis=0)
     limits = {k: float(c @ mean_strain) for k, c in source_coefficients(lam).items()}
     maps = None

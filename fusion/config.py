@@ -28,10 +28,9 @@ from .mechanics import (
 )
 
 __all__ = ["Config", "RunSpec", "load_config", "loads_config", "markdown_reference",
-           "RUN_NAME_PATTERN", "DEFAULT_CONFIG_NAME"]
+           "RUN_NAME_PATTERN"]
 
 RUN_NAME_PATTERN = r"[A-Za-z0-9][A-Za-z0-9_.\-]{0,99}"
-DEFAULT_CONFIG_NAME = "fusion.toml"
 _RESERVED = {"con", "prn", "aux", "nul", "figures", "report.html", "frequency.nc", "summary.json"}
 _MAX_CONFIG_BYTES = 4 << 20
 

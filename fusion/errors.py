@@ -7,7 +7,7 @@ only with ``--debug``.
 
 from __future__ import annotations
 
-__all__ = ["FusionError", "ConfigError", "InputError", "CapabilityError"]
+__all__ = ["FusionError", "ConfigError", "InputError"]
 
 
 class FusionError(Exception):
@@ -50,7 +50,3 @@ class InputError(FusionError, ValueError):
         self.path = str(path)
         self.message = message
         super().__init__(f"{self.path}: {message}")
-
-
-class CapabilityError(FusionError):
-    """A requested capability is not available (yet) in this version."""

@@ -389,4 +389,7 @@ def plan_command(config, *, out=None, laminate=None, overwrite=False) -> str:
                         tolerance=spec.tolerance)
     folder = Path(out) if out is not None else cfg.folder
     paths = save_plan(ds, folder, overwrite=overwrite, dpi=max(150, int(cfg.output.dpi)))
-    return plan_table(ds) + "\n" + "\n".join(f"wrote {p}" for p in paths.values())
+    from .mechanics import source_table
+
+    return (source_table(lam, strain) + "\n\n" + plan_table(ds) + "\n"
+            + "\n".join(f"wrote {p}" for p in paths.values()))

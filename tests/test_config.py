@@ -216,3 +216,16 @@ def test_random_laminate_values_load_or_raise_config_error(field, value):
         loads_config(text)
     except ConfigError:
         pass
+
+
+def test_readme_example_config_is_valid():
+    text = (ROOT / "configs" / "README.md").read_text()
+    block = text.split("```toml", 1)[1].split("```", 1)[0]
+    cfg = loads_config(block, base=ROOT / "configs")
+    assert cfg.runs[0].name == "P1-10Hz"
+    assert cfg.laminates["default"].angles == (0.0, 90.0, 0.0, 90.0, 90.0, 0.0, 90.0, 0.0)
+
+
+def test_demo_config_is_valid():
+    cfg = load_config(ROOT / "configs" / "demo.toml")
+    assert len(cfg.runs) == 7 and set(cfg.laminates) == {"carbon_qi_resin", "carbon_cross", "glass_painted"}
