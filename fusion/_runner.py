@@ -128,17 +128,22 @@ def _scale_ranges(r, load_range, loads):
 
 
 # --------------------------------------------------------------------------- thermal side
+def _load_range(sig, frequency):
+    """Peak-to-peak range of the load's fundamental (a fit, so noise does not inflate it)."""
+    from .thermal import estimate_frequency, load_reference
+
+    try:
+        f = frequency or estimate_frequency(sig.times, sig.load)
+        return float(load_reference(sig.times, sig.load, f).range)
+    except ValueError as e:
+        raise InputError(sig.path, f"cannot find the load cycle in the load signal ({e})") from e
+
+
 def _frame_times(spec, n_frames, load_sig):
+    from .io import read_frame_times
+
     if spec.times is not None:
-        path = _need_file(spec.times, "thermal.times")
-        try:
-            t = np.load(path, allow_pickle=False) if path.suffix == ".npy" else np.loadtxt(path, delimiter=",", ndmin=1)
-        except (ValueError, OSError) as e:
-            raise InputError(path, f"cannot read frame times ({e})") from e
-        t = np.asarray(t, dtype=float).ravel()
-        if t.shape != (n_frames,) or not np.all(np.isfinite(t)) or np.any(np.diff(t) <= 0):
-            raise InputError(path, f"expected {n_frames} finite, increasing frame times in s")
-        return t
+        return read_frame_times(_need_file(spec.times, "thermal.times"), n_frames=n_frames)
     if spec.frame_rate is not None:
         return None
     if load_sig is not None and load_sig.times.size == n_frames:
@@ -215,7 +220,7 @@ def thermal_side(run, *, budget, motion=None, progress=False):
                 np.asarray(res.second_harmonic, float) ** 2 - 2 * np.asarray(res.delta_T_std, float) ** 2, 0.0))
             / np.asarray(res.magnitude, float),
             "drift_rate_median": float(np.nanmedian(np.asarray(res.drift_rate)[ok])),
-            "load_range": None if load_sig is None else float(np.ptp(load_sig.load))}
+            "load_range": None if load_sig is None else _load_range(load_sig, float(res.frequency))}
     return maps, np.asarray(res.valid, bool), info, load_sig
 
 
@@ -332,6 +337,11 @@ def registration_side(run, reg, ranges, ir_shape, T0, *, transform=None):
     if scale and ranges.units == "mm":
         report["pixel_size_mm"] = 1.0 / float(scale)
     warnings = list(getattr(transform, "warnings", []) or [])
+    minimum = {"homography": 4, "affine": 3, "similarity": 2}.get(str(report.get("method", "")).split("+")[0])
+    n_pts = int(report.get("registration_n_points", 0) or 0)
+    if minimum and n_pts <= minimum:
+        warnings.append(f"registration from {n_pts} control points fits them exactly: its error cannot be "
+                        f"estimated; give more than {minimum} points to check it")
     if rms is not None and np.isfinite(rms) and rms > reg.max_error:
         msg = f"registration RMS error {rms:.2f} IR px exceeds the limit {reg.max_error:.2f} px"
         if msg not in warnings:
@@ -402,7 +412,7 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
     if run.thermal.load is not None:
         sig = read_load_signal(_need_file(run.thermal.load, "thermal.load"),
                                time_column=run.thermal.time_column, load_column=run.thermal.load_column)
-        load_range = float(np.ptp(sig.load))
+        load_range = _load_range(sig, run.frequency)
     ranges, disp = strain_side(run, load_range=load_range)
 
     thermal, t_valid, t_info, _ = thermal_side(run, budget=cfg.compute.memory_budget, progress=progress)
@@ -677,7 +687,11 @@ def check_run_inputs(cfg, run, *, key) -> str:
                                load_column=t.load_column)
         parts.append(f"load signal of {sig.times.size} samples")
     if t.times is not None:
-        _need_file(t.times, f"{key}.thermal.times")
+        from .io import read_frame_times
+
+        # read, not only found: a damaged times file should fail here, not in the run
+        read_frame_times(_need_file(t.times, f"{key}.thermal.times"),
+                         n_frames=fr.shape[0] if t.frames is not None else None)
     if d.strain_ranges is not None:
         f = read_dic_field(_need_file(d.strain_ranges, f"{key}.dic.strain_ranges"), columns=d.columns,
                            coordinates=d.coordinates, y_axis=d.effective_y_axis, shear=d.shear)

@@ -31,7 +31,10 @@ __all__ = ["Config", "RunSpec", "load_config", "loads_config", "markdown_referen
            "RUN_NAME_PATTERN"]
 
 RUN_NAME_PATTERN = r"[A-Za-z0-9][A-Za-z0-9_.\-]{0,99}"
-_RESERVED = {"con", "prn", "aux", "nul", "figures", "report.html", "frequency.nc", "summary.json"}
+# names a run folder cannot take: the campaign's own files, and device names of Windows shares
+_RESERVED = ({"con", "prn", "aux", "nul", "figures", "report.html", "frequency.nc", "summary.json"}
+             | {f"com{i}" for i in range(1, 10)} | {f"lpt{i}" for i in range(1, 10)})
+_DEVICE_STEMS = {"con", "prn", "aux", "nul"} | {f"com{i}" for i in range(1, 10)} | {f"lpt{i}" for i in range(1, 10)}
 _MAX_CONFIG_BYTES = 4 << 20
 
 
@@ -308,8 +311,10 @@ class RunSpec:
                                          "(replaces the top-level [registration]).")
 
     def _check(self, prefix, ctx):
-        if self.name.lower() in _RESERVED:
-            raise ConfigError(f"{prefix}.name", f"{self.name!r} is a reserved name", source=ctx.source)
+        low = self.name.lower()
+        if low in _RESERVED or low.split(".")[0] in _DEVICE_STEMS or low.endswith("."):
+            raise ConfigError(f"{prefix}.name", f"{self.name!r} is a reserved name (or ends with a dot); "
+                              "choose another run name", source=ctx.source)
         if self.frequency is None and (self.thermal.load is None or self.thermal.maps is not None):
             raise ConfigError(f"{prefix}.frequency", "is required with precomputed maps or when no "
                               "load signal is given (e.g. frequency = \"10 Hz\")", source=ctx.source)
@@ -420,6 +425,9 @@ def _read_toml(path: Path, key_name: str, ctx: Context | None) -> tuple[dict, st
     try:
         if path.is_dir():
             raise ConfigError(key_name, f"{str(path)!r} is a folder, expected a TOML file", source=where)
+        if path.exists() and not path.is_file():
+            raise ConfigError(key_name, f"{str(path)!r} is not a regular file (a pipe or device?), "
+                              "expected a TOML file", source=where)
         size = path.stat().st_size
         if size > _MAX_CONFIG_BYTES:
             raise ConfigError(key_name, f"{str(path)!r} is {size} bytes; a config is at most "
@@ -430,13 +438,19 @@ def _read_toml(path: Path, key_name: str, ctx: Context | None) -> tuple[dict, st
     except PermissionError as e:
         raise ConfigError(key_name, f"file {str(path)!r} cannot be read (permission denied)", source=where) from e
     try:
-        text = raw.decode("utf-8")
+        text = raw.decode("utf-8-sig")          # editors on Windows may write a byte-order mark
     except UnicodeDecodeError as e:
         raise ConfigError(key_name, f"{str(path)!r} is not UTF-8 text (byte {e.start})", source=where) from e
+    return _parse_toml(text, key_name, where, f"{str(path)!r} is")
+
+
+def _parse_toml(text, key_name, where, what):
     try:
         return tomllib.loads(text), text
     except tomllib.TOMLDecodeError as e:
-        raise ConfigError(key_name, f"{str(path)!r} is not valid TOML: {e}", source=where) from e
+        raise ConfigError(key_name, f"{what} not valid TOML: {e}", source=where) from e
+    except RecursionError as e:
+        raise ConfigError(key_name, f"{what} nested too deeply to be a config", source=where) from e
 
 
 def load_config(path) -> Config:
@@ -456,10 +470,7 @@ def loads_config(text: str, *, base=".") -> Config:
     """Validate config ``text`` (relative paths resolve from ``base``)."""
     if not isinstance(text, str):
         raise ConfigError("config", f"expected TOML text, got {type(text).__name__}")
-    try:
-        doc = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as e:
-        raise ConfigError("config", f"not valid TOML: {e}") from e
+    doc, _ = _parse_toml(text, "config", None, "the text is")
     return _validate(doc, text, None, base=Path(base))
 
 

@@ -18,6 +18,7 @@ import json
 import logging
 import os
 import shutil
+import stat
 import tempfile
 import time
 from pathlib import Path
@@ -129,9 +130,24 @@ def campaign_lock(out: Path):
     """Hold an exclusive lock on the output folder (refuse a concurrent ``fusion run``)."""
     import fcntl
 
-    out.mkdir(parents=True, exist_ok=True)
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as e:
+        raise InputError(out, f"cannot be used as the output folder ({e.strerror or e}); expected a "
+                         "folder that can be created or written") from e
     lock_path = out / LOCK_NAME
-    fd = os.open(lock_path, os.O_RDWR | os.O_CREAT, 0o644)
+    try:
+        # O_NOFOLLOW: a lock "file" planted as a link would have us truncate its target
+        fd = os.open(lock_path, os.O_RDWR | os.O_CREAT | os.O_NOFOLLOW, 0o644)
+    except OSError as e:
+        if e.errno == errno.ELOOP:
+            raise InputError(lock_path, "is a symbolic link; fusion keeps its lock file inside the "
+                             "output folder and will not write through a link (remove it)") from e
+        raise InputError(lock_path, f"cannot create the lock file of the output folder "
+                         f"({e.strerror or e}); check that the folder is writable") from e
+    if not stat.S_ISREG(os.fstat(fd).st_mode):
+        os.close(fd)
+        raise InputError(lock_path, "is not a regular file; remove it")
     try:
         try:
             fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
@@ -152,11 +168,33 @@ def campaign_lock(out: Path):
 
 
 def _remove_partials(out: Path) -> None:
-    """Remove what an interrupted batch left (hidden ``.NAME.partial-*`` folders)."""
-    for p in out.glob(".*.partial-*"):
-        shutil.rmtree(p, ignore_errors=True)
-    for p in out.glob(".*.trash-*"):
-        shutil.rmtree(p, ignore_errors=True)
+    """Remove what an interrupted batch left: hidden ``.NAME.partial-*`` run folders,
+    ``.NAME.trash-*`` folders and the ``.NAME.*.tmp`` files of unfinished atomic writes
+    (report, frequency fit, campaign figures). Links are removed, never followed."""
+    for pattern in (".*.partial-*", ".*.trash-*"):
+        for p in out.glob(pattern):
+            if p.is_symlink():
+                with contextlib.suppress(OSError):
+                    p.unlink()
+            else:
+                shutil.rmtree(p, ignore_errors=True)
+    figures = out / "figures"
+    for folder in (out, figures) if figures.is_dir() and not figures.is_symlink() else (out,):
+        for p in folder.glob(".*.tmp"):
+            if p.is_file() or p.is_symlink():
+                with contextlib.suppress(OSError):
+                    p.unlink()
+
+
+def _check_campaign_targets(out: Path) -> None:
+    """Refuse campaign outputs that a link would carry outside ``out`` (figures/ is written
+    into; report.html and frequency.nc are replaced by rename, which replaces a link itself)."""
+    figures = out / "figures"
+    if figures.is_symlink():
+        raise InputError(figures, f"is a symbolic link (to {os.readlink(figures)!r}); campaign figures "
+                         "are written only inside the output folder: remove the link")
+    if figures.exists() and not figures.is_dir():
+        raise InputError(figures, "exists and is not a folder; remove it")
 
 
 def _read_stamp(folder: Path) -> str | None:
@@ -203,6 +241,10 @@ def process_run(config_path, run_name: str, out, *, overwrite: bool = False,
                 raise InputError(folder, "holds a result made from other inputs or settings; pass "
                                  "--overwrite to replace it")
         tmp = Path(tempfile.mkdtemp(prefix=f".{run.name}.partial-", dir=out))
+        # mkdtemp makes the folder private (0700); a published result follows the umask
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o777 & ~umask)
         try:
             from ._runner import compute_run, write_run
 
@@ -218,6 +260,12 @@ def process_run(config_path, run_name: str, out, *, overwrite: bool = False,
         return RunOutcome(run_name, "failed", error=str(e), seconds=time.perf_counter() - t0)
     except MemoryError:
         return RunOutcome(run_name, "failed", error="out of memory; lower [compute] memory_budget",
+                          seconds=time.perf_counter() - t0)
+    except OSError as e:
+        # the system refused a read or write (disk full, permissions, a share gone): name the
+        # file, this is not a bug to report
+        where = e.filename or out
+        return RunOutcome(run_name, "failed", error=f"{where}: {e.strerror or e}",
                           seconds=time.perf_counter() - t0)
     except Exception as e:  # a bug: keep the batch going, say so plainly
         log.debug("run %s crashed", run_name, exc_info=True)
@@ -281,6 +329,7 @@ def run_campaign(config_path, *, out=None, overwrite: bool = False, only=None, s
         try:
             from ._campaign import write_campaign
 
+            _check_campaign_targets(out)
             result.frequency, result.report = write_campaign(cfg, out, outcomes, overwrite=True)
         except FusionError as e:
             result.campaign_errors.append(str(e))

@@ -80,8 +80,11 @@ def safe_child(folder, name: str) -> Path:
     if not name or name in (".", "..") or "/" in name or "\\" in name or "\x00" in name or name.startswith("."):
         raise InputError(folder / str(name), f"{name!r} is not a safe folder or file name")
     child = folder / name
-    root = folder.resolve()
-    target = child.resolve()
+    try:
+        root = folder.resolve()
+        target = child.resolve()
+    except (OSError, RuntimeError) as e:  # a link loop
+        raise InputError(child, f"cannot be resolved ({e}); remove the symbolic link") from e
     if target != root and root not in target.parents:
         raise InputError(child, f"resolves to {target}, outside the output folder {root}")
     return child

@@ -14,6 +14,8 @@ import numpy as np
 
 from ..dic._field import DicField
 from ..errors import InputError
+from ._guard import MAX_READ_BYTES, check_bytes, decoding, h5_dataset, hdf5_stays_inside, input_file
+from ._matfile import check_mat5
 
 __all__ = ["read_dic_field", "FIELD_NAMES"]
 
@@ -59,9 +61,26 @@ def _csv_separator(path):
     raise InputError(path, "is empty; expected a header row naming the columns, then one row per point")
 
 
-def _load_csv(path, names):
+def _last_row_fields(path, sep):
+    """Number of fields on the last non-blank, non-comment line (read from the file's tail)."""
+    with open(path, "rb") as fh:
+        fh.seek(0, 2)
+        size = fh.tell()
+        fh.seek(max(0, size - 65536))
+        tail = fh.read().decode("utf-8", "replace")
+    lines = [ln.strip() for ln in tail.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
+    if not lines:
+        return None
+    last = lines[-1]
+    return len(last.split()) if sep == r"\s+" else len(last.split(sep))
+
+
+def _load_csv(path, names, max_bytes):
     import pandas as pd
 
+    from ._signals import _text_file
+
+    _text_file(path, "an exported correlation table (CSV)")
     sep, header = _csv_separator(path)
     first = [c.strip() for c in (header.split() if sep == r"\s+" else header.split(sep))]
     if all(_is_number(c) for c in first if c):
@@ -72,6 +91,11 @@ def _load_csv(path, names):
                             if sep != r"\s+" else "python", encoding="utf-8-sig")
     except (pd.errors.ParserError, UnicodeDecodeError, ValueError) as e:
         raise InputError(path, f"could not be parsed as a delimited table ({e})") from e
+    n_last = _last_row_fields(path, sep)
+    if len(table) and n_last is not None and n_last < len(first):
+        # pandas pads a short last row with NaN: a copy cut mid-line would pass as a missing point
+        raise InputError(path, f"its last row has {n_last} of the {len(first)} fields the header names: "
+                         "the file looks truncated (copy it again)")
     cols = {str(c).strip().lower(): c for c in table.columns}
     out = {}
     for ours, theirs in names.items():
@@ -113,15 +137,18 @@ def _units_attr(attrs):
     return None if u is None else str(u).strip()
 
 
-def _load_netcdf(path, names):
+def _load_netcdf(path, names, max_bytes):
     import xarray as xr
 
-    try:
+    hdf5_stays_inside(path, "NetCDF")
+    with decoding(path, "NetCDF"):
         ds = xr.open_dataset(path, engine="netcdf4")
-    except (OSError, ValueError) as e:
-        raise InputError(path, f"could not be opened as NetCDF ({e})") from e
-    with ds:
+    with ds, decoding(path, "a NetCDF correlation field"):
         found = {ours: theirs for ours, theirs in names.items() if theirs in ds.variables}
+        if found:
+            # broadcasting x and y to the data grid: every array ends at the largest size
+            size = max(ds[v].size for v in found.values())
+            check_bytes(path, (len(found), size), 8, what="the correlation variables", max_bytes=max_bytes)
         arrays = xr.broadcast(*[ds[v] for v in found.values()]) if found else []
         out = {}
         for (ours, theirs), arr in zip(found.items(), arrays):
@@ -135,37 +162,56 @@ def _not_numeric(path, name, dtype):
     raise InputError(path, f"variable {name!r} holds {dtype}; expected numbers")
 
 
-def _load_hdf5(path, names):
+def _load_hdf5(path, names, max_bytes):
     import h5py
 
-    try:
+    with decoding(path, "HDF5"):
         fh = h5py.File(path, "r")
-    except OSError as e:
-        raise InputError(path, f"could not be opened as HDF5 ({e})") from e
-    with fh:
+    with fh, decoding(path, "an HDF5 correlation field"):
         available = []
         fh.visititems(lambda n, obj: available.append(n) if isinstance(obj, h5py.Dataset) else None)
         out = {}
         for ours, theirs in names.items():
-            if theirs not in fh or not isinstance(fh[theirs], h5py.Dataset):
+            ds = h5_dataset(path, fh, theirs, what="variable")
+            if not isinstance(ds, h5py.Dataset):
                 continue
-            ds = fh[theirs]
             if ds.dtype.kind not in "uifb":
                 _not_numeric(path, theirs, ds.dtype)
+            check_bytes(path, ds.shape, 8, what=f"variable {theirs!r}", max_bytes=max_bytes)
             # MATLAB's HDF5 files store arrays transposed; all alike, so point order holds
             out[ours] = (np.asarray(ds[()], dtype=np.float64), _units_attr(dict(ds.attrs)))
         return out, sorted(available)
 
 
-def _load_mat(path, names):
+_MAT_NUMERIC = {"double", "single", "int8", "uint8", "int16", "uint16", "int32", "uint32", "int64",
+                "uint64", "logical"}
+
+
+def _load_mat(path, names, max_bytes):
     from scipy import io as sio
 
+    # the directory of the file first: classes and sizes from the headers, no data read
     try:
-        data = sio.loadmat(path, squeeze_me=True)
-    except NotImplementedError:  # version 7.3 files are HDF5
-        return _load_hdf5(path, names)
-    except (ValueError, TypeError, OSError) as e:
-        raise InputError(path, f"could not be read as a MATLAB file ({e})") from e
+        with decoding(path, "a MATLAB file"):
+            listing = sio.whosmat(path)
+    except InputError as e:
+        if isinstance(e.__cause__, NotImplementedError):  # version 7.3 files are HDF5
+            return _load_hdf5(path, names, max_bytes)
+        raise
+    wanted = set(names.values())
+    for name, shape, cls in listing:
+        if name not in wanted:
+            continue
+        if cls not in _MAT_NUMERIC:
+            raise InputError(path, f"variable {name!r} is a MATLAB {cls}; expected a numeric array "
+                             "(MATLAB objects, structs and cells are not read)")
+        check_bytes(path, shape, 8, what=f"variable {name!r}", max_bytes=max_bytes)
+    present = [n for n, _, _ in listing if n in wanted]
+    # scipy's compiled reader crashes the process on a damaged type code: check the tags first
+    check_mat5(path, set(present), max_bytes=MAX_READ_BYTES if max_bytes is None else int(max_bytes))
+    with decoding(path, "a MATLAB file"):
+        data = sio.loadmat(path, squeeze_me=True, variable_names=present) if present else {}
+    available = sorted(n for n, _, _ in listing)
     out = {}
     for ours, theirs in names.items():
         if theirs not in data:
@@ -174,7 +220,7 @@ def _load_mat(path, names):
         if arr.dtype.kind not in "uifb":
             _not_numeric(path, theirs, arr.dtype)
         out[ours] = (arr.astype(np.float64), None)
-    return out, sorted(k for k in data if not k.startswith("__"))
+    return out, available
 
 
 # ---------------------------------------------------------------- common steps
@@ -280,7 +326,7 @@ def _to_grid(path, data, n):
 
 
 def read_dic_field(path, *, columns=None, coordinates="mm", y_axis=None, shear="engineering",
-                   variables=None, min_zncc=None, attrs=None):
+                   variables=None, min_zncc=None, attrs=None, max_bytes=None):
     """Read an exported displacement (or strain) field into the specimen frame.
 
     Parameters
@@ -312,6 +358,10 @@ def read_dic_field(path, *, columns=None, coordinates="mm", y_axis=None, shear="
     attrs : dict, optional
         Reporting quantities to attach (``subset``, ``step`` in px,
         ``pixel_size`` in mm per px).
+    max_bytes : int, optional
+        Largest set of arrays read into memory, bytes; default
+        ``fusion.io._guard.MAX_READ_BYTES`` (2 GiB), checked from the file's headers
+        before any data is read.
 
     Returns
     -------
@@ -323,9 +373,11 @@ def read_dic_field(path, *, columns=None, coordinates="mm", y_axis=None, shear="
     Raises
     ------
     InputError
-        Missing file, unknown format, missing or non-numeric column, shapes
-        that do not match, infinite values, duplicate points; the message
-        names the file and the column.
+        Missing, unreadable or corrupt file, unknown format, missing or
+        non-numeric column, MATLAB objects, HDF5 links to other files, a
+        truncated last row, more data than ``max_bytes``, shapes that do not
+        match, infinite values, duplicate points; the message names the file
+        and the column.
     """
     path = Path(path)
     if coordinates not in ("mm", "px"):
@@ -340,9 +392,7 @@ def read_dic_field(path, *, columns=None, coordinates="mm", y_axis=None, shear="
     kind = _FORMATS.get(path.suffix.lower())
     if kind != "csv" and variables is not None:
         user = _check_names("variables", variables)
-    if not path.is_file():
-        raise InputError(path, "does not exist or is not a file (expected an exported "
-                         "correlation field)")
+    input_file(path, "an exported correlation field")
     if kind is None:
         raise InputError(path, f"has the suffix {path.suffix!r}; expected one of {sorted(_FORMATS)}")
     names = {k: user.get(k, k) for k in FIELD_NAMES}
@@ -351,7 +401,7 @@ def read_dic_field(path, *, columns=None, coordinates="mm", y_axis=None, shear="
     elif "gxy" in user:
         names.pop("exy")
     loader = {"csv": _load_csv, "netcdf": _load_netcdf, "hdf5": _load_hdf5, "mat": _load_mat}[kind]
-    raw, available = loader(path, names)
+    raw, available = loader(path, names, max_bytes)
     what = "column" if kind == "csv" else "variable"
     for ours in user:
         if ours not in raw:
@@ -396,6 +446,10 @@ def read_dic_field(path, *, columns=None, coordinates="mm", y_axis=None, shear="
         ok &= np.isfinite(data["u"]) & np.isfinite(data["v"])
     else:
         ok &= np.isfinite(data["exx"]) & np.isfinite(data["eyy"]) & np.isfinite(data["gxy"])
+    if not ok.any():
+        need = "u and v" if has_uv else "exx, eyy and gxy"
+        raise InputError(path, f"holds no measured point: {need} are NaN at all {n} points; "
+                         "expected a measured field")
     if "valid" in data:
         ok &= np.nan_to_num(data["valid"], nan=0.0) != 0
     if min_zncc is not None:

@@ -18,6 +18,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import InputError
+from ._guard import decoding, h5_dataset, hdf5_stays_inside, input_file, npy_header, quiet_logger
 
 __all__ = ["FrameStack", "open_frames"]
 
@@ -116,15 +117,18 @@ class FrameStack:
         mm = self.memmap
         if mm is not None:
             out = mm[key]
-        elif self.kind == "tiff":
-            out = self._read_tiff(key)
-        elif self.kind == "hdf5":
-            import h5py
-
-            with h5py.File(self.path, "r") as fh:
-                out = fh[self.dataset][key]
         else:
-            out = self._read_netcdf(key)
+            # a page or chunk may be corrupt although the header was sound
+            with decoding(self.path, f"a {self.kind} frame stack"):
+                if self.kind == "tiff":
+                    out = self._read_tiff(key)
+                elif self.kind == "hdf5":
+                    import h5py
+
+                    with h5py.File(self.path, "r") as fh:
+                        out = fh[self.dataset][key]
+                else:
+                    out = self._read_netcdf(key)
         out = np.asarray(out) if not isinstance(out, np.ndarray) else out
         if not out.dtype.isnative:
             out = out.astype(out.dtype.newbyteorder("="))
@@ -192,25 +196,9 @@ def _need_3d(path, shape, what="stack"):
 
 
 def _open_npy(path, dtype, shape, max_bytes):
-    fmt = np.lib.format
-    try:
-        with open(path, "rb") as fh:
-            version = fmt.read_magic(fh)
-            reader = {(1, 0): fmt.read_array_header_1_0, (2, 0): fmt.read_array_header_2_0}.get(version)
-            if reader is None:
-                raise ValueError(f"unsupported .npy version {version!r}")
-            shp, fortran, dt = reader(fh)
-            offset = fh.tell()
-    except ValueError as e:
-        raise InputError(path, f"not a valid .npy file ({e})") from e
-    if dt.hasobject:
-        raise InputError(path, "holds Python objects; only numeric arrays are read (pickles are refused)")
+    shp, fortran, dt, offset = npy_header(path)
     _numeric(dt, path)
     _need_3d(path, shp)
-    need = offset + math.prod(shp) * dt.itemsize
-    have = os.path.getsize(path)
-    if have < need:
-        raise InputError(path, f"is truncated: the header promises {need} bytes, the file has {have}")
     _check_config(path, shp, dt, shape, dtype)
     return FrameStack(path, "npy", shp, dt, mapping=(offset, dt, "F" if fortran else "C"), max_bytes=max_bytes)
 
@@ -248,32 +236,78 @@ def _open_raw(path, dtype, shape, byte_order, header_bytes, max_bytes):
                 "; check rows, cols, dtype and header_bytes")
         raise InputError(path, f"holds {have} data bytes after a {header_bytes}-byte header, but shape "
                          f"{shp!r} of {dt.name} needs {need}{hint}")
-    return FrameStack(path, "raw", shp, dt, mapping=(header_bytes, dt, "C"), max_bytes=max_bytes)
+    stack = FrameStack(path, "raw", shp, dt, mapping=(header_bytes, dt, "C"), max_bytes=max_bytes)
+    _check_byte_order(path, stack.memmap[:4], byte_order)
+    return stack
+
+
+def _roughness(values):
+    """Median absolute difference of neighbouring values (along columns and frames)."""
+    with np.errstate(all="ignore"):
+        v = np.asarray(values, dtype=np.float64)
+        d = [np.abs(np.diff(v, axis=-1)).ravel()]
+        if v.shape[0] > 1:
+            d.append(np.abs(np.diff(v, axis=0)).ravel())
+        d = np.concatenate(d)
+    d[~np.isfinite(d)] = np.inf
+    return float(np.median(d)) if d.size else 0.0
+
+
+def _check_byte_order(path, sample, byte_order):
+    """Refuse a raw stack that reads far smoother in the other byte order.
+
+    Camera frames vary slowly from pixel to pixel and frame to frame; read in the wrong
+    byte order, the noisy low byte becomes the high byte and neighbouring values differ
+    by hundreds of counts (floats turn into huge numbers or NaN). A factor of 50 between
+    the two readings leaves no doubt; noise-only data (no preferred order) never trips it.
+    """
+    if sample.dtype.itemsize == 1 or sample.size < 2:
+        return
+    as_given = _roughness(sample)
+    other = _roughness(sample.view(sample.dtype.newbyteorder("S")))
+    if np.isfinite(other) and other > 0 and as_given > 50 * other:
+        flip = {"little": "big", "big": "little"}.get(byte_order, "the other order")
+        raise InputError(path, f"looks byte-swapped: read as byte_order={byte_order!r}, neighbouring "
+                         f"values differ by a median of {as_given:.3g}, read as {flip!r} by "
+                         f"{other:.3g}; set byte_order = {flip!r} if the camera wrote {flip}-endian data")
 
 
 def _open_tiff(path, dtype, shape, max_bytes):
     import tifffile
 
-    try:
+    with quiet_logger("tifffile"), decoding(path, "a TIFF stack"):
         with tifffile.TiffFile(path) as tif:
             series = tif.series[0]
             shp, dt, axes = tuple(series.shape), series.dtype, str(series.axes)
-    except (tifffile.TiffFileError, ValueError, IndexError, OSError) as e:
-        raise InputError(path, f"cannot read as TIFF ({e})") from e
+            pages = len(tif.pages)
     _numeric(dt, path)
     if "S" in axes:
         raise InputError(path, f"holds multi-sample (colour) pages, axes {axes!r}; expected one grey "
                          "frame per page")
     _need_3d(path, shp, "multi-page TIFF stack")
+    if 1 < pages < shp[0]:
+        # the metadata promise more frames than pages were found: the tail of the file is
+        # missing (one page for many frames is the legitimate layout of very large stacks)
+        raise InputError(path, f"has {pages} pages but its metadata promise {shp[0]} frames: the file "
+                         "is truncated (copy it again)")
     _check_config(path, shp, dt, shape, dtype)
     mapping = None
     try:
-        mm = tifffile.memmap(path, mode="r")
-        if mm.shape == shp:
+        with quiet_logger("tifffile"):
+            mm = tifffile.memmap(path, mode="r")
+        if mm.shape == shp and int(mm.offset) + mm.nbytes <= os.path.getsize(path):
             mapping = (int(mm.offset), mm.dtype, "C")
         del mm
-    except (ValueError, OSError):  # compressed or scattered pages: read page by page
+    except Exception:  # noqa: BLE001 - compressed or scattered pages: read page by page
         mapping = None
+    if mapping is None:
+        # the pages of a truncated copy point past the end: reading the last one tells
+        with quiet_logger("tifffile"), decoding(path, "a TIFF stack (its last page is unreadable: truncated?)"):
+            with tifffile.TiffFile(path) as tif:
+                last = tif.asarray(key=shp[0] - 1, series=0)
+        if math.prod(last.shape) != shp[1] * shp[2]:
+            raise InputError(path, f"its last page holds {last.shape!r}, not a {shp[1]}x{shp[2]} frame: "
+                             "the file is truncated or its pages differ")
     return FrameStack(path, "tiff", shp, dt, mapping=mapping, max_bytes=max_bytes)
 
 
@@ -290,20 +324,18 @@ def _candidates_h5(fh):
 def _open_hdf5(path, dtype, shape, dataset, max_bytes):
     import h5py
 
-    try:
+    with decoding(path, "HDF5"):
         fh = h5py.File(path, "r")
-    except OSError as e:
-        raise InputError(path, f"cannot read as HDF5 ({e})") from e
-    with fh:
+    with fh, decoding(path, "an HDF5 frame stack"):
         if dataset is None:
             cands = _candidates_h5(fh)
             if len(cands) != 1:
                 raise InputError(path, f"name the frame dataset with 'dataset'; 3-D numeric datasets "
                                  f"found: {cands!r}")
             dataset = cands[0]
-        if dataset not in fh or not hasattr(fh[dataset], "shape"):
+        d = h5_dataset(path, fh, dataset)
+        if d is None or not hasattr(d, "shape"):
             raise InputError(path, f"has no dataset {dataset!r}; 3-D numeric datasets: {_candidates_h5(fh)!r}")
-        d = fh[dataset]
         shp, dt = tuple(d.shape), d.dtype
         _numeric(dt, path, f"dataset {dataset!r}")
         _need_3d(path, shp, f"dataset {dataset!r}")
@@ -311,20 +343,24 @@ def _open_hdf5(path, dtype, shape, dataset, max_bytes):
         mapping = None
         if d.chunks is None and d.compression is None and not d.is_virtual:
             off = d.id.get_offset()
-            if off is not None:
+            if off is not None and int(off) + math.prod(shp) * dt.itemsize <= os.path.getsize(path):
                 mapping = (int(off), dt, "C")
     return FrameStack(path, "hdf5", shp, dt, dataset=dataset, mapping=mapping, max_bytes=max_bytes)
+
+
+def _nc_kind(var):
+    """dtype kind of a netCDF4 variable ("U" for variable-length strings, whose dtype is ``str``)."""
+    return "U" if var.dtype is str else np.dtype(var.dtype).kind
 
 
 def _open_netcdf(path, dtype, shape, dataset, max_bytes):
     import netCDF4
 
-    try:
+    hdf5_stays_inside(path, "NetCDF")
+    with decoding(path, "NetCDF"):
         ds = netCDF4.Dataset(path, "r")
-    except OSError as e:
-        raise InputError(path, f"cannot read as NetCDF ({e})") from e
-    with ds:
-        cands = [k for k, v in ds.variables.items() if v.ndim == 3 and v.dtype.kind in "iuf"]
+    with ds, decoding(path, "a NetCDF frame stack"):
+        cands = [k for k, v in ds.variables.items() if v.ndim == 3 and _nc_kind(v) in "iuf"]
         if dataset is None:
             if len(cands) != 1:
                 raise InputError(path, f"name the frame variable with 'dataset'; 3-D numeric variables "
@@ -395,9 +431,7 @@ def open_frames(path, *, dtype=None, shape=None, byte_order="little", dataset=No
     >>> st.shape, len(st), st[1:3].shape
     ((5, 4, 3), 5, (2, 4, 3))
     """
-    path = Path(path)
-    if not path.is_file():
-        raise InputError(path, "no such frame file")
+    path = input_file(path, "a frame stack (.npy, .tif, .h5, .nc or raw)", missing="no such frame file")
     if max_bytes is not None:
         max_bytes = int(max_bytes)
         if max_bytes <= 0:

@@ -9,6 +9,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import InputError
+from ._guard import decoding, input_file, quiet_logger
 
 __all__ = ["read_image"]
 
@@ -31,7 +32,14 @@ def _decode_png(path):
     import cv2
 
     raw = np.fromfile(path, dtype=np.uint8)  # imdecode also copes with non-ASCII paths
-    img = cv2.imdecode(raw, cv2.IMREAD_UNCHANGED)
+    # OpenCV prints its own warning on a truncated stream; we report the file ourselves
+    level = cv2.utils.logging.getLogLevel()
+    cv2.utils.logging.setLogLevel(cv2.utils.logging.LOG_LEVEL_ERROR)
+    try:
+        with decoding(path, "a PNG image"):
+            img = cv2.imdecode(raw, cv2.IMREAD_UNCHANGED)
+    finally:
+        cv2.utils.logging.setLogLevel(level)
     if img is None:
         raise InputError(path, "could not be decoded as a PNG image (truncated or corrupt?)")
     if img.ndim == 3:
@@ -48,21 +56,17 @@ def _decode_png(path):
 def _tiff_shape(path):
     import tifffile
 
-    try:
+    with quiet_logger("tifffile"), decoding(path, "a TIFF image"):
         with tifffile.TiffFile(path) as tf:
             series = tf.series[0]
             return tuple(series.shape), np.dtype(series.dtype), len(tf.series)
-    except (tifffile.TiffFileError, ValueError, IndexError, struct.error) as e:
-        raise InputError(path, f"is not a readable TIFF file ({e})") from e
 
 
 def _decode_tiff(path):
     import tifffile
 
-    try:
+    with quiet_logger("tifffile"), decoding(path, "a TIFF image"):
         return tifffile.imread(path, series=0)
-    except (tifffile.TiffFileError, ValueError, struct.error) as e:
-        raise InputError(path, f"could not be decoded as a TIFF image ({e})") from e
 
 
 def _to_grey(path, img):
@@ -107,8 +111,7 @@ def read_image(path, *, max_pixels=100_000_000):
     path = Path(path)
     if isinstance(max_pixels, bool) or not isinstance(max_pixels, Integral) or max_pixels < 1:
         raise ValueError(f"max_pixels: expected a positive integer, got {max_pixels!r}")
-    if not path.is_file():
-        raise InputError(path, "does not exist or is not a file (expected a PNG or TIFF image)")
+    input_file(path, "a PNG or TIFF image")
     kind = _SUFFIXES.get(path.suffix.lower())
     if kind is None:
         raise InputError(path, f"has the suffix {path.suffix!r}; expected one of "

@@ -26,6 +26,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import InputError
+from ._guard import check_bytes, decoding, hdf5_stays_inside, input_file, quiet_logger, text_rows_warning
 
 __all__ = ["read_thermal_maps", "MAP_QUANTITIES"]
 
@@ -71,22 +72,27 @@ def _names(variables, default=MAP_QUANTITIES):
     raise TypeError(f"variables must be a mapping of quantity to name, got {variables!r}")
 
 
-def _read_netcdf(path, variables):
+def _read_netcdf(path, variables, max_bytes):
     import netCDF4
 
     names = _names(variables)
-    try:
+    hdf5_stays_inside(path, "NetCDF")
+    with decoding(path, "NetCDF"):
         ds = netCDF4.Dataset(path, "r")
-    except OSError as e:
-        raise InputError(path, f"cannot read as NetCDF ({e})") from e
     out = {}
-    with ds:
+    with ds, decoding(path, "NetCDF maps"):
         for q, v in names.items():
             if v not in ds.variables:
                 if q in _REQUIRED:
                     raise InputError(path, f"has no variable {v!r} for {q}; variables are {list(ds.variables)!r}")
                 continue
             var = ds.variables[v]
+            kind = "U" if var.dtype is str else np.dtype(var.dtype).kind
+            if kind not in "iuf":
+                raise InputError(path, f"variable {v!r} ({q}) holds {var.dtype}; expected numbers")
+            # the header states the size: check it before reading (a forged or unwritten
+            # variable may claim more than memory)
+            check_bytes(path, var.shape, 8, what=f"variable {v!r}", max_bytes=max_bytes)
             var.set_auto_mask(True)
             data = np.ma.filled(var[...].astype(np.float64), np.nan)
             data = np.squeeze(data)
@@ -96,7 +102,7 @@ def _read_netcdf(path, variables):
     return out
 
 
-def _read_tiff(path, variables):
+def _read_tiff(path, variables, max_bytes):
     import tifffile
 
     order = list(MAP_QUANTITIES) if variables is None else list(variables)
@@ -104,10 +110,14 @@ def _read_tiff(path, variables):
     if unknown or isinstance(variables, Mapping):
         raise ValueError(f"variables for a TIFF is the page order, a list from {list(MAP_QUANTITIES)!r}; "
                          f"got {variables!r}")
-    try:
+    with quiet_logger("tifffile"), decoding(path, "a TIFF of map pages"):
+        with tifffile.TiffFile(path) as tif:
+            shape = tif.series[0].shape
+    check_bytes(path, shape, 8, what="the TIFF map pages", max_bytes=max_bytes)
+    with quiet_logger("tifffile"), decoding(path, "a TIFF of map pages"):
         data = tifffile.imread(path)
-    except (tifffile.TiffFileError, ValueError, OSError) as e:
-        raise InputError(path, f"cannot read as TIFF ({e})") from e
+    if data.dtype.kind not in "iuf":
+        raise InputError(path, f"holds {data.dtype} samples; expected numeric maps")
     if data.ndim != 3:
         raise InputError(path, f"expected one page per quantity ({', '.join(order)}), got shape {data.shape!r}")
     if data.shape[0] < 2 or data.shape[0] > len(order):
@@ -117,22 +127,26 @@ def _read_tiff(path, variables):
 
 
 def _read_grid(path):
-    path = Path(path)
-    if not path.is_file():
-        raise InputError(path, "no such map file")
+    from ._signals import _text_file
+
+    path = _text_file(path, "a headerless numeric grid, one image row per line", missing="no such map file")
     try:
         with open(path, encoding="utf-8-sig") as fh:
             first = next((ln for ln in fh if ln.strip() and not ln.lstrip().startswith("#")), "")
         delim = next((d for d in (",", ";", "\t") if d in first), None)
-        grid = np.loadtxt(path, delimiter=delim, ndmin=2, comments="#", encoding="utf-8-sig")
+        with text_rows_warning():
+            grid = np.loadtxt(path, delimiter=delim, ndmin=2, comments="#", encoding="utf-8-sig")
     except (ValueError, UnicodeDecodeError) as e:
         raise InputError(path, f"expected a headerless numeric grid, one image row per line ({e})") from e
+    if grid.size == 0:
+        raise InputError(path, "is empty; expected a headerless numeric grid, one image row per line")
     return grid
 
 
-def _read_long_csv(path, variables):
-    from ._signals import _header
+def _read_long_csv(path, variables, max_bytes):
+    from ._signals import _header, _text_file
 
+    _text_file(path, "a map table with columns row, col, T0, delta_T")
     line, delim, names = _header(path)
     low = [n.lower() for n in names]
     if "row" not in low or "col" not in low:
@@ -145,15 +159,21 @@ def _read_long_csv(path, variables):
         raise InputError(path, f"has no column {wanted[missing[0]]!r} for {missing[0]}; columns are {names!r}")
     cols = [low.index("row"), low.index("col")] + [names.index(present[q]) for q in present]
     try:
-        data = np.loadtxt(path, delimiter=delim, skiprows=line + 1, usecols=cols, ndmin=2, comments="#",
-                          encoding="utf-8-sig")
+        with text_rows_warning():
+            data = np.loadtxt(path, delimiter=delim, skiprows=line + 1, usecols=cols, ndmin=2, comments="#",
+                              encoding="utf-8-sig")
     except ValueError as e:
         raise InputError(path, f"expected numbers in columns {[names[c] for c in cols]!r} ({e})") from e
+    if data.shape[0] == 0:
+        raise InputError(path, "has a header but no data rows; expected one row per IR pixel")
     rc = data[:, :2]
     if not np.all(np.isfinite(rc)) or np.any(rc < 0) or np.any(rc != np.round(rc)):
         raise InputError(path, "row and col must be non-negative integers (IR pixel indices)")
     r, c = rc[:, 0].astype(np.int64), rc[:, 1].astype(np.int64)
     ny, nx = int(r.max()) + 1, int(c.max()) + 1
+    # the largest index sets the grid: a stray row 100000 would otherwise allocate it
+    check_bytes(path, (len(present), ny, nx), 8, what="the map grid spanned by row and col",
+                max_bytes=max_bytes)
     flat = r * nx + c
     if np.unique(flat).size != flat.size:
         raise InputError(path, "a (row, col) pixel appears twice")
@@ -169,6 +189,12 @@ def _validate(where, maps):
     shapes = {q: m.shape for q, m in maps.items()}
     if len(set(shapes.values())) != 1:
         raise InputError(where, f"maps differ in shape: {shapes!r}")
+    for q, m in maps.items():
+        if np.any(np.isinf(m)):
+            raise InputError(where, f"{q} holds infinite values; expected finite numbers (NaN marks a "
+                             "missing pixel)")
+    if not np.isfinite(maps["delta_T"]).any():
+        raise InputError(where, "delta_T has no finite value (all NaN): expected the temperature range in K")
     T0 = maps["T0"]
     fin = T0[np.isfinite(T0)]
     if fin.size == 0:
@@ -189,7 +215,7 @@ def _validate(where, maps):
                              "NetCDF variable in radians)")
 
 
-def read_thermal_maps(path, *, variables=None) -> dict:
+def read_thermal_maps(path, *, variables=None, max_bytes=None) -> dict:
     """Read precomputed thermal maps.
 
     Parameters
@@ -201,6 +227,9 @@ def read_thermal_maps(path, *, variables=None) -> dict:
     variables : mapping or list, optional
         NetCDF and CSV: ``{quantity: name in the file}`` for names that differ. TIFF: the
         page order, a list of quantities.
+    max_bytes : int, optional
+        Largest map set read into memory (float64 while checked), bytes; default
+        ``fusion.io._guard.MAX_READ_BYTES`` (2 GiB). Checked from headers before reading.
 
     Returns
     -------
@@ -211,8 +240,10 @@ def read_thermal_maps(path, *, variables=None) -> dict:
     Raises
     ------
     InputError
-        Missing required maps, shapes that disagree, units that are not temperatures,
-        T0 outside 100..1000 K (with a hint when it looks like Celsius).
+        Missing, unreadable or corrupt file, missing required maps, shapes that disagree,
+        non-numeric or infinite values, a delta_T without any finite value, units that are
+        not temperatures, T0 outside 100..1000 K (with a hint when it looks like Celsius),
+        or more data than ``max_bytes``.
     """
     if isinstance(path, Mapping):
         unknown = [q for q in path if q not in MAP_QUANTITIES]
@@ -224,16 +255,14 @@ def read_thermal_maps(path, *, variables=None) -> dict:
         maps = {q: _read_grid(p) for q, p in path.items()}
         where = Path(path["T0"])
     else:
-        where = Path(path)
-        if not where.is_file():
-            raise InputError(where, "no such map file")
+        where = input_file(path, "thermal maps (.nc, .tif or .csv)", missing="no such map file")
         suffix = where.suffix.lower()
         if suffix in (".nc", ".nc4", ".cdf"):
-            maps = _read_netcdf(where, variables)
+            maps = _read_netcdf(where, variables, max_bytes)
         elif suffix in (".tif", ".tiff"):
-            maps = _read_tiff(where, variables)
+            maps = _read_tiff(where, variables, max_bytes)
         elif suffix in (".csv", ".txt"):
-            maps = _read_long_csv(where, variables)
+            maps = _read_long_csv(where, variables, max_bytes)
         else:
             raise InputError(where, f"unknown map format {suffix!r}: expected .nc, .tif/.tiff or .csv")
     _validate(where, maps)

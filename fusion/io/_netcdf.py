@@ -7,8 +7,8 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import InputError
 from ._atomic import atomic_path
+from ._guard import decoding, hdf5_stays_inside, input_file
 
 __all__ = ["write_netcdf", "read_netcdf"]
 
@@ -57,11 +57,8 @@ def read_netcdf(path):
     """Open a NetCDF file fully into memory as an :class:`xarray.Dataset`."""
     import xarray as xr
 
-    path = Path(path)
-    if not path.is_file():
-        raise InputError(path, "no such NetCDF file")
-    try:
+    path = input_file(path, "a NetCDF file", missing="no such NetCDF file")
+    hdf5_stays_inside(path, "NetCDF")
+    with decoding(path, "NetCDF"):
         with xr.open_dataset(path, engine="netcdf4") as ds:
             return ds.load()
-    except (OSError, ValueError, RuntimeError) as e:
-        raise InputError(path, f"cannot read as NetCDF ({e})") from e

@@ -10,11 +10,11 @@ triggers, which then define the frame times.
 from __future__ import annotations
 
 import dataclasses
-from pathlib import Path
 
 import numpy as np
 
 from ..errors import InputError
+from ._guard import MAX_READ_BYTES, check_bytes, input_file, npy_header, text_rows_warning
 
 __all__ = ["LoadSignal", "read_load_signal", "read_frame_times"]
 
@@ -68,6 +68,17 @@ class LoadSignal:
             raise InputError(self.path, f"frame column must number the frames 0..{n_frames - 1} once each, "
                              f"in order; found {idx.size} entries")
         return self.times[rows]
+
+
+def _text_file(path, what, *, missing="does not exist"):
+    """A readable regular text file no larger than the read limit (a table of numbers
+    takes several times its size in memory once parsed)."""
+    path = input_file(path, what, missing=missing)
+    size = path.stat().st_size
+    if size > MAX_READ_BYTES // 4:
+        raise InputError(path, f"is {size / 2**20:.0f} MiB, more than the {MAX_READ_BYTES // 4 / 2**20:.0f} "
+                         f"MiB a text table may have; expected {what}")
+    return path
 
 
 def _sniff(line):
@@ -128,9 +139,8 @@ def read_load_signal(path, *, time_column="time", load_column="load", frame_colu
         Missing columns (the message lists those present), non-numeric entries, fewer
         than 8 rows, non-finite values, or times that do not increase strictly.
     """
-    path = Path(path)
-    if not path.is_file():
-        raise InputError(path, "no such load-signal file")
+    path = _text_file(path, "a load-signal table (CSV with columns time, load)",
+                      missing="no such load-signal file")
     line, delim, names = _header(path)
     it = _column(path, names, time_column, "time")
     il = _column(path, names, load_column, "load")
@@ -141,8 +151,9 @@ def read_load_signal(path, *, time_column="time", load_column="load", frame_colu
         cols.append(ifr)
         conv = {ifr: _blank_to_nan}
     try:
-        data = np.loadtxt(path, delimiter=delim, skiprows=line + 1, usecols=cols, ndmin=2, comments="#",
-                          converters=conv, encoding="utf-8-sig", dtype=np.float64)
+        with text_rows_warning():
+            data = np.loadtxt(path, delimiter=delim, skiprows=line + 1, usecols=cols, ndmin=2, comments="#",
+                              converters=conv, encoding="utf-8-sig", dtype=np.float64)
     except ValueError as e:
         raise InputError(path, f"expected numbers in columns {[names[c] for c in cols]!r} ({e})") from e
     if data.shape[0] < _MIN_SAMPLES:
@@ -153,6 +164,10 @@ def read_load_signal(path, *, time_column="time", load_column="load", frame_colu
         if bad.size:
             raise InputError(path, f"column {name!r} has a non-finite value on data row {bad[0] + 1} "
                              "(expected finite numbers)")
+    if np.ptp(v) == 0:
+        # a flat record (a disconnected load cell, the wrong column) has no cycle to lock on to
+        raise InputError(path, f"column {names[il]!r} is constant ({float(v[0])!r}) on all {v.size} rows; "
+                         "expected the cyclic load of the test")
     steps = np.diff(t)
     if np.any(steps <= 0):
         k = int(np.flatnonzero(steps <= 0)[0])
@@ -178,15 +193,17 @@ def read_frame_times(path, *, column="time", n_frames=None) -> np.ndarray:
     (F,) float64 ndarray
         Finite, strictly increasing times, s.
     """
-    path = Path(path)
-    if not path.is_file():
-        raise InputError(path, "no such frame-times file")
+    path = input_file(path, "frame times (.npy, or a text file with one time per line)",
+                      missing="no such frame-times file")
     if path.suffix.lower() == ".npy":
+        shape, _, dtype, _ = npy_header(path)
+        check_bytes(path, shape, dtype.itemsize, what="the frame-time array")
         try:
             t = np.load(path, allow_pickle=False)
-        except ValueError as e:
+        except (ValueError, EOFError, OSError) as e:
             raise InputError(path, f"expected a 1-D numeric array of frame times ({e})") from e
     else:
+        _text_file(path, "frame times (.npy, or a text file with one time per line)")
         line, delim, names = _header(path)
         try:
             float(names[0])
@@ -195,14 +212,17 @@ def read_frame_times(path, *, column="time", n_frames=None) -> np.ndarray:
             first_is_data = False
         col = 0 if first_is_data else _column(path, names, column, "time")
         try:
-            t = np.loadtxt(path, delimiter=delim, skiprows=0 if first_is_data else line + 1, ndmin=1,
-                           comments="#", usecols=col)
+            with text_rows_warning():
+                t = np.loadtxt(path, delimiter=delim, skiprows=0 if first_is_data else line + 1, ndmin=1,
+                               comments="#", usecols=col)
         except ValueError as e:
             raise InputError(path, f"expected numeric frame times ({e})") from e
     t = np.asarray(t)
     if t.ndim != 1 or t.dtype.kind not in "iuf":
         raise InputError(path, f"expected a 1-D list of frame times, got shape {t.shape!r} dtype {t.dtype!s}")
     t = t.astype(np.float64)
+    if t.size == 0:
+        raise InputError(path, "holds no frame times; expected one time in s per frame")
     if n_frames is not None and t.size != int(n_frames):
         raise InputError(path, f"has {t.size} frame times, the stack has {int(n_frames)} frames")
     if not np.all(np.isfinite(t)) or np.any(np.diff(t) <= 0):

@@ -308,6 +308,8 @@ def estimate_frequency(times, values) -> float:
         raise ValueError(f"times and values must be 1-D of equal length >= 8, got {t.shape!r} and {v.shape!r}")
     if not (np.all(np.isfinite(t)) and np.all(np.isfinite(v))) or np.any(np.diff(t) <= 0):
         raise ValueError("times must be finite and strictly increasing, values finite")
+    if not np.ptp(v) > 1e-12 * max(1.0, float(np.max(np.abs(v)))):
+        raise ValueError("the signal is constant: no loading cycle to find a frequency in")
     t = t - t[0]
     span = t[-1]
     v = v - np.polyval(np.polyfit(t, v, 1), t)
