@@ -2,77 +2,544 @@
 
 Each task is :func:`fusion.pipeline.process_run` with plain arguments (config path,
 run name, output folder), so it pickles to any worker; the worker reads the
-config and the inputs itself. Inputs must therefore be visible to the workers
-at the same paths (a shared file system for a remote cluster).
+config and the inputs itself. Inputs and the output folder must therefore be
+visible to the workers at the same paths (a shared file system for a remote
+cluster); :func:`schedule_runs` checks that on every worker before submitting.
+Runs that already have a result with the same stamp are not sent at all.
+
+How many runs at once
+---------------------
+``workers`` defaults to ``os.cpu_count()`` and is then limited by the runs to do
+and by memory: ``min(workers, runs, max(1, available // (memory_budget +
+WORKER_BASELINE)))``, where ``available`` is the memory the operating system
+reports as available and ``WORKER_BASELINE`` what a worker holds besides its frame
+chunks. With more than one, Dask's local scheduler feeds that many spawned worker
+processes, each run's numba kernels on ``max(1, cores // workers)`` threads so that
+workers do not fight over cores. Worker processes exit when the campaign process
+dies; when one dies, the runs in flight fail and the others go on. The ``threads``
+kind runs one run at a time: the netCDF/HDF5 library and numba's default thread
+pool are not safe for two runs in one process. A dask.distributed cluster sets its
+own concurrency (threads per worker); its memory limits are only checked.
+
+Progress
+--------
+With ``progress=True`` and a terminal on stderr, one campaign bar is drawn and
+redrawn as runs finish (a line per finished run is printed above it); runs
+processed one after the other also draw the bars of their long steps (the
+lock-in). Otherwise each run gives exactly one log line when it finishes.
 """
 
 from __future__ import annotations
 
 import logging
+import math
 import os
+import re
+import sys
+import threading
+import time
+import uuid
 from pathlib import Path
 
 log = logging.getLogger(__name__)
 
-__all__ = ["schedule_runs"]
+__all__ = ["schedule_runs", "plan_workers", "available_memory", "WORKER_BASELINE", "CONNECT_TIMEOUT"]
+
+#: Memory of a worker process that has run once, before it touches the next run's frames,
+#: bytes: interpreter, libraries, compiled kernels, plus the per-pixel maps of a run (the
+#: resident set measured by tests/test_memory_budget.py was 330 MB + 20 to 37 MB).
+WORKER_BASELINE = 400e6
+#: Seconds to wait for a dask.distributed scheduler before giving up.
+CONNECT_TIMEOUT = 10.0
+
+_KINDS = ("synchronous", "threads", "processes")
+_ADDRESS = re.compile(r"(tcp|tls|inproc|ucx)://\S+")
 
 
-def _log_outcome(o, i, n):
+# --------------------------------------------------------------------------- sizing
+def available_memory() -> int | None:
+    """Memory available to new processes, bytes (None when the system does not say)."""
+    try:
+        import psutil  # a dependency of distributed
+
+        return int(psutil.virtual_memory().available)
+    except (ImportError, OSError, AttributeError):
+        pass
+    try:
+        with open("/proc/meminfo") as fh:
+            for line in fh:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    except (OSError, ValueError, IndexError):
+        pass
+    return None
+
+
+def plan_workers(requested, n_runs, memory_budget, *, available=None, cores=None):
+    """Runs processed at once on this machine, and why.
+
+    Parameters
+    ----------
+    requested : int or None
+        ``[compute] workers`` or ``--workers``; None means every core.
+    n_runs : int
+        Runs to process.
+    memory_budget : float
+        ``[compute] memory_budget`` of one run, bytes.
+    available : float, optional
+        Available memory, bytes (default: :func:`available_memory`; None if unknown).
+    cores : int, optional
+        Cores of the machine (default ``os.cpu_count()``).
+
+    Returns
+    -------
+    workers : int
+        ``min(requested, n_runs, max(1, available // (memory_budget + WORKER_BASELINE)))``, >= 1.
+    reason : str
+        Which limit decided, for the log.
+    """
+    cores = int(cores or os.cpu_count() or 1)
+    if requested is not None and (isinstance(requested, bool) or int(requested) != requested or requested < 1):
+        raise ValueError(f"workers must be a positive integer, got {requested!r}")
+    if not (isinstance(memory_budget, (int, float)) and math.isfinite(memory_budget) and memory_budget > 0):
+        raise ValueError(f"memory_budget must be a positive number of bytes, got {memory_budget!r}")
+    want = int(requested) if requested is not None else cores
+    reason = "[compute] workers" if requested is not None else f"{cores} cores"
+    limits = [(want, reason), (max(int(n_runs), 1), f"{n_runs} runs")]
+    if available is not None:
+        per_run = float(memory_budget) + WORKER_BASELINE
+        fit = max(1, int(float(available) // per_run))
+        limits.append((fit, f"{_size(available)} available for {_size(per_run)} per run "
+                            f"([compute] memory_budget {_size(memory_budget)} + worker)"))
+    workers, reason = min(limits, key=lambda x: x[0])
+    return workers, reason
+
+
+def _size(b) -> str:
+    return f"{b / 1e9:.3g} GB" if b >= 1e9 else f"{b / 1e6:.3g} MB"
+
+
+# --------------------------------------------------------------------------- progress
+class _CampaignBar:
+    """A one-line campaign bar on stderr that lets whole lines be printed above it."""
+
+    def __init__(self, total, enabled, stream=None):
+        self.stream = stream if stream is not None else sys.stderr
+        self.enabled = bool(enabled) and hasattr(self.stream, "isatty") and self.stream.isatty()
+        self.total, self.done, self.failed = total, 0, 0
+        self.t0 = time.perf_counter()
+        self._lock = threading.Lock()
+        self._shown = False
+
+    def _line(self):
+        width = 24
+        fill = int(width * self.done / max(self.total, 1))
+        failed = f", {self.failed} failed" if self.failed else ""
+        return (f"campaign [{'#' * fill}{'.' * (width - fill)}] {self.done}/{self.total} runs{failed}, "
+                f"{time.perf_counter() - self.t0:.0f} s")
+
+    def draw(self):
+        if self.enabled:
+            with self._lock:
+                self.stream.write("\r" + self._line() + "\x1b[K")
+                self.stream.flush()
+                self._shown = True
+
+    def clear(self):
+        """Erase the bar (a line is about to be printed in its place)."""
+        if self.enabled and self._shown:
+            with self._lock:
+                self.stream.write("\r\x1b[K")
+                self.stream.flush()
+                self._shown = False
+
+    def freeze(self):
+        """Leave the bar as it is and move below it, where a step draws its own bar."""
+        if not self._shown:
+            self.draw()
+        if self.enabled:
+            with self._lock:
+                self.stream.write("\n")
+                self.stream.flush()
+                self._shown = False
+
+    def note(self, text):
+        """Print ``text`` as a line above the bar."""
+        self.clear()
+        if self.enabled:
+            with self._lock:
+                self.stream.write(text + "\n")
+        self.draw()
+
+    def advance(self, outcome):
+        self.done += 1
+        self.failed += outcome.status == "failed"
+
+    def close(self):
+        if self.enabled and self._shown:
+            with self._lock:
+                self.stream.write("\n")
+                self.stream.flush()
+                self._shown = False
+
+
+def _describe(o, i, n):
     if o.status == "failed":
-        log.warning("[%d/%d] %s failed: %s", i, n, o.name, o.error)
-    else:
-        log.info("[%d/%d] %s %s (%.1f s)", i, n, o.name, o.status, o.seconds)
+        return f"[{i}/{n}] {o.name} failed: {o.error}"
+    if o.status == "skipped":
+        return f"[{i}/{n}] {o.name} skipped (unchanged since its last result)"
+    return f"[{i}/{n}] {o.name} {o.status} ({o.seconds:.1f} s)"
 
 
-def schedule_runs(cfg, runs, out, *, overwrite=False, scheduler=None, workers=None, progress=False):
-    """Process ``runs`` and return their :class:`~fusion.pipeline.RunOutcome` in config order."""
+class _Report:
+    """Outcomes in config order, one line per finished run (log line, or above the bar)."""
+
+    def __init__(self, names, progress):
+        self.names = list(names)
+        self.index = {name: i for i, name in enumerate(self.names)}
+        self.outcomes = [None] * len(self.names)
+        self.bar = _CampaignBar(len(self.names), progress)
+        self.count = 0
+
+    def add(self, outcome):
+        i = self.index[outcome.name]
+        if self.outcomes[i] is not None:
+            return
+        self.outcomes[i] = outcome
+        self.count += 1
+        self.bar.advance(outcome)
+        text = _describe(outcome, self.count, len(self.names))
+        if self.bar.enabled:
+            log.debug("%s", text)
+            self.bar.note(text)
+        elif outcome.status == "failed":
+            log.warning("%s", text)
+        else:
+            log.info("%s", text)
+
+    def missing(self):
+        return [n for n, o in zip(self.names, self.outcomes) if o is None]
+
+
+# --------------------------------------------------------------------------- tasks
+def _task(config_path, run_name, out, overwrite, threads):
+    """One run on a worker: numba threads sized to the worker's share of the cores."""
+    import numba
+
     from .pipeline import process_run
 
-    n = len(runs)
-    if n == 0:
-        return []
-    workers = workers or os.cpu_count() or 1
-    remote = scheduler is not None and "://" in scheduler
-    if not remote and (scheduler == "synchronous" or workers == 1 or n == 1 or cfg.path is None):
-        outcomes = []
-        for i, run in enumerate(runs, 1):
-            log.info("[%d/%d] %s ...", i, n, run.name)
-            o = process_run(cfg.path, run.name, out, overwrite=overwrite, progress=progress, config=cfg)
-            _log_outcome(o, i, n)
-            outcomes.append(o)
-        return outcomes
+    if threads is None:
+        threads = _distributed_threads()
+    if threads is not None:
+        numba.set_num_threads(max(1, min(int(threads), numba.config.NUMBA_NUM_THREADS)))
+    return process_run(config_path, run_name, out, overwrite=overwrite)
 
-    args = [(str(cfg.path.resolve()), r.name, str(Path(out).resolve())) for r in runs]
+
+def _distributed_threads():
+    try:
+        from distributed import get_worker
+
+        return max(1, (os.cpu_count() or 1) // max(1, get_worker().state.nthreads))
+    except (ImportError, ValueError, AttributeError):
+        return None
+
+
+def _watch_parent(parent_pid, period=0.25):
+    """Exit this worker process when the campaign process is gone (killed with SIGKILL, say).
+
+    A worker orphaned by ``kill -9`` would otherwise go on computing a run that no one
+    waits for, and race the next ``fusion run`` on the same output folder.
+    """
+    while True:
+        if os.getppid() != parent_pid:
+            os._exit(1)
+        time.sleep(period)
+
+
+def _worker_init(parent_pid):
+    threading.Thread(target=_watch_parent, args=(parent_pid,), daemon=True, name="fusion-parent-watch").start()
+
+
+def _already_done(cfg, run, out):
+    """The outcome "skipped" when the run's folder holds a result with the same stamp, else None.
+
+    Checked here so that a resumed batch sends no task (and starts no worker) for a
+    finished run; :func:`fusion.pipeline.process_run` makes the same check again.
+    """
+    from .errors import FusionError
+    from .io import safe_child
+    from .pipeline import RunOutcome, _read_stamp, _read_summary, run_stamp
+
+    try:
+        folder = safe_child(Path(out), run.name)
+        if folder.is_symlink() or not folder.is_dir() or not (folder / "result.nc").is_file():
+            return None
+        if _read_stamp(folder) != run_stamp(cfg, run):
+            return None
+    except (FusionError, OSError):
+        return None  # the task reports the problem with the run
+    return RunOutcome(run.name, "skipped", folder, summary=_read_summary(folder))
+
+
+# --------------------------------------------------------------------------- entry
+def schedule_runs(cfg, runs, out, *, overwrite=False, scheduler=None, workers=None, progress=False):
+    """Process ``runs`` and return their :class:`~fusion.pipeline.RunOutcome` in config order.
+
+    Parameters
+    ----------
+    cfg : fusion.config.Config
+        The loaded campaign config (its ``path`` is what workers read).
+    runs : list of fusion.config.RunSpec
+        The runs to process.
+    out : path
+        Output folder (exists; the caller holds its lock).
+    overwrite : bool
+        Recompute runs that have a result already.
+    scheduler : str, optional
+        ``"synchronous"`` (in this process, one run after the other; ``"threads"`` is
+        the same, see the module notes), ``"processes"`` (Dask's local scheduler over
+        worker processes) or the address of a dask.distributed
+        scheduler (``tcp://HOST:PORT``). Default: ``"processes"`` when more than one
+        run can go at once, else ``"synchronous"``.
+    workers : int, optional
+        Runs at once on this machine (default: cores, limited by memory; see
+        :func:`plan_workers`).
+    progress : bool
+        Campaign bar and step bars on a terminal (see the module notes).
+
+    Returns
+    -------
+    list of RunOutcome
+        One per run, in the order of ``runs``. Never raises for a failed run; a worker
+        process that dies (out of memory, killed) fails the runs in flight at that moment.
+
+    Raises
+    ------
+    fusion.errors.ConfigError
+        An unknown scheduler kind.
+    fusion.errors.InputError
+        The distributed scheduler cannot be reached, or a worker cannot see the config
+        or the output folder at the same path.
+    """
+    from .errors import ConfigError
+
+    if scheduler is not None and scheduler not in _KINDS and not _ADDRESS.fullmatch(str(scheduler)):
+        raise ConfigError("--scheduler", f"{scheduler!r} is not a scheduler: expected tcp://HOST:PORT, "
+                          "'processes', 'threads' or 'synchronous'")
+    report = _Report([r.name for r in runs], progress)
+    todo = []
+    for run in runs:
+        done = None if overwrite else _already_done(cfg, run, out)
+        if done is not None:
+            report.add(done)
+        else:
+            todo.append(run)
+    try:
+        if todo:
+            _dispatch(cfg, todo, Path(out), report, overwrite=overwrite, scheduler=scheduler,
+                      workers=workers, progress=progress)
+    finally:
+        report.bar.close()
+    return report.outcomes
+
+
+def _dispatch(cfg, todo, out, report, *, overwrite, scheduler, workers, progress):
+    remote = scheduler is not None and scheduler not in _KINDS
     if remote:
-        return _distributed(scheduler, args, overwrite)
+        return _distributed(scheduler, cfg, todo, out, report, overwrite)
+    n, reason = plan_workers(workers, len(todo), cfg.compute.memory_budget, available=available_memory())
+    if scheduler == "threads" and n > 1:
+        # HDF5 (netCDF4) and numba's default thread pool crash when two runs share a process
+        log.warning("scheduler 'threads' processes one run at a time (the netCDF/HDF5 library and "
+                    "the numba kernels are not safe side by side in one process); use 'processes'")
+        n = 1
+    if scheduler in ("synchronous", "threads") or n == 1 or cfg.path is None:
+        if workers not in (None, 1) and n == 1 and scheduler is None:
+            log.info("processing %d runs one at a time (%s)", len(todo), reason)
+        return _sequential(cfg, todo, out, report, overwrite=overwrite, progress=progress)
+    log.info("processing %d runs on %d local worker processes (%s)", len(todo), n, reason)
+    return _local(cfg, todo, out, report, n=n, overwrite=overwrite)
+
+
+def _sequential(cfg, todo, out, report, *, overwrite, progress):
+    from .pipeline import process_run
+
+    for run in todo:
+        log.debug("%s ...", run.name)
+        report.bar.freeze()  # the run's step bars (lock-in) draw on the next line
+        o = process_run(cfg.path, run.name, out, overwrite=overwrite, progress=progress, config=cfg)
+        report.add(o)
+
+
+def _preload_products():
+    """Import what the campaign products need (report, sweep fit) while the workers compute.
+
+    The runs go to worker processes, so this process would otherwise meet these imports
+    only after the last run, as a serial tail of a few seconds.
+    """
+    import importlib
+
+    for name in ("xarray", "netCDF4", "matplotlib.figure", "matplotlib.backends.backend_agg",
+                 "fusion.io", "fusion.mechanics", "fusion.report", "fusion._campaign"):
+        try:
+            importlib.import_module(name)
+        except Exception:  # only a head start: the products import (and report) it again later
+            log.debug("preloading %s failed", name, exc_info=True)
+
+
+def _process_pool(n):
+    import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor
+
+    # spawn, not fork: the numba thread pool and open files of this process are not fork-safe
+    return ProcessPoolExecutor(n, mp_context=multiprocessing.get_context("spawn"),
+                               initializer=_worker_init, initargs=(os.getpid(),))
+
+
+def _local(cfg, todo, out, report, *, n, overwrite):
+    """Runs on Dask's local scheduler over ``n`` spawned worker processes.
+
+    Runs are processed in worker processes only, although this process could take one
+    and save a process start: a run that crashes its process (a C library on a damaged
+    file, the out-of-memory killer) then fails, with the runs in flight beside it,
+    instead of ending the campaign.
+    """
     import dask
+    from concurrent.futures.process import BrokenProcessPool
+    from dask.callbacks import Callback
 
-    tasks = [dask.delayed(process_run, pure=False)(c, name, o, overwrite=overwrite) for c, name, o in args]
-    kind = "threads" if scheduler == "threads" else "processes"
-    log.info("processing %d runs on %d local %s", n, min(workers, n), kind)
-    outcomes = list(dask.compute(*tasks, scheduler=kind, num_workers=min(workers, n)))
-    for i, o in enumerate(outcomes, 1):
-        _log_outcome(o, i, n)
-    return outcomes
+    from .pipeline import RunOutcome
+
+    config_path, out_s = str(Path(cfg.path).resolve()), str(out.resolve())
+    threads = max(1, (os.cpu_count() or 1) // n)
+    threading.Thread(target=_preload_products, daemon=True, name="fusion-preload").start()
+    remaining = list(todo)
+    while remaining:
+        keys = {f"fusion-run-{i}": r for i, r in enumerate(remaining)}
+        tasks = [dask.delayed(_task, pure=False)(config_path, r.name, out_s, overwrite, threads, dask_key_name=k)
+                 for k, r in keys.items()]
+        started = set()
+
+        def pretask(key, dsk, state):
+            started.add(key)
+
+        def posttask(key, result, dsk, state, worker_id):
+            report.add(result)
+
+        report.bar.draw()
+        pool = _process_pool(min(n, len(remaining)))
+        try:
+            with Callback(pretask=pretask, posttask=posttask):
+                # chunksize 1: a free worker takes the next run (dask's default sends batches of 6)
+                dask.compute(*tasks, scheduler="processes", pool=pool, chunksize=1)
+        except BrokenProcessPool:
+            # one worker died and the pool stopped the others: the runs in flight are lost
+            # (each leaves at most a hidden partial folder); the runs not started go on
+            missing = set(report.missing())
+            for key in sorted(started):
+                if keys[key].name in missing:
+                    report.add(RunOutcome(keys[key].name, "failed", error="a worker process died while "
+                                          "processing this run (killed, or out of memory: lower [compute] "
+                                          "memory_budget or --workers); rerun to retry"))
+            log.warning("a worker process died; the runs not started go on in new worker processes")
+        except BaseException:
+            # interrupted: stop the workers now rather than after their current run (partial
+            # folders are hidden and removed when the campaign runs next)
+            for proc in list((getattr(pool, "_processes", None) or {}).values()):
+                proc.terminate()
+            raise
+        finally:
+            pool.shutdown(wait=True, cancel_futures=True)
+        missing = set(report.missing())
+        remaining = [r for r in remaining if r.name in missing]
 
 
-def _distributed(address, args, overwrite):
+# --------------------------------------------------------------------------- distributed
+def _one_line(e) -> str:
+    return " ".join(str(e).split()) or type(e).__name__
+
+
+def _connect(address):
     from distributed import Client
 
     from .errors import InputError
-    from .pipeline import process_run
 
     try:
-        client = Client(address, timeout="10s", set_as_default=False)
-    except (OSError, TimeoutError) as e:
-        raise InputError(address, f"cannot reach the Dask scheduler ({e}); check the address "
-                         "(tcp://HOST:PORT) and that the scheduler is running") from e
+        return Client(address, timeout=CONNECT_TIMEOUT, set_as_default=False)
+    except (OSError, TimeoutError, ValueError) as e:
+        raise InputError(address, f"cannot reach the Dask scheduler ({_one_line(e)}); check the "
+                         "address (tcp://HOST:PORT) and that the scheduler is running") from e
+
+
+def _probe(config_path, config_sha256, out):
+    """On a worker: None when the config and the output folder are visible as on the client."""
+    import hashlib
+
+    from .pipeline import LOCK_NAME
+
+    p = Path(config_path)
+    try:
+        text = p.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError):
+        return f"cannot read the config {config_path}"
+    if hashlib.sha256(text.encode("utf-8")).hexdigest() != config_sha256:
+        return f"sees another file at {config_path} (it differs from the client's config)"
+    o = Path(out)
+    if not (o / LOCK_NAME).is_file():
+        return f"cannot see the output folder {out}"
+    if not os.access(o, os.W_OK):
+        return f"cannot write to the output folder {out}"
+    return None
+
+
+def _check_workers(client, cfg, out):
+    from .errors import InputError
+
+    answers = client.run(_probe, str(Path(cfg.path).resolve()), cfg.sha256, str(out))
+    if not answers:
+        raise InputError(client.scheduler.address, "the Dask cluster has no workers")
+    bad = {w: why for w, why in answers.items() if why}
+    if bad:
+        w, why = next(iter(sorted(bad.items())))
+        more = f" (and {len(bad) - 1} more workers)" if len(bad) > 1 else ""
+        raise InputError(cfg.path, f"Dask worker {w} {why}{more}: the config, its input files and the "
+                         "output folder must be visible to every worker at the same path (a shared "
+                         "file system)")
+    per_run = cfg.compute.memory_budget + WORKER_BASELINE
+    for w, info in client.scheduler_info().get("workers", {}).items():
+        limit = info.get("memory_limit") or 0
+        threads = max(1, int(info.get("nthreads") or 1))
+        if limit and limit / threads < per_run:
+            log.warning("Dask worker %s has %s per thread, less than the %s a run needs "
+                        "([compute] memory_budget + worker); lower memory_budget or threads per worker",
+                        w, _size(limit / threads), _size(per_run))
+    return len(answers)
+
+
+def _distributed(address, cfg, todo, out, report, overwrite):
+    from distributed import as_completed
+
+    from .errors import InputError
+
+    if cfg.path is None:
+        raise InputError(address, "a Dask cluster needs the config as a file the workers can read")
+    client = _connect(address)
     with client:
-        futures = [client.submit(process_run, c, name, o, overwrite=overwrite, pure=False,
-                                 key=f"fusion-run-{name}") for c, name, o in args]
-        outcomes = client.gather(futures)
-    for i, o in enumerate(outcomes, 1):
-        if o.status == "failed" and "does not exist" in (o.error or ""):
-            o.error += " (inputs must be visible to the Dask workers at the same path)"
-        _log_outcome(o, i, len(outcomes))
-    return outcomes
+        n = _check_workers(client, cfg, out)
+        log.info("processing %d runs on the Dask cluster at %s (%d workers)", len(todo), address, n)
+        token = uuid.uuid4().hex[:8]  # two campaigns on one cluster never share task keys
+        config_path = str(Path(cfg.path).resolve())
+        futures = {client.submit(_task, config_path, r.name, str(out.resolve()), overwrite, None,
+                                 key=f"fusion-run-{r.name}-{token}", pure=False): r.name for r in todo}
+        report.bar.draw()
+        for fut in as_completed(futures, loop=client.loop):
+            try:
+                o = fut.result()
+            except Exception as e:  # a lost worker (KilledWorker), or a task that cannot unpickle
+                from .pipeline import RunOutcome
+
+                o = RunOutcome(futures[fut], "failed", error=f"the Dask worker failed ({_one_line(e)}); "
+                               "rerun to retry")
+            if o.status == "failed" and "does not exist" in (o.error or ""):
+                o.error += " (inputs must be visible to the Dask workers at the same path)"
+            report.add(o)

@@ -138,6 +138,11 @@ class CompensatedFrames:
             out = np.empty((len(idx),) + self.shape[1:], np.float32)
             for k, i in enumerate(idx):
                 out[k] = self._warp(src[k], self.load_delta[i])
+            # a block of a memory-mapped stack: drop its pages from the resident set now that it
+            # is warped, so streaming a stack larger than memory stays within its chunk budget
+            from ._kernels import _release
+
+            _release(src)
         return out[(Ellipsis,) + rest] if rest else out
 
     def __iter__(self):
