@@ -254,12 +254,17 @@ class DiagnosisSpec:
 class ComputeSpec:
     """Where and how runs are computed."""
 
-    workers: int = key(s.integer(low=1, high=1024), "Runs processed at once (default: cores).")
+    workers: int = key(s.integer(low=1, high=1024), "Runs processed at once (default: the cores, "
+                       "limited to available memory / (memory_budget + 400 MB)).")
     memory_budget: float = key(s.quantity("B", positive=True), "Memory a run may use for frame "
                                "chunks.", unit="B", default=2e9)
     scheduler: str = key(s.string(pattern=r"(tcp|tls|inproc)://\S+|processes|threads|synchronous",
                                   hint="expected tcp://HOST:PORT, 'processes', 'threads' or 'synchronous'"),
-                         "Dask scheduler: 'threads', 'processes', 'synchronous' or tcp://HOST:PORT.")
+                         "Dask scheduler: 'processes' (local worker processes, the default for more "
+                         "than one run), 'synchronous' (one by one in this process), 'threads' (runs "
+                         "one at a time: the file libraries are not safe side by side in one process) "
+                         "or tcp://HOST:PORT of a dask.distributed cluster whose workers see the same "
+                         "paths.")
 
 
 @dataclass(frozen=True)
