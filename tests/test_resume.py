@@ -18,57 +18,13 @@ import xarray as xr
 from fusion.config import load_config
 from fusion.pipeline import run_campaign, run_stamp
 
-ROOT = Path(__file__).resolve().parents[1]
-ROWS, COLS = 40, 48
-T0, SIGMA, FREQ, RATE, FRAMES = 295.0, 0.02, 5.0, 50.0, 600
+from _campaigns import ROOT, write_campaign, write_stack  # noqa: E402  (shared synthetic campaign)
+
 AMPLITUDES = (-0.10, -0.12, -0.14, -0.16, -0.18, -0.20)     # K, signed dT of runs R0..R5
 
 
-def _write_stack(path, amp, rng):
-    t = np.arange(FRAMES) / RATE
-    wave = T0 + 0.5 * amp * np.cos(2 * np.pi * FREQ * t)
-    np.save(path, (wave[:, None, None] + SIGMA * rng.standard_normal((FRAMES, ROWS, COLS))).astype(np.float32))
-
-
 def _write_campaign(folder, rng):
-    """Runs R0..R5: frames T0 + (dT/2) cos(2 pi f t) + noise, a load in phase, uniform strain ranges."""
-    folder.mkdir(parents=True)
-    t = np.arange(FRAMES) / RATE
-    np.savetxt(folder / "load.csv", np.column_stack([t, 11.0 + 4.5 * np.cos(2 * np.pi * FREQ * t)]),
-               delimiter=",", header="time,load", comments="")
-    x, y = (a.ravel() for a in np.meshgrid(np.arange(0, 24, 0.5), np.arange(0, 20, 0.5)))
-    np.savetxt(folder / "strain.csv", np.column_stack([x, y, np.full(x.size, -0.6e-3), np.full(x.size, 2.0e-3),
-                                                       np.zeros(x.size)]),
-               delimiter=",", header="x,y,exx,eyy,gxy", comments="")
-    text = f'''material_library = "{(ROOT / "configs" / "materials.toml").as_posix()}"
-[laminate]
-layup = "[0/90]s"
-ply_material = "carbon_epoxy"
-ply_thickness = "0.25 mm"
-zero_direction = "90 deg"
-[registration]
-method = "affine"
-dic_points = [[0.0, 0.0], [20.0, 0.0], [0.0, 15.0], [20.0, 15.0]]
-ir_points = [[0.0, 39.0], [40.0, 39.0], [0.0, 9.0], [40.0, 9.0]]
-[output]
-figures = false
-'''
-    for k, amp in enumerate(AMPLITUDES):
-        _write_stack(folder / f"ir{k}.npy", amp, rng)
-        text += f'''
-[[run]]
-name = "R{k}"
-frequency = "{FREQ} Hz"
-[run.thermal]
-frames = "ir{k}.npy"
-frame_rate = "{RATE} Hz"
-load = "load.csv"
-[run.dic]
-strain_ranges = "strain.csv"
-coordinates = "mm"
-'''
-    (folder / "c.toml").write_text(text)
-    return folder / "c.toml"
+    return write_campaign(folder, AMPLITUDES, rng=rng)
 
 
 def _stat(pid):
@@ -177,7 +133,7 @@ def test_changed_input_or_run_section_is_not_skipped(tmp_path, rng):
 
     # new frames for R1 (another amplitude, so another size-and-time identity), a new note in R2's section
     new_amp = -0.30
-    _write_stack(tmp_path / "data" / "ir1.npy", new_amp, rng)
+    write_stack(tmp_path / "data" / "ir1.npy", new_amp, rng)
     os.utime(tmp_path / "data" / "ir1.npy", ns=(time.time_ns(), time.time_ns() + 10**9))
     text = cfg_path.read_text().replace('name = "R2"\n', 'name = "R2"\ndescription = "re-gripped"\n')
     cfg_path.write_text(text)
