@@ -203,6 +203,66 @@ def test_int16_counts_fitted_directly_without_float_copy(rng):
         np.testing.assert_allclose(getattr(got, name), getattr(expect, name), rtol=2e-5, atol=1e-6)
 
 
+def _lstsq_maps(frames, t, f):
+    """delta_T and residual std per pixel from numpy.linalg.lstsq in float64 (the reference)."""
+    _, X = ls_covariance(t, f, 0.0)
+    Y = frames.reshape(frames.shape[0], -1).astype(np.float64)
+    beta, res, *_ = np.linalg.lstsq(X, Y, rcond=None)
+    return (2 * beta[2]).reshape(frames.shape[1:]), np.sqrt(res / (t.size - 6)).reshape(frames.shape[1:])
+
+
+def test_float32_work_matches_float64_lstsq_with_large_drift_and_signal(rng):
+    # 2 K range and a 5 K drift in 20 mK noise: the offsets reach ~3.5 K while the residual
+    # is 2e-4 K^2 per frame. The sub-block reference keeps the drift out of the products.
+    n, fs, f = 1500, 100.0, 7.0
+    t = np.arange(n) / fs
+    frames = forward(t, (16, 16), rng, dT=-2.0, drift=5.0 / t[-1], f=f, phi=0.0, sigma=0.02,
+                     dtype=np.float32)
+    r = lockin(frames, frame_rate=fs, frequency=f)
+    assert not any("float64" in w for w in r.warnings)
+    dT, s = _lstsq_maps(frames, t, f)
+    # coefficients: 1e-3 of their standard error, plus the float32 rounding of a 2 K output
+    assert np.max(np.abs(r.delta_T - dT) / r.delta_T_std) < 1e-3 + 2.4e-7 / r.delta_T_std.min()
+    # noise: 6e-8 / rho with rho = 4e-4 / ~2 K^2 -> ~3e-4 (lockin Notes)
+    np.testing.assert_allclose(r.residual_std, s, rtol=1e-3)
+
+
+def test_refits_in_float64_when_float32_cannot_resolve_the_noise(rng):
+    # 5 K range in 2 mK noise (rho ~ 1e-6): float32 sums would miss the residual by ~5 %
+    n, fs, f = 1000, 100.0, 7.0
+    t = np.arange(n) / fs
+    frames = forward(t, (8, 8), rng, dT=-5.0, f=f, phi=0.0, sigma=0.002, dtype=np.float32)
+    r = lockin(frames, frame_rate=fs, frequency=f)
+    assert any("refitted in float64" in w for w in r.warnings)
+    dT, s = _lstsq_maps(frames, t, f)
+    np.testing.assert_allclose(r.residual_std, s, rtol=1e-5)
+    np.testing.assert_allclose(r.delta_T, dT, rtol=1e-6)
+    forced = lockin(frames, frame_rate=fs, frequency=f, precision="float64")
+    assert not any("refitted" in w for w in forced.warnings)
+    np.testing.assert_array_equal(forced.residual_std, r.residual_std)
+    with pytest.raises(ValueError, match="precision must be 'auto' or 'float64'"):
+        lockin(frames, frame_rate=fs, frequency=f, precision="half")
+
+
+@pytest.mark.parametrize("dtype", [np.uint8, np.int8, np.uint16, np.int32, np.uint32, np.float16])
+def test_every_stored_dtype_matches_its_float64_copy(dtype, rng):
+    temps = forward(np.arange(333) / 40.0, (6, 5), rng, f=6.0, phi=0.0, sigma=0.05)
+    if np.dtype(dtype).kind in "iu":   # counts of 0.02 K (8 bit) or 0.004 K, inside the type's range
+        info = np.iinfo(dtype)
+        mid = min((int(info.min) + int(info.max)) // 2, 2**20)
+        values = np.round((temps - 295.0) / (0.02 if info.bits == 8 else 0.004) + mid).astype(dtype)
+    else:
+        values = temps.astype(dtype)
+    got = lockin(values, frame_rate=40.0, frequency=6.0)
+    ref = lockin(values.astype(np.float64), frame_rate=40.0, frequency=6.0)
+    sd = ref.delta_T_std
+    for name in ("T0", "delta_T", "delta_T_quadrature", "second_harmonic"):
+        # 1e-4 of a standard error, and the float32 rounding of the output (T0 ~ 295)
+        err = np.abs(getattr(got, name) - getattr(ref, name))
+        assert np.all(err <= 1e-4 * sd + 4e-7 * np.abs(getattr(ref, name))), name
+    np.testing.assert_allclose(got.delta_T_std, sd, rtol=1e-4)
+
+
 def test_load_on_own_clock_gives_reference_phase_and_lag(rng):
     f, delay, K = 10.0, 0.002, 0.1                  # 2 ms thermal delay = 7.2 degrees at 10 Hz
     tl = np.arange(-0.5, 21.0, 1e-3)                # load at 1 kHz, starting before the frames
@@ -231,9 +291,12 @@ def test_dask_array_matches_numpy(rng):
     for chunks in [(50, -1, -1), (64, 4, 5)]:       # the second is rechunked to whole frames
         got = lockin(da.from_array(frames, chunks=chunks), frame_rate=40.0, frequency=6.0,
                      saturation=1e9)
-        for name in ("T0", "delta_T", "delta_T_quadrature", "delta_T_std", "second_harmonic"):
-            # block sums added in a different order: float64 rounding, far below float32
+        for name in ("T0", "delta_T", "delta_T_quadrature", "second_harmonic"):
+            # float32 sub-block sums over other blocks: ~1e-7 of the values
             np.testing.assert_allclose(getattr(got, name), getattr(ref, name), rtol=1e-6, atol=1e-7)
+        # the residual carries the sums' rounding divided by residual / sum of squares
+        # (rho ~ 2e-3 here: 0.8 K range in 20 mK noise), so ~3e-5 each way (lockin Notes)
+        np.testing.assert_allclose(got.delta_T_std, ref.delta_T_std, rtol=2e-4)
 
 
 def test_memmap_and_odd_chunks_match_in_memory(rng, tmp_path):
@@ -260,9 +323,11 @@ def test_reference_pass_is_the_numpy_sum(rng):
     from fusion.bench._lockin import reference_pass
 
     a = rng.standard_normal((37, 5, 6)).astype(np.float32)
-    np.testing.assert_allclose(reference_pass(a), a.astype(np.float64).sum(axis=0), rtol=1e-12, atol=1e-9)
     b = rng.integers(-3000, 3000, size=(9, 3, 4)).astype(np.int16)
-    assert np.array_equal(reference_pass(b), b.sum(axis=0, dtype=np.int64))
+    for prefetched in (False, True):
+        np.testing.assert_allclose(reference_pass(a, prefetched=prefetched), a.astype(np.float64).sum(axis=0),
+                                   rtol=1e-12, atol=1e-9)
+        assert np.array_equal(reference_pass(b, prefetched=prefetched), b.sum(axis=0, dtype=np.int64))
 
 
 def test_progress_is_silent_off_a_terminal(rng, capsys):

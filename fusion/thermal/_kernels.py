@@ -3,26 +3,47 @@
 The least-squares fit of every pixel's series on a six-column basis needs, per
 pixel, only the six cross products ``sum_t x_j(t) d(t)`` and the sum of squares
 ``sum_t d(t)**2`` of the offset data ``d = y - y_ref``; the 6x6 normal matrix is
-common to all pixels and built once from the frame times. The kernels add one
+common to all pixels and built once from the frame times. The kernel adds one
 block of frames into those sums, so a stack of any length is fitted in one
 pass over memory, block after block.
 
 Layout and numerics
 -------------------
 * ``frames`` is a ``(n, Y, X)`` block in its own dtype (float32/float64, or
-  int16/uint16/int32/uint8 detector counts): values are widened to float64 one
-  by one in registers, so integer stacks are fitted without a float copy.
-* ``acc`` is ``(Y, 7, X)`` float64: for each image row, the seven sums lie in
-  seven contiguous lines of ``X`` values, which keeps the inner loop over ``x``
-  vectorised and the accumulators of one row in the L1 cache while the frames
+  int16/uint16/uint8/int32 detector counts), read once and never copied.
+* Work precision (:func:`work_dtype`): float32 for float32 and 8/16-bit integer
+  stacks, float64 for float64 and wider integers. In float32 work each value
+  costs half the vector lanes of float64, which is what lets the pass run at the
+  speed of memory on two cores (a float64 pass measured 1.5-2x slower than one
+  plain read of the stack; the products are compute-bound, not memory-bound).
+* Two-level sums keep float32 work accurate. Within a sub-block of
+  :data:`SUB_BLOCK` frames the products are summed in the work dtype about that
+  sub-block's first frame ``r_b`` (the *local* reference, so a drift over the
+  record never inflates the values multiplied); at the end of the sub-block the
+  partial sums are widened to float64 and moved onto the global reference ``r``
+  (the first frame) exactly: ``sum b (y - r) = sum b (y - r_b) + (r_b - r) sum b``
+  and ``sum (y - r)^2 = sum (y - r_b)^2 + 2 (r_b - r) sum (y - r_b) + K (r_b - r)^2``,
+  with the column sums ``sum b`` of the sub-block precomputed once for all pixels.
+  ``y - r_b`` is exact in float32 for float32 frames whose values are within a
+  factor two of each other (Sterbenz) and for integer counts below 2**24, so the
+  only rounding is that of the products and of at most ``SUB_BLOCK / 4`` additions.
+  The basis is rounded to the work dtype *before* the normal matrix is built
+  (:func:`fusion.thermal._lockin`), so the fit is the exact least-squares fit on
+  the basis actually multiplied.
+* ``acc`` is ``(Y, 8, X)`` float64: for each image row, the seven sums lie in
+  seven contiguous lines of ``X`` values, and an eighth line adds up the squares
+  about the sub-block references, the scale the float32 rounding is relative to
+  (it tells whether float32 work resolves the residual). The work-dtype partial
+  sums are a thread-local ``(7, X)`` block kept in the L1 cache while the frames
   stream past.
-* Frames are unrolled by eight: each accumulator is loaded and stored once per
-  eight frames, and the forty basis values of those frames are hoisted out of
-  the pixel loop (AVX-512 FMAs take them as broadcast memory operands). Eight
-  measured about 10 % faster than four on the 2-core development machine.
-* Subtracting a reference frame (the first one) before squaring avoids the
-  cancellation of ``sum y**2 - (sum y)**2 / N`` when the mean (~300 K) dwarfs
-  the signal (mK).
+* Frames are unrolled by four: the twenty basis values of those frames are
+  hoisted out of the pixel loop, each partial sum is loaded and stored once per
+  four frames. Four measured as fast as eight with float32 work and needs no
+  register spills.
+* The next four frame rows are prefetched (``llvm.prefetch``) before the pixel
+  loop: the pass alternates between rows of far-apart frames, and a request
+  issued one group ahead overlaps the memory latency with the arithmetic
+  (measured 10-25 % faster on the development machine).
 * NaN or infinite values need no test in the loop: they poison only the sums
   of their own pixel, which are checked after the pass. Nothing is shared
   between pixels, so a bad pixel never disturbs its neighbours.
@@ -39,155 +60,168 @@ import sys
 import threading
 
 import numpy as np
-from numba import njit, prange
+from llvmlite import ir
+from numba import njit, prange, types
+from numba.extending import intrinsic
 
-__all__ = ["accumulate", "accumulate_with_max", "solve", "stream", "stream_dask", "is_dask", "N_SUMS",
-           "MAP_NAMES"]
+__all__ = ["accumulate", "solve", "stream", "stream_dask", "is_dask", "work_dtype", "block_sums",
+           "prefetch", "N_SUMS", "MAP_NAMES", "SUB_BLOCK"]
 
 #: Order of the maps written by :func:`solve`.
 MAP_NAMES = ("T0", "delta_T", "delta_T_quadrature", "magnitude", "delta_T_std", "second_harmonic",
              "second_harmonic_ratio", "drift_rate", "residual_std", "snr")
 
-#: Sums kept per pixel: six cross products with the basis, then sum of d**2.
-N_SUMS = 7
+#: Sums kept per pixel: six cross products with the basis, the sum of d**2, and the
+#: sum of squares about the sub-block references (precision check only).
+N_SUMS = 8
+
+#: Frames summed in the work dtype before the sums are widened to float64. The
+#: rounding of a float32 partial sum grows with its length; 64 frames keep it near
+#: 1e-7 of the sub-block's own values while the widening costs ~0.1 operation a value.
+SUB_BLOCK = 64
 
 _FASTMATH = {"contract"}
 
 
-@njit(parallel=True, cache=True, fastmath=_FASTMATH)
-def accumulate(frames, basis, ref, acc):  # pragma: no cover - compiled
-    """Add the lock-in sums of ``frames`` (n, Y, X) into ``acc`` (Y, 7, X) float64.
+def work_dtype(dtype):
+    """Arithmetic precision of the pass for a stack of ``dtype``: float32 or float64.
 
-    ``basis`` is (n, 6) float64 with column 0 equal to one (its products are
-    the plain sum); ``ref`` is the (Y, X) float64 reference frame.
+    float32 where every stored value is exact in float32 (float16/float32 and
+    integers of at most 16 bits), float64 otherwise.
     """
-    n, ny, nx = frames.shape
-    n8 = n - n % 8
-    for y in prange(ny):
-        for f in range(0, n8, 8):
-            b10, b11, b12, b13 = basis[f, 1], basis[f + 1, 1], basis[f + 2, 1], basis[f + 3, 1]
-            b14, b15, b16, b17 = basis[f + 4, 1], basis[f + 5, 1], basis[f + 6, 1], basis[f + 7, 1]
-            b20, b21, b22, b23 = basis[f, 2], basis[f + 1, 2], basis[f + 2, 2], basis[f + 3, 2]
-            b24, b25, b26, b27 = basis[f + 4, 2], basis[f + 5, 2], basis[f + 6, 2], basis[f + 7, 2]
-            b30, b31, b32, b33 = basis[f, 3], basis[f + 1, 3], basis[f + 2, 3], basis[f + 3, 3]
-            b34, b35, b36, b37 = basis[f + 4, 3], basis[f + 5, 3], basis[f + 6, 3], basis[f + 7, 3]
-            b40, b41, b42, b43 = basis[f, 4], basis[f + 1, 4], basis[f + 2, 4], basis[f + 3, 4]
-            b44, b45, b46, b47 = basis[f + 4, 4], basis[f + 5, 4], basis[f + 6, 4], basis[f + 7, 4]
-            b50, b51, b52, b53 = basis[f, 5], basis[f + 1, 5], basis[f + 2, 5], basis[f + 3, 5]
-            b54, b55, b56, b57 = basis[f + 4, 5], basis[f + 5, 5], basis[f + 6, 5], basis[f + 7, 5]
-            for x in range(nx):
-                r = ref[y, x]
-                d0 = np.float64(frames[f, y, x]) - r
-                d1 = np.float64(frames[f + 1, y, x]) - r
-                d2 = np.float64(frames[f + 2, y, x]) - r
-                d3 = np.float64(frames[f + 3, y, x]) - r
-                d4 = np.float64(frames[f + 4, y, x]) - r
-                d5 = np.float64(frames[f + 5, y, x]) - r
-                d6 = np.float64(frames[f + 6, y, x]) - r
-                d7 = np.float64(frames[f + 7, y, x]) - r
-                acc[y, 0, x] += ((d0 + d1) + (d2 + d3)) + ((d4 + d5) + (d6 + d7))
-                acc[y, 1, x] = (acc[y, 1, x] + b10 * d0 + b11 * d1 + b12 * d2 + b13 * d3
-                                 + b14 * d4 + b15 * d5 + b16 * d6 + b17 * d7)
-                acc[y, 2, x] = (acc[y, 2, x] + b20 * d0 + b21 * d1 + b22 * d2 + b23 * d3
-                                 + b24 * d4 + b25 * d5 + b26 * d6 + b27 * d7)
-                acc[y, 3, x] = (acc[y, 3, x] + b30 * d0 + b31 * d1 + b32 * d2 + b33 * d3
-                                 + b34 * d4 + b35 * d5 + b36 * d6 + b37 * d7)
-                acc[y, 4, x] = (acc[y, 4, x] + b40 * d0 + b41 * d1 + b42 * d2 + b43 * d3
-                                 + b44 * d4 + b45 * d5 + b46 * d6 + b47 * d7)
-                acc[y, 5, x] = (acc[y, 5, x] + b50 * d0 + b51 * d1 + b52 * d2 + b53 * d3
-                                 + b54 * d4 + b55 * d5 + b56 * d6 + b57 * d7)
-                acc[y, 6, x] = (acc[y, 6, x] + d0 * d0 + d1 * d1 + d2 * d2 + d3 * d3
-                                + d4 * d4 + d5 * d5 + d6 * d6 + d7 * d7)
-        for f in range(n8, n):
-            b1, b2, b3, b4, b5 = basis[f, 1], basis[f, 2], basis[f, 3], basis[f, 4], basis[f, 5]
-            for x in range(nx):
-                d = np.float64(frames[f, y, x]) - ref[y, x]
-                acc[y, 0, x] += d
-                acc[y, 1, x] += b1 * d
-                acc[y, 2, x] += b2 * d
-                acc[y, 3, x] += b3 * d
-                acc[y, 4, x] += b4 * d
-                acc[y, 5, x] += b5 * d
-                acc[y, 6, x] += d * d
+    dt = np.dtype(dtype)
+    if (dt.kind == "f" and dt.itemsize <= 4) or (dt.kind in "iu" and dt.itemsize <= 2):
+        return np.dtype(np.float32)
+    return np.dtype(np.float64)
+
+
+def block_sums(basis):
+    """Column sums (float64) of ``basis`` over its sub-blocks of :data:`SUB_BLOCK` rows.
+
+    Sub-blocks are counted from the first row given, as :func:`accumulate` counts them.
+    """
+    b = np.asarray(basis)
+    edges = np.arange(0, b.shape[0], SUB_BLOCK)
+    return np.add.reduceat(b.astype(np.float64), edges, axis=0)
+
+
+@intrinsic
+def prefetch(typingctx, arr, index):
+    """Hint the cache to fetch the line holding flat element ``index`` of a C-contiguous array.
+
+    A prefetch never faults: an address outside the mapped pages is simply dropped.
+    """
+    sig = types.void(arr, types.intp)
+
+    def codegen(context, builder, signature, args):
+        ary = context.make_array(signature.args[0])(context, builder, args[0])
+        ptr = builder.bitcast(builder.gep(ary.data, [args[1]]), ir.IntType(8).as_pointer())
+        i32 = ir.IntType(32)
+        fnty = ir.FunctionType(ir.VoidType(), [ptr.type, i32, i32, i32])
+        fn = builder.module.globals.get("llvm.prefetch.p0")
+        if fn is None:
+            fn = ir.Function(builder.module, fnty, name="llvm.prefetch.p0")
+        # read access, high temporal locality, data cache
+        builder.call(fn, [ptr, ir.Constant(i32, 0), ir.Constant(i32, 3), ir.Constant(i32, 1)])
+        return context.get_dummy_value()
+
+    return sig, codegen
 
 
 @njit(parallel=True, cache=True, fastmath=_FASTMATH)
-def accumulate_with_max(frames, basis, ref, acc, vmax):  # pragma: no cover - compiled
-    """As :func:`accumulate`, also keeping the largest raw value of each pixel in ``vmax`` (Y, X) float64.
+def accumulate(frames, basis, bsum, ref, acc, vmax):  # pragma: no cover - compiled
+    """Add the lock-in sums of ``frames`` (n, Y, X) into ``acc`` (Y, 8, X) float64.
 
-    Used only when a saturation threshold is set, so the plain pass pays nothing for it.
+    ``basis`` is (n, 6) in the work dtype with column 0 equal to one; ``bsum`` its
+    float64 column sums per sub-block (:func:`block_sums`); ``ref`` the (Y, X)
+    float64 global reference frame. ``vmax`` (Y, X) in the work dtype receives the
+    largest raw value of each pixel, or is (0, 0) to skip that bookkeeping.
     """
     n, ny, nx = frames.shape
-    n8 = n - n % 8
+    track = vmax.shape[0] > 0
     for y in prange(ny):
-        for f in range(0, n8, 8):
-            b10, b11, b12, b13 = basis[f, 1], basis[f + 1, 1], basis[f + 2, 1], basis[f + 3, 1]
-            b14, b15, b16, b17 = basis[f + 4, 1], basis[f + 5, 1], basis[f + 6, 1], basis[f + 7, 1]
-            b20, b21, b22, b23 = basis[f, 2], basis[f + 1, 2], basis[f + 2, 2], basis[f + 3, 2]
-            b24, b25, b26, b27 = basis[f + 4, 2], basis[f + 5, 2], basis[f + 6, 2], basis[f + 7, 2]
-            b30, b31, b32, b33 = basis[f, 3], basis[f + 1, 3], basis[f + 2, 3], basis[f + 3, 3]
-            b34, b35, b36, b37 = basis[f + 4, 3], basis[f + 5, 3], basis[f + 6, 3], basis[f + 7, 3]
-            b40, b41, b42, b43 = basis[f, 4], basis[f + 1, 4], basis[f + 2, 4], basis[f + 3, 4]
-            b44, b45, b46, b47 = basis[f + 4, 4], basis[f + 5, 4], basis[f + 6, 4], basis[f + 7, 4]
-            b50, b51, b52, b53 = basis[f, 5], basis[f + 1, 5], basis[f + 2, 5], basis[f + 3, 5]
-            b54, b55, b56, b57 = basis[f + 4, 5], basis[f + 5, 5], basis[f + 6, 5], basis[f + 7, 5]
+        p = np.zeros((7, nx), basis.dtype)         # partial sums of one sub-block
+        rb = np.empty(nx, basis.dtype)             # local reference: the sub-block's first frame
+        for f0 in range(0, n, SUB_BLOCK):
+            f1 = min(n, f0 + SUB_BLOCK)
             for x in range(nx):
-                r = ref[y, x]
-                v0 = np.float64(frames[f, y, x])
-                v1 = np.float64(frames[f + 1, y, x])
-                v2 = np.float64(frames[f + 2, y, x])
-                v3 = np.float64(frames[f + 3, y, x])
-                v4 = np.float64(frames[f + 4, y, x])
-                v5 = np.float64(frames[f + 5, y, x])
-                v6 = np.float64(frames[f + 6, y, x])
-                v7 = np.float64(frames[f + 7, y, x])
-                d0 = v0 - r
-                d1 = v1 - r
-                d2 = v2 - r
-                d3 = v3 - r
-                d4 = v4 - r
-                d5 = v5 - r
-                d6 = v6 - r
-                d7 = v7 - r
-                acc[y, 0, x] += ((d0 + d1) + (d2 + d3)) + ((d4 + d5) + (d6 + d7))
-                acc[y, 1, x] = (acc[y, 1, x] + b10 * d0 + b11 * d1 + b12 * d2 + b13 * d3
-                                 + b14 * d4 + b15 * d5 + b16 * d6 + b17 * d7)
-                acc[y, 2, x] = (acc[y, 2, x] + b20 * d0 + b21 * d1 + b22 * d2 + b23 * d3
-                                 + b24 * d4 + b25 * d5 + b26 * d6 + b27 * d7)
-                acc[y, 3, x] = (acc[y, 3, x] + b30 * d0 + b31 * d1 + b32 * d2 + b33 * d3
-                                 + b34 * d4 + b35 * d5 + b36 * d6 + b37 * d7)
-                acc[y, 4, x] = (acc[y, 4, x] + b40 * d0 + b41 * d1 + b42 * d2 + b43 * d3
-                                 + b44 * d4 + b45 * d5 + b46 * d6 + b47 * d7)
-                acc[y, 5, x] = (acc[y, 5, x] + b50 * d0 + b51 * d1 + b52 * d2 + b53 * d3
-                                 + b54 * d4 + b55 * d5 + b56 * d6 + b57 * d7)
-                acc[y, 6, x] = (acc[y, 6, x] + d0 * d0 + d1 * d1 + d2 * d2 + d3 * d3
-                                + d4 * d4 + d5 * d5 + d6 * d6 + d7 * d7)
-                # NaN compares false and is caught by the sums instead
-                m = max(max(max(v0, v1), max(v2, v3)), max(max(v4, v5), max(v6, v7)))
-                vmax[y, x] = max(vmax[y, x], m)
-        for f in range(n8, n):
-            b1, b2, b3, b4, b5 = basis[f, 1], basis[f, 2], basis[f, 3], basis[f, 4], basis[f, 5]
+                rb[x] = frames[f0, y, x]
+            f = f0
+            while f + 4 <= f1:
+                b10, b11, b12, b13 = basis[f, 1], basis[f + 1, 1], basis[f + 2, 1], basis[f + 3, 1]
+                b20, b21, b22, b23 = basis[f, 2], basis[f + 1, 2], basis[f + 2, 2], basis[f + 3, 2]
+                b30, b31, b32, b33 = basis[f, 3], basis[f + 1, 3], basis[f + 2, 3], basis[f + 3, 3]
+                b40, b41, b42, b43 = basis[f, 4], basis[f + 1, 4], basis[f + 2, 4], basis[f + 3, 4]
+                b50, b51, b52, b53 = basis[f, 5], basis[f + 1, 5], basis[f + 2, 5], basis[f + 3, 5]
+                if f + 8 <= n:
+                    for k in range(4, 8):
+                        row = ((f + k) * ny + y) * nx
+                        for x in range(0, nx, 16):
+                            prefetch(frames, row + x)
+                for x in range(nx):
+                    r = rb[x]
+                    d0 = frames[f, y, x] - r
+                    d1 = frames[f + 1, y, x] - r
+                    d2 = frames[f + 2, y, x] - r
+                    d3 = frames[f + 3, y, x] - r
+                    p[0, x] += (d0 + d1) + (d2 + d3)
+                    p[1, x] = p[1, x] + b10 * d0 + b11 * d1 + b12 * d2 + b13 * d3
+                    p[2, x] = p[2, x] + b20 * d0 + b21 * d1 + b22 * d2 + b23 * d3
+                    p[3, x] = p[3, x] + b30 * d0 + b31 * d1 + b32 * d2 + b33 * d3
+                    p[4, x] = p[4, x] + b40 * d0 + b41 * d1 + b42 * d2 + b43 * d3
+                    p[5, x] = p[5, x] + b50 * d0 + b51 * d1 + b52 * d2 + b53 * d3
+                    p[6, x] = p[6, x] + d0 * d0 + d1 * d1 + d2 * d2 + d3 * d3
+                if track:  # the four rows are still in the L1 cache
+                    for k in range(4):
+                        for x in range(nx):
+                            vmax[y, x] = max(vmax[y, x], frames[f + k, y, x])
+                f += 4
+            while f < f1:
+                b1, b2, b3, b4, b5 = basis[f, 1], basis[f, 2], basis[f, 3], basis[f, 4], basis[f, 5]
+                for x in range(nx):
+                    d = frames[f, y, x] - rb[x]
+                    p[0, x] += d
+                    p[1, x] += b1 * d
+                    p[2, x] += b2 * d
+                    p[3, x] += b3 * d
+                    p[4, x] += b4 * d
+                    p[5, x] += b5 * d
+                    p[6, x] += d * d
+                if track:
+                    for x in range(nx):
+                        vmax[y, x] = max(vmax[y, x], frames[f, y, x])
+                f += 1
+            # widen to float64 and move onto the global reference (module docstring)
+            k = f0 // SUB_BLOCK
+            n0, n1, n2, n3, n4, n5 = bsum[k, 0], bsum[k, 1], bsum[k, 2], bsum[k, 3], bsum[k, 4], bsum[k, 5]
             for x in range(nx):
-                v = np.float64(frames[f, y, x])
-                d = v - ref[y, x]
-                acc[y, 0, x] += d
-                acc[y, 1, x] += b1 * d
-                acc[y, 2, x] += b2 * d
-                acc[y, 3, x] += b3 * d
-                acc[y, 4, x] += b4 * d
-                acc[y, 5, x] += b5 * d
-                acc[y, 6, x] += d * d
-                vmax[y, x] = max(vmax[y, x], v)
+                c = np.float64(rb[x]) - ref[y, x]
+                s0 = np.float64(p[0, x])
+                s6 = np.float64(p[6, x])
+                acc[y, 0, x] += s0 + n0 * c
+                acc[y, 1, x] += np.float64(p[1, x]) + n1 * c
+                acc[y, 2, x] += np.float64(p[2, x]) + n2 * c
+                acc[y, 3, x] += np.float64(p[3, x]) + n3 * c
+                acc[y, 4, x] += np.float64(p[4, x]) + n4 * c
+                acc[y, 5, x] += np.float64(p[5, x]) + n5 * c
+                acc[y, 6, x] += s6 + c * (2.0 * s0 + n0 * c)
+                acc[y, 7, x] += s6
+            p[:] = 0
 
 
 @njit(parallel=True, cache=True, fastmath=_FASTMATH, error_model="numpy")
-def solve(acc, ref, ginv, vmax, saturation, gain, offset, half, dof, out, reason):  # pragma: no cover
+def solve(acc, ref, ginv, vmax, saturation, gain, offset, half, dof, out, reason, counts):  # pragma: no cover
     """Per-pixel coefficients and maps from the sums, in place.
 
-    ``out`` is (10, Y, X) float32 receiving the maps of :data:`MAP_NAMES` except the
-    phase (computed afterwards from delta_T and delta_T_quadrature). ``reason`` (Y, X)
-    int8 gets 0 valid, 1 non-finite, 2 saturated, 3 dead. ``vmax`` is (Y, X), or
-    (0, 0) when no saturation threshold is set. Masked pixels get NaN.
+    ``out`` is (11, Y, X) float32 receiving the maps of :data:`MAP_NAMES` (not the
+    phase: numpy's vectorised ``arctan2`` is ten times faster than a scalar call per
+    pixel, so :func:`fusion.thermal._lockin._solve` adds it), then the
+    residual sum of squares over the sum of squares about the sub-block references
+    (how far float32 sums can be trusted with the residual: see
+    :func:`fusion.thermal._lockin._fit`). ``reason``
+    (Y, X) int8 gets 0 valid, 1 non-finite, 2 saturated, 3 dead, and ``counts`` (Y, 4)
+    int64 the number of pixels of each reason per row. ``vmax`` is (Y, X), or (0, 0)
+    when no saturation threshold is set. Masked pixels get NaN.
     """
     ny = acc.shape[0]
     nx = acc.shape[2]
@@ -199,14 +233,30 @@ def solve(acc, ref, ginv, vmax, saturation, gain, offset, half, dof, out, reason
     for y in prange(ny):
         # row-wise loops over x keep every step vectorised (selects, no branches)
         poison = np.empty(nx)
+        codes = np.zeros(nx, np.int64)
+        if check_sat:
+            for x in range(nx):
+                codes[x] = 2 if vmax[y, x] >= saturation else 0
+        n1 = n2 = n3 = 0
         for x in range(nx):
-            # one non-finite sum makes the total non-finite (finite sums cannot overflow here)
+            # one non-finite sum makes the total non-finite (finite sums cannot overflow here),
+            # and tot - tot is 0 exactly when tot is finite (a select, where isfinite branches)
             tot = (acc[y, 0, x] + acc[y, 1, x] + acc[y, 2, x] + acc[y, 3, x] + acc[y, 4, x]
                    + acc[y, 5, x] + acc[y, 6, x])
-            sat = check_sat and vmax[y, x] >= saturation
-            code = 1 if not np.isfinite(tot) else (2 if sat else (3 if acc[y, 6, x] == 0.0 else 0))
-            reason[y, x] = code
+            code = codes[x]
+            code = code if code != 0 else (3 if acc[y, 6, x] == 0.0 else 0)
+            code = 1 if tot - tot != 0.0 else code
+            codes[x] = code
+            n1 += code == 1
+            n2 += code == 2
+            n3 += code == 3
             poison[x] = 0.0 if code == 0 else np.nan
+        for x in range(nx):
+            reason[y, x] = codes[x]
+        counts[y, 0] = nx - n1 - n2 - n3
+        counts[y, 1] = n1
+        counts[y, 2] = n2
+        counts[y, 3] = n3
         g00, g01, g02, g03, g04, g05 = ginv[0, 0], ginv[0, 1], ginv[0, 2], ginv[0, 3], ginv[0, 4], ginv[0, 5]
         g10, g11, g12, g13, g14, g15 = ginv[1, 0], ginv[1, 1], ginv[1, 2], ginv[1, 3], ginv[1, 4], ginv[1, 5]
         g20, g21, g22, g23, g24, g25 = ginv[2, 0], ginv[2, 1], ginv[2, 2], ginv[2, 3], ginv[2, 4], ginv[2, 5]
@@ -227,15 +277,17 @@ def solve(acc, ref, ginv, vmax, saturation, gain, offset, half, dof, out, reason
             b4 = g40 * a0 + g41 * a1 + g42 * a2 + g43 * a3 + g44 * a4 + g45 * a5
             b5 = g50 * a0 + g51 * a1 + g52 * a2 + g53 * a3 + g54 * a4 + g55 * a5
             fit = b0 * a0 + b1 * a1 + b2 * a2 + b3 * a3 + b4 * a4 + b5 * a5
-            s = math.sqrt(max(acc[y, 6, x] - fit, 0.0) * inv_dof)   # residual std, raw units
+            rss = max(acc[y, 6, x] - fit, 0.0)
+            s = math.sqrt(rss * inv_dof)   # residual std, raw units
             p = poison[x]  # NaN on masked pixels, 0 elsewhere: an add keeps the loop branch-free
             dT = 2.0 * gain * b2
+            dq = -2.0 * gain * b3 + 0.0  # +0.0: a -0.0 would give a phase of -180
             std = c_std * ag * s
             mag = 2.0 * ag * math.sqrt(b2 * b2 + b3 * b3)
             h2 = 2.0 * ag * math.sqrt(b4 * b4 + b5 * b5)
             out[0, y, x] = gain * (b0 + ref[y, x]) + offset + p
             out[1, y, x] = dT + p
-            out[2, y, x] = -2.0 * gain * b3 + 0.0 + p  # +0.0: a -0.0 would give a phase of -180
+            out[2, y, x] = dq + p
             out[3, y, x] = mag + p
             out[4, y, x] = std + p
             out[5, y, x] = h2 + p
@@ -243,6 +295,7 @@ def solve(acc, ref, ginv, vmax, saturation, gain, offset, half, dof, out, reason
             out[7, y, x] = gain * b1 * inv_half + p
             out[8, y, x] = ag * s + p
             out[9, y, x] = abs(dT) / std + p
+            out[10, y, x] = rss / acc[y, 7, x] + p
 
 
 # ------------------------------------------------------------------------------ driver
@@ -313,18 +366,18 @@ def _kernel_block(block):
     b = np.asarray(block)
     if b.dtype.kind not in "iuf":
         raise TypeError(f"frames must be numeric (int, uint or float), got dtype {b.dtype!r}")
-    if b.dtype == np.float16:
-        b = b.astype(np.float32)
+    if b.dtype.kind == "f" and b.dtype.itemsize not in (4, 8):   # float16, long double
+        b = b.astype(work_dtype(b.dtype))
     elif not b.dtype.isnative:
         b = b.astype(b.dtype.newbyteorder("="))
     return np.ascontiguousarray(b)
 
 
 def _block_sums(block, basis, ref, with_max):
-    """Sums (Y, 7, X) and maxima (Y, X) of one block: the unit of work of the dask path."""
+    """Sums (Y, 8, X) and maxima (Y, X) of one block: the unit of work of the dask path."""
     block = _kernel_block(block)
     acc = np.zeros((block.shape[1], N_SUMS, block.shape[2]))
-    vmax = np.full(block.shape[1:], -np.inf) if with_max else None
+    vmax = np.full(block.shape[1:], -np.inf, basis.dtype) if with_max else None
     _run_kernel(block, np.ascontiguousarray(basis), ref, acc, vmax)
     return acc, vmax
 
@@ -336,11 +389,12 @@ def _add_sums(a, b):
 
 
 def _run_kernel(block, basis, ref, acc, vmax):
+    """One call of :func:`accumulate`; ``basis`` is already in the work dtype."""
+    bsum = block_sums(basis)
+    if vmax is None:
+        vmax = np.empty((0, 0), basis.dtype)
     with _KERNEL_LOCK:
-        if vmax is None:
-            accumulate(block, basis, ref, acc)
-        else:
-            accumulate_with_max(block, basis, ref, acc, vmax)
+        accumulate(block, basis, bsum, ref, acc, vmax)
 
 
 def is_dask(frames):
@@ -352,7 +406,7 @@ def stream_dask(frames, basis, with_max, chunk_frames, progress):
     """The pass over a dask array: one task per block of whole frames, summed pairwise.
 
     Runs on the active scheduler (threads by default, a distributed cluster when a
-    client is active); each task returns only the (Y, 7, X) sums of its block.
+    client is active); each task returns only the (Y, 8, X) sums of its block.
     """
     import dask
 
@@ -377,6 +431,13 @@ def stream_dask(frames, basis, with_max, chunk_frames, progress):
     return acc, vmax, ref
 
 
+def _whole_sub_blocks(frames):
+    """A block length near ``frames``: whole sub-blocks where possible, else whole groups of four."""
+    if frames >= SUB_BLOCK:
+        return frames // SUB_BLOCK * SUB_BLOCK
+    return max(4, frames // 4 * 4)
+
+
 def stream(frames, basis, with_max, chunk_frames, progress):
     """One pass over a NumPy array, memory map or lazy stack; returns sums, maxima, reference."""
     n, ny, nx = frames.shape
@@ -388,15 +449,15 @@ def stream(frames, basis, with_max, chunk_frames, progress):
         if isinstance(source, np.ndarray) and source.flags.c_contiguous and _mmap_of(source)[0] is None:
             # in memory already: one call (each parallel launch ends on a barrier that a
             # busy core delays), or about 20 steps when a progress bar is shown
-            chunk_frames = n if not progress else max(4, -(-n // 20))
+            chunk_frames = n if not progress else _whole_sub_blocks(-(-n // 20))
         else:
-            chunk_frames = max(4, _BLOCK_BYTES // frame_bytes // 4 * 4)
+            chunk_frames = _whole_sub_blocks(_BLOCK_BYTES // frame_bytes)
     limit = getattr(frames, "max_bytes", None)
     if limit and source is None:  # a lazy reader refuses reads above its limit
         chunk_frames = min(int(chunk_frames), max(1, int(limit) // frame_bytes))
     chunk_frames = int(chunk_frames)
     acc = np.zeros((ny, N_SUMS, nx))
-    vmax = np.full((ny, nx), -np.inf) if with_max else None
+    vmax = np.full((ny, nx), -np.inf, basis.dtype) if with_max else None
     bar = _Progress(n, progress)
     ref = None
     for f0 in range(0, n, chunk_frames):

@@ -350,7 +350,8 @@ def _positive(value, name):
 
 
 def lockin(frames, *, frequency=None, times=None, frame_rate=None, load=None, load_times=None,
-           gain=1.0, offset=0.0, saturation=None, chunk_frames=None, progress=False) -> LockinResult:
+           gain=1.0, offset=0.0, saturation=None, chunk_frames=None, progress=False,
+           precision="auto") -> LockinResult:
     """Least-squares lock-in of an infrared frame stack against the load, in one pass.
 
     Parameters
@@ -384,6 +385,11 @@ def lockin(frames, *, frequency=None, times=None, frame_rate=None, load=None, lo
         about 32 MiB, each released from memory once added; dask arrays as chunked.
     progress : bool
         Show a progress bar on stderr when it is a terminal.
+    precision : {"auto", "float64"}
+        Arithmetic of the pass. ``"auto"`` multiplies float32 and 8/16-bit integer
+        stacks in float32 (sums widened to float64 every 64 frames, see Notes) and
+        refits in float64 when that cannot resolve the residual; ``"float64"``
+        always works in float64 (about 1.5-2x slower on a stack in memory).
 
     Returns
     -------
@@ -409,6 +415,15 @@ def lockin(frames, *, frequency=None, times=None, frame_rate=None, load=None, lo
     Frames with a non-uniform clock are handled exactly through ``times``. Results are
     only as good as the frequency: an error df walks the phase by 360 df T degrees over a
     record of length T.
+
+    Float32 and 8/16-bit integer stacks are multiplied in float32 (twice the values per
+    vector instruction, which keeps the pass at the speed of memory), summed over 64
+    frames about the first of them and then widened to float64. The coefficients then
+    differ from a float64 fit by ~1e-7 of the values (far below their standard errors)
+    and the residual noise by about ``6e-8 / rho`` relative, with ``rho`` the residual
+    over the sum of squares of the pixel's offsets (3e-5 for a 0.8 K range in 20 mK
+    noise). Where ``rho`` is so small that this exceeds 1e-3 on more than 1 % of the
+    pixels, the pass is repeated in float64 and a warning says so.
 
     References
     ----------
@@ -472,20 +487,25 @@ def lockin(frames, *, frequency=None, times=None, frame_rate=None, load=None, lo
         phi = 0.0
 
     B, half = _design(t, frequency, phi)
-    G, sampling_notes = _sampling_check(B, frequency, rate, t[-1] - t[0])
+    _, sampling_notes = _sampling_check(B, frequency, rate, t[-1] - t[0])
     notes += sampling_notes
-    with_max = saturation is not None
-    if with_max:
+    if saturation is not None:
         saturation = float(saturation)
+    if chunk_frames is not None and not _kernels.is_dask(frames) and int(chunk_frames) < 1:
+        raise ValueError(f"chunk_frames must be a positive integer, got {chunk_frames!r}")
+    if precision not in ("auto", "float64"):
+        raise ValueError(f"precision must be 'auto' or 'float64', got {precision!r}")
+    work = np.dtype(np.float64) if precision == "float64" else _kernels.work_dtype(_frames_dtype(frames))
 
-    if _kernels.is_dask(frames):
-        acc, vmax, ref = _kernels.stream_dask(frames, B, with_max, chunk_frames, progress)
-    else:
-        if chunk_frames is not None and int(chunk_frames) < 1:
-            raise ValueError(f"chunk_frames must be a positive integer, got {chunk_frames!r}")
-        acc, vmax, ref = _kernels.stream(frames, B, with_max, chunk_frames, progress)
-
-    maps, bad = _solve(acc, vmax, ref, G, half, n, gain, offset, saturation)
+    fit = dict(frames=frames, B=B, half=half, gain=gain, offset=offset, saturation=saturation,
+               chunk_frames=chunk_frames, progress=progress)
+    maps, bad, unresolved = _fit(work=work, **fit)
+    if unresolved > _UNRESOLVED_LIMIT:
+        # float32 sums cannot resolve the residual of these pixels (signal or drift some
+        # 10^4 times the noise): a second pass in float64 keeps the noise maps honest
+        notes.append(f"{unresolved:.1%} of the pixels have a signal or drift over 10^4 times their "
+                     "noise: refitted in float64 (a second pass over the frames)")
+        maps, bad, _ = _fit(work=np.dtype(np.float64), **fit)
     nbad = sum(bad.values())
     if nbad:
         notes.append(f"{nbad} of {ny * nx} pixels masked: " +
@@ -496,17 +516,68 @@ def lockin(frames, *, frequency=None, times=None, frame_rate=None, load=None, lo
                         frame_rate=float(rate), bad_pixels=bad, warnings=notes, load=ref_load)
 
 
+def _frames_dtype(frames):
+    """The dtype of a stack's values, refused early when not numeric."""
+    dt = getattr(frames, "dtype", None)
+    dt = np.dtype(dt) if dt is not None else np.asarray(frames[:1]).dtype
+    if dt.kind not in "iuf":
+        raise TypeError(f"frames must be numeric (int, uint or float), got dtype {dt!r}")
+    return dt
+
+
+#: Largest fraction of pixels whose float32 residual may be off by more than 1e-3 before
+#: the pass is repeated in float64.
+_UNRESOLVED_LIMIT = 0.01
+#: Smallest residual / sum of squares that float32 sums resolve to 1e-3: the rounding of
+#: the sums is about eps/2 of the sum of squares, so the residual is off by eps/2 / ratio.
+_RESOLVED_RATIO = float(np.finfo(np.float32).eps) / 2 / 1e-3
+
+
+def _fit(*, frames, B, work, half, gain, offset, saturation, chunk_frames, progress):
+    """One pass in the ``work`` dtype and the solve; maps, bad-pixel counts, unresolved fraction."""
+    # the kernels multiply by the basis rounded to their work dtype: the normal matrix is
+    # built from those very values, so the fit is exact least squares on them
+    Bw = B.astype(work)
+    G = Bw.T.astype(np.float64) @ Bw.astype(np.float64)
+    with_max = saturation is not None
+    if _kernels.is_dask(frames):
+        acc, vmax, ref = _kernels.stream_dask(frames, Bw, with_max, chunk_frames, progress)
+    else:
+        acc, vmax, ref = _kernels.stream(frames, Bw, with_max, chunk_frames, progress)
+    maps, bad, rss_fraction, valid = _solve(acc, vmax, ref, G, half, B.shape[0], gain, offset, saturation)
+    unresolved = 0.0
+    if work == np.float32 and valid:
+        unresolved = np.count_nonzero(rss_fraction < _RESOLVED_RATIO) / valid
+    return maps, bad, unresolved
+
+
+def _frames_dtype(frames):
+    """The dtype of a stack's values, refused early when not numeric."""
+    dt = getattr(frames, "dtype", None)
+    dt = np.dtype(dt) if dt is not None else np.asarray(frames[:1]).dtype
+    if dt.kind not in "iuf":
+        raise TypeError(f"frames must be numeric (int, uint or float), got dtype {dt!r}")
+    return dt
+
+
 def _solve(acc, vmax, ref, G, half, n, gain, offset, saturation):
-    """Per-pixel maps and masks from the accumulated sums (compiled, no large temporaries)."""
+    """Per-pixel maps and masks from the accumulated sums (compiled, no large temporaries).
+
+    Also returns the map of residual / sum of squares (NaN where masked) and the
+    number of valid pixels.
+    """
     ny, _, nx = acc.shape
-    out = np.empty((len(_kernels.MAP_NAMES), ny, nx), np.float32)
+    out = np.empty((len(_kernels.MAP_NAMES) + 1, ny, nx), np.float32)   # maps, rss fraction
     reason = np.empty((ny, nx), np.int8)
+    counts = np.zeros((ny, 4), np.int64)
     vm = vmax if vmax is not None else np.empty((0, 0))
     sat = float(saturation) if saturation is not None else math.inf
-    _kernels.solve(acc, ref, np.linalg.inv(G), vm, sat, gain, offset, half, float(n - _N_BASIS), out, reason)
-    counts = np.bincount(reason.ravel(), minlength=4)
+    _kernels.solve(acc, ref, np.linalg.inv(G), vm, sat, gain, offset, half, float(n - _N_BASIS), out,
+                   reason, counts)
+    counts = counts.sum(axis=0)
     bad = {"nonfinite": int(counts[1]), "saturated": int(counts[2]), "dead": int(counts[3])}
     maps = {name: out[k] for k, name in enumerate(_kernels.MAP_NAMES)}
-    maps["phase"] = np.degrees(np.arctan2(maps["delta_T_quadrature"], maps["delta_T"]))
+    phase = np.arctan2(maps["delta_T_quadrature"], maps["delta_T"])
+    maps["phase"] = np.multiply(phase, np.float32(180.0 / math.pi), out=phase)
     maps["valid"] = reason == 0
-    return maps, bad
+    return maps, bad, out[-1], int(counts[0])
