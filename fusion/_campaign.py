@@ -51,21 +51,34 @@ def sweep_points(datasets):
     return f, np.array([t[1] for t in rows]), np.array([t[2] for t in rows]), lags, lag_std, np.stack([t[5] for t in rows])
 
 
-def _sweeps(cfg, outcomes, out):
+def _results(outcomes):
+    """Each finished run's result.nc, read once: {run name: dataset, or the error reading it}."""
+    results = {}
+    for o in outcomes:
+        if o.status == "failed" or o.folder is None:
+            continue
+        try:
+            results[o.name] = _load(o.folder)
+        except FusionError as e:
+            results[o.name] = e
+    return results
+
+
+def _sweeps(cfg, outcomes, results):
     """Runs grouped per specimen, for specimens with results at two or more frequencies."""
     by_spec: dict[str, list] = {}
     for o in outcomes:
-        if o.status == "failed" or o.folder is None:
+        if o.name not in results:
             continue
         run = next(r for r in cfg.runs if r.name == o.name)
         by_spec.setdefault(run.specimen or run.name, []).append((run, o))
     groups = {}
     for spec, items in by_spec.items():
-        try:
-            datasets = [_load(o.folder) for _, o in items]
-        except FusionError as e:
-            log.warning("specimen %s: cannot read a result (%s)", spec, e)
+        bad = next((results[o.name] for _, o in items if isinstance(results[o.name], Exception)), None)
+        if bad is not None:
+            log.warning("specimen %s: cannot read a result (%s)", spec, bad)
             continue
+        datasets = [results[o.name] for _, o in items]
         freqs = {round(float(ds.attrs["frequency"]), 9) for ds in datasets}
         if len(freqs) >= 2:
             groups[spec] = (items, datasets)
@@ -163,7 +176,8 @@ def write_campaign(cfg, out: Path, outcomes, *, overwrite=True):
     from . import report as P
 
     fits = {}
-    for spec, (items, datasets) in _sweeps(cfg, outcomes, out).items():
+    loaded = _results(outcomes)
+    for spec, (items, datasets) in _sweeps(cfg, outcomes, loaded).items():
         try:
             fits[spec] = _fit_specimen(cfg, spec, items, datasets)
         except (ValueError, FusionError) as e:
@@ -182,10 +196,9 @@ def write_campaign(cfg, out: Path, outcomes, *, overwrite=True):
             figs = {k: o.folder / v for k, v in (summary.get("figures") or {}).items()}
             runs.append({"summary": summary, "figures": figs, "regions": summary.get("regions", []),
                          "warnings": summary.get("warnings", [])})
-            try:
-                results[o.name] = _load(o.folder)
-            except FusionError:
-                pass
+            ds = loaded.get(o.name)
+            if ds is not None and not isinstance(ds, Exception):
+                results[o.name] = ds
         fig_dir = out / "figures"
         if cfg.output.figures:
             specimens = {sp: _specimen_figure_input(f) for sp, f in fits.items()}

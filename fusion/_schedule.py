@@ -13,12 +13,14 @@ How many runs at once
 and by memory: ``min(workers, runs, max(1, available // (memory_budget +
 WORKER_BASELINE)))``, where ``available`` is the memory the operating system
 reports as available and ``WORKER_BASELINE`` what a worker holds besides its frame
-chunks. With more than one, Dask's local scheduler feeds that many spawned worker
-processes, each run's numba kernels on ``max(1, cores // workers)`` threads so that
-workers do not fight over cores. Worker processes exit when the campaign process
-dies; when one dies, the runs in flight fail and the others go on. The ``threads``
-kind runs one run at a time: the netCDF/HDF5 library and numba's default thread
-pool are not safe for two runs in one process. A dask.distributed cluster sets its
+chunks. With more than one, Dask's local scheduler feeds that many worker processes
+(forked from a fork server that has the run's modules loaded already, on Linux; see
+:mod:`fusion._workers`), each run's numba and OpenCV kernels on
+``max(1, cores // workers)`` threads so that workers do not fight over cores.
+Worker processes exit when the campaign process dies; when one dies, the runs in
+flight fail and the others go on. The ``threads`` kind runs one run at a time: the
+netCDF/HDF5 library and numba's default thread pool are not safe for two runs in
+one process. A dask.distributed cluster sets its
 own concurrency (threads per worker); its memory limits are only checked.
 
 Progress
@@ -223,7 +225,7 @@ class _Report:
 
 # --------------------------------------------------------------------------- tasks
 def _task(config_path, run_name, out, overwrite, threads):
-    """One run on a worker: numba threads sized to the worker's share of the cores."""
+    """One run on a worker: numba (and OpenCV) threads sized to the worker's share of the cores."""
     import numba
 
     from .pipeline import process_run
@@ -231,7 +233,14 @@ def _task(config_path, run_name, out, overwrite, threads):
     if threads is None:
         threads = _distributed_threads()
     if threads is not None:
-        numba.set_num_threads(max(1, min(int(threads), numba.config.NUMBA_NUM_THREADS)))
+        threads = max(1, min(int(threads), numba.config.NUMBA_NUM_THREADS))
+        numba.set_num_threads(threads)
+        try:
+            import cv2
+
+            cv2.setNumThreads(threads)
+        except ImportError:  # pragma: no cover - a dependency
+            pass
     return process_run(config_path, run_name, out, overwrite=overwrite)
 
 
@@ -244,20 +253,10 @@ def _distributed_threads():
         return None
 
 
-def _watch_parent(parent_pid, period=0.25):
-    """Exit this worker process when the campaign process is gone (killed with SIGKILL, say).
+def _worker_init():
+    from ._workers import watch_campaign_process
 
-    A worker orphaned by ``kill -9`` would otherwise go on computing a run that no one
-    waits for, and race the next ``fusion run`` on the same output folder.
-    """
-    while True:
-        if os.getppid() != parent_pid:
-            os._exit(1)
-        time.sleep(period)
-
-
-def _worker_init(parent_pid):
-    threading.Thread(target=_watch_parent, args=(parent_pid,), daemon=True, name="fusion-parent-watch").start()
+    watch_campaign_process()
 
 
 def _already_done(cfg, run, out):
@@ -388,16 +387,17 @@ def _preload_products():
 
 
 def _process_pool(n):
-    import multiprocessing
     from concurrent.futures import ProcessPoolExecutor
 
-    # spawn, not fork: the numba thread pool and open files of this process are not fork-safe
-    return ProcessPoolExecutor(n, mp_context=multiprocessing.get_context("spawn"),
-                               initializer=_worker_init, initargs=(os.getpid(),))
+    from ._workers import context
+
+    # never a plain fork of this process: its numba thread pool and open files are not
+    # fork-safe; workers come from the preloaded fork server (Linux) or are spawned
+    return ProcessPoolExecutor(n, mp_context=context(), initializer=_worker_init)
 
 
 def _local(cfg, todo, out, report, *, n, overwrite):
-    """Runs on Dask's local scheduler over ``n`` spawned worker processes.
+    """Runs on Dask's local scheduler over ``n`` local worker processes.
 
     Runs are processed in worker processes only, although this process could take one
     and save a process start: a run that crashes its process (a C library on a damaged

@@ -317,6 +317,9 @@ def run_campaign(config_path, *, out=None, overwrite: bool = False, only=None, s
     CampaignOutcome
         Per-run outcomes and the campaign files written.
     """
+    from ._workers import prestart
+
+    prestart(config_path, workers=workers, scheduler=scheduler, only=only)   # no-op when started
     cfg = load_config(config_path)
     out = Path(cfg.output_folder(out))
     runs = _select(cfg, only)

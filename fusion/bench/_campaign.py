@@ -69,9 +69,9 @@ def bench_campaign(*, quick: bool = False, repeats: int | None = None) -> dict:
     Parameters
     ----------
     quick : bool
-        4 runs, one timing each (CI smoke test); else 8 runs, best of 2.
+        4 runs, one timing each (CI smoke test); else 8 runs, best of 3.
     repeats : int, optional
-        Timings of each command (default 1 with ``quick``, else 2).
+        Timings of each command (default 1 with ``quick``, else 3).
 
     Returns
     -------
@@ -82,14 +82,17 @@ def bench_campaign(*, quick: bool = False, repeats: int | None = None) -> dict:
 
     Notes
     -----
-    Each worker process pays its own start (interpreter, imports, loading the cached
-    kernels: about 3 s on the 2-core development machine), which a demo-sized run (about
-    1 s with figures) does not dwarf; the speed-up grows with the size of the runs.
+    Worker processes are forked from a fork server that imports what a run needs
+    while the campaign process validates the config (:mod:`fusion._workers`); that
+    start-up (about 2.5 s on the 2-core development machine) is still as long as two
+    demo-sized runs (about a second each, figures included), so the speed-up grows
+    with the size of the runs. Sequential runs use both cores inside their numba
+    kernels, which caps what two workers can gain on two cores.
     """
     from ..demo import generate
 
     n = 4 if quick else 8
-    repeats = int(repeats or (1 if quick else 2))
+    repeats = int(repeats or (1 if quick else 3))
     data = generate().parent
     cfg = data / f".bench-campaign-{n}-{os.getpid()}.toml"
     tmp = Path(tempfile.mkdtemp(prefix="fusion-bench-"))
