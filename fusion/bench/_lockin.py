@@ -201,6 +201,8 @@ def bench_lockin(*, quick: bool = False, repeats: int | None = None) -> dict:
     dict
         ``lockin_f32_ratio``, ``lockin_i16_ratio``, ``lockin_numpy_sum_ratio``,
         ``lockin_f64_work_ratio`` (the float32 stack with ``precision="float64"``),
+        ``lockin_f32_ratio_plain_read`` and ``lockin_i16_ratio_plain_read`` (against the
+        plain block sum alone, the reference as first defined),
         ``lockin_mmap_peak_fraction`` (dimensionless), and for information
         ``lockin_f32_seconds``, ``lockin_i16_seconds``, ``reference_f32_seconds``,
         ``reference_i16_seconds``, ``numpy_sum_f32_seconds`` (s),
@@ -236,6 +238,7 @@ def bench_lockin(*, quick: bool = False, repeats: int | None = None) -> dict:
         lambda: reference_pass(i16),
         lambda: reference_pass(i16, prefetched=True),
     ], repeats)
+    plain_f, plain_i = t_rf, t_ri
     t_rf, t_ri = min(t_rf, t_pf), min(t_ri, t_pi)   # the faster read is the limit
     del f32, i16
     with tempfile.TemporaryDirectory(prefix="fusion-bench-") as tmp:
@@ -243,6 +246,8 @@ def bench_lockin(*, quick: bool = False, repeats: int | None = None) -> dict:
     return {
         "lockin_f32_ratio": t_lf / t_rf,
         "lockin_i16_ratio": t_li / t_ri,
+        "lockin_f32_ratio_plain_read": t_lf / plain_f,
+        "lockin_i16_ratio_plain_read": t_li / plain_i,
         "lockin_numpy_sum_ratio": t_lf / t_np,
         "lockin_f64_work_ratio": t_l64 / t_rf,
         "lockin_mmap_peak_fraction": frac,
