@@ -41,7 +41,7 @@ import time
 import numpy as np
 from numba import njit, prange
 
-from ..thermal._kernels import prefetch
+from ..thermal._kernels import prefetch_rows
 
 __all__ = ["bench_lockin", "reference_pass"]
 
@@ -71,10 +71,7 @@ def _block_sum_prefetched(frames, out):  # pragma: no cover - compiled
         f = 0
         while f + 4 <= n:
             if f + 8 <= n:
-                for k in range(4, 8):
-                    row = ((f + k) * ny + y) * nx
-                    for x in range(0, nx, 16):
-                        prefetch(frames, row + x)
+                prefetch_rows(frames, f + 4, y)
             for x in range(nx):
                 out[y, x] += ((np.float64(frames[f, y, x]) + np.float64(frames[f + 1, y, x]))
                               + (np.float64(frames[f + 2, y, x]) + np.float64(frames[f + 3, y, x])))

@@ -65,7 +65,7 @@ from numba import njit, prange, types
 from numba.extending import intrinsic
 
 __all__ = ["accumulate", "solve", "stream", "stream_dask", "is_dask", "work_dtype", "block_sums",
-           "prefetch", "N_SUMS", "MAP_NAMES", "SUB_BLOCK"]
+           "prefetch", "prefetch_rows", "N_SUMS", "MAP_NAMES", "SUB_BLOCK"]
 
 #: Order of the maps written by :func:`solve`.
 MAP_NAMES = ("T0", "delta_T", "delta_T_quadrature", "magnitude", "delta_T_std", "second_harmonic",
@@ -128,6 +128,16 @@ def prefetch(typingctx, arr, index):
     return sig, codegen
 
 
+@njit(inline="always")
+def prefetch_rows(frames, first, y):  # pragma: no cover - compiled
+    """Prefetch every cache line of row ``y`` of the four frames from ``first`` of a (n, Y, X) array."""
+    _, ny, nx = frames.shape
+    for k in range(first, first + 4):
+        row = (k * ny + y) * nx
+        for x in range(0, nx, 16):
+            prefetch(frames, row + x)
+
+
 @njit(parallel=True, cache=True, fastmath=_FASTMATH)
 def accumulate(frames, basis, bsum, ref, acc, vmax):  # pragma: no cover - compiled
     """Add the lock-in sums of ``frames`` (n, Y, X) into ``acc`` (Y, 8, X) float64.
@@ -154,10 +164,7 @@ def accumulate(frames, basis, bsum, ref, acc, vmax):  # pragma: no cover - compi
                 b40, b41, b42, b43 = basis[f, 4], basis[f + 1, 4], basis[f + 2, 4], basis[f + 3, 4]
                 b50, b51, b52, b53 = basis[f, 5], basis[f + 1, 5], basis[f + 2, 5], basis[f + 3, 5]
                 if f + 8 <= n:
-                    for k in range(4, 8):
-                        row = ((f + k) * ny + y) * nx
-                        for x in range(0, nx, 16):
-                            prefetch(frames, row + x)
+                    prefetch_rows(frames, f + 4, y)
                 for x in range(nx):
                     r = rb[x]
                     d0 = frames[f, y, x] - r

@@ -516,15 +516,6 @@ def lockin(frames, *, frequency=None, times=None, frame_rate=None, load=None, lo
                         frame_rate=float(rate), bad_pixels=bad, warnings=notes, load=ref_load)
 
 
-def _frames_dtype(frames):
-    """The dtype of a stack's values, refused early when not numeric."""
-    dt = getattr(frames, "dtype", None)
-    dt = np.dtype(dt) if dt is not None else np.asarray(frames[:1]).dtype
-    if dt.kind not in "iuf":
-        raise TypeError(f"frames must be numeric (int, uint or float), got dtype {dt!r}")
-    return dt
-
-
 #: Largest fraction of pixels whose float32 residual may be off by more than 1e-3 before
 #: the pass is repeated in float64.
 _UNRESOLVED_LIMIT = 0.01
