@@ -246,6 +246,8 @@ def test_refits_in_float64_when_float32_cannot_resolve_the_noise(rng):
 
 @pytest.mark.parametrize("dtype", [np.uint8, np.int8, np.uint16, np.int32, np.uint32, np.float16])
 def test_every_stored_dtype_matches_its_float64_copy(dtype, rng):
+    # float32 work (8/16-bit counts, float16) and float64 work (32-bit counts) against the
+    # float64 pass on the same values, which the tests above check against numpy.linalg.lstsq
     temps = forward(np.arange(333) / 40.0, (6, 5), rng, f=6.0, phi=0.0, sigma=0.05)
     if np.dtype(dtype).kind in "iu":   # counts of 0.02 K (8 bit) or 0.004 K, inside the type's range
         info = np.iinfo(dtype)
