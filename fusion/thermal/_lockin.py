@@ -501,10 +501,10 @@ def lockin(frames, *, frequency=None, times=None, frame_rate=None, load=None, lo
                chunk_frames=chunk_frames, progress=progress)
     maps, bad, unresolved = _fit(work=work, **fit)
     if unresolved > _UNRESOLVED_LIMIT:
-        # float32 sums cannot resolve the residual of these pixels (signal or drift some
-        # 10^4 times the noise): a second pass in float64 keeps the noise maps honest
-        notes.append(f"{unresolved:.1%} of the pixels have a signal or drift over 10^4 times their "
-                     "noise: refitted in float64 (a second pass over the frames)")
+        # float32 sums cannot resolve the residual of these pixels (a range of roughly 250
+        # times the noise or more): a second pass in float64 keeps the noise maps honest
+        notes.append(f"{unresolved:.1%} of the pixels have a temperature range of some 250 times "
+                     "their noise or more: refitted in float64 (a second pass over the frames)")
         maps, bad, _ = _fit(work=np.dtype(np.float64), **fit)
     nbad = sum(bad.values())
     if nbad:
@@ -521,6 +521,8 @@ def lockin(frames, *, frequency=None, times=None, frame_rate=None, load=None, lo
 _UNRESOLVED_LIMIT = 0.01
 #: Smallest residual / sum of squares that float32 sums resolve to 1e-3: the rounding of
 #: the sums is about eps/2 of the sum of squares, so the residual is off by eps/2 / ratio.
+#: With offsets of about a quarter of the squared range R, the ratio is ~4 sigma^2 / R^2:
+#: the limit is reached near R = 250 sigma.
 _RESOLVED_RATIO = float(np.finfo(np.float32).eps) / 2 / 1e-3
 
 
