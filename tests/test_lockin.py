@@ -301,6 +301,28 @@ def test_dask_array_matches_numpy(rng):
         np.testing.assert_allclose(got.delta_T_std, ref.delta_T_std, rtol=2e-4)
 
 
+def test_rows_joined_into_bands_give_the_pixels_of_a_row_by_row_pass(rng):
+    """The pass views narrow frames as bands of joined rows; each pixel's sums are its own,
+    so the maps must equal those of one-row stacks (never joined) bit for bit."""
+    from fusion.thermal._kernels import band_rows
+
+    assert band_rows(256, 320, np.int16) == 2          # 1280 bytes a band row
+    assert band_rows(256, 320, np.float32) == 1        # rows already that long
+    assert band_rows(7, 20, np.uint16) == 7 and band_rows(11, 200, np.uint16) == 1
+    t = np.arange(150) / 40.0
+    counts = np.round(forward(t, (6, 40), rng, f=6.0, sigma=0.05) / 0.01).astype(np.uint16)
+    kelvin = forward(t, (4, 3), rng, f=6.0, dtype=np.float32)
+    for frames, kw in ((counts, dict(gain=0.01, saturation=60000)), (kelvin, {})):
+        assert band_rows(*frames.shape[1:], frames.dtype) == frames.shape[1]
+        frames[7, 1, 2] = 60000 if frames.dtype == np.uint16 else np.nan   # one bad pixel
+        whole = lockin(frames, frame_rate=40.0, frequency=6.0, **kw)
+        for y in range(frames.shape[1]):
+            row = lockin(frames[:, y:y + 1].copy(), frame_rate=40.0, frequency=6.0, **kw)
+            for name in ("T0", "delta_T", "delta_T_quadrature", "delta_T_std", "phase", "valid"):
+                np.testing.assert_array_equal(getattr(whole, name)[y], getattr(row, name)[0], err_msg=name)
+        assert sum(whole.bad_pixels.values()) == 1 and not whole.valid[1, 2]
+
+
 def test_memmap_and_odd_chunks_match_in_memory(rng, tmp_path):
     frames = forward(np.arange(301) / 40.0, (9, 7), rng, f=6.0, phi=0.0, dtype=np.float32)
     np.save(tmp_path / "s.npy", frames)
@@ -327,9 +349,11 @@ def test_reference_pass_is_the_numpy_sum(rng):
     a = rng.standard_normal((37, 5, 6)).astype(np.float32)
     b = rng.integers(-3000, 3000, size=(9, 3, 4)).astype(np.int16)
     for prefetched in (False, True):
-        np.testing.assert_allclose(reference_pass(a, prefetched=prefetched), a.astype(np.float64).sum(axis=0),
-                                   rtol=1e-12, atol=1e-9)
-        assert np.array_equal(reference_pass(b, prefetched=prefetched), b.sum(axis=0, dtype=np.int64))
+        for bands in (False, True):
+            kw = dict(prefetched=prefetched, bands=bands)
+            np.testing.assert_allclose(reference_pass(a, **kw), a.astype(np.float64).sum(axis=0),
+                                       rtol=1e-12, atol=1e-9)
+            assert np.array_equal(reference_pass(b, **kw), b.sum(axis=0, dtype=np.int64))
 
 
 def test_progress_is_silent_off_a_terminal(rng, capsys):

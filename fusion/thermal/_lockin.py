@@ -537,7 +537,9 @@ def _fit(*, frames, B, work, half, gain, offset, saturation, chunk_frames, progr
         acc, vmax, ref = _kernels.stream_dask(frames, Bw, with_max, chunk_frames, progress)
     else:
         acc, vmax, ref = _kernels.stream(frames, Bw, with_max, chunk_frames, progress)
-    maps, bad, rss_fraction, valid = _solve(acc, vmax, ref, G, half, B.shape[0], gain, offset, saturation)
+    shape = tuple(frames.shape[1:])
+    maps, bad, rss_fraction, valid = _solve(acc, vmax, ref, G, half, B.shape[0], gain, offset, saturation,
+                                            shape)
     unresolved = 0.0
     if work == np.float32 and valid:
         unresolved = np.count_nonzero(rss_fraction < _RESOLVED_RATIO) / valid
@@ -553,20 +555,23 @@ def _frames_dtype(frames):
     return dt
 
 
-def _solve(acc, vmax, ref, G, half, n, gain, offset, saturation):
+def _solve(acc, vmax, ref, G, half, n, gain, offset, saturation, shape):
     """Per-pixel maps and masks from the accumulated sums (compiled, no large temporaries).
 
-    Also returns the map of residual / sum of squares (NaN where masked) and the
-    number of valid pixels.
+    The sums come in the band layout of the pass (:func:`fusion.thermal._kernels.stream`);
+    the maps are returned as ``shape`` (Y, X) views. Also returns the map of residual /
+    sum of squares (NaN where masked) and the number of valid pixels.
     """
-    ny, _, nx = acc.shape
-    out = np.empty((len(_kernels.MAP_NAMES) + 1, ny, nx), np.float32)   # maps, rss fraction
-    reason = np.empty((ny, nx), np.int8)
-    counts = np.zeros((ny, 4), np.int64)
+    rows, _, cols = acc.shape
+    out = np.empty((len(_kernels.MAP_NAMES) + 1, rows, cols), np.float32)   # maps, rss fraction
+    reason = np.empty((rows, cols), np.int8)
+    counts = np.zeros((rows, 4), np.int64)
     vm = vmax if vmax is not None else np.empty((0, 0))
     sat = float(saturation) if saturation is not None else math.inf
     _kernels.solve(acc, ref, np.linalg.inv(G), vm, sat, gain, offset, half, float(n - _N_BASIS), out,
                    reason, counts)
+    out = out.reshape(out.shape[0], *shape)
+    reason = reason.reshape(shape)
     counts = counts.sum(axis=0)
     bad = {"nonfinite": int(counts[1]), "saturated": int(counts[2]), "dead": int(counts[3])}
     maps = {name: out[k] for k, name in enumerate(_kernels.MAP_NAMES)}
