@@ -354,6 +354,10 @@ def test_reference_pass_is_the_numpy_sum(rng):
             np.testing.assert_allclose(reference_pass(a, **kw), a.astype(np.float64).sum(axis=0),
                                        rtol=1e-12, atol=1e-9)
             assert np.array_equal(reference_pass(b, **kw), b.sum(axis=0, dtype=np.int64))
+    # frame chunks sum in float32: ~1e-7 of the values
+    np.testing.assert_allclose(reference_pass(a, frame_chunks=True), a.astype(np.float64).sum(axis=0),
+                               rtol=1e-5, atol=1e-4)
+    assert np.array_equal(reference_pass(b, frame_chunks=True), b.sum(axis=0, dtype=np.int64))
 
 
 def test_progress_is_silent_off_a_terminal(rng, capsys):
