@@ -323,6 +323,32 @@ def test_rows_joined_into_bands_give_the_pixels_of_a_row_by_row_pass(rng):
         assert sum(whole.bad_pixels.values()) == 1 and not whole.valid[1, 2]
 
 
+def test_compiled_phase_matches_numpy_arctan2(rng):
+    """The solve's branch-free arctan2 (a fitted polynomial) against numpy.arctan2 (reference
+    library), on random values, the axes, signed zeros and values far apart in size."""
+    from numba import njit
+
+    from fusion.thermal._kernels import atan2_deg
+
+    @njit
+    def many(yv, xv, out):
+        for i in range(yv.size):
+            out[i] = atan2_deg(yv[i], xv[i])
+
+    v = rng.standard_normal(20000) * 10.0 ** rng.uniform(-6, 3, 20000)
+    special = np.array([0.0, -0.0, 1.0, -1.0, 1e-30, -1e-30, 1e30, np.inf, -np.inf])
+    yv = np.concatenate([v[:10000], np.repeat(special, special.size)])
+    xv = np.concatenate([v[10000:], np.tile(special, special.size)])
+    ok = ~(np.isinf(yv) | np.isinf(xv))          # infinities never reach it (pixels masked)
+    out = np.empty(yv.size)
+    many(yv, xv, out)
+    want = np.degrees(np.arctan2(yv, xv))
+    np.testing.assert_allclose(out[ok], want[ok], rtol=0, atol=2e-7)
+    nan = np.full(2, np.nan)
+    many(np.array([np.nan, 1.0]), np.array([1.0, np.nan]), nan)
+    assert np.isnan(nan).all()
+
+
 def test_memmap_and_odd_chunks_match_in_memory(rng, tmp_path):
     frames = forward(np.arange(301) / 40.0, (9, 7), rng, f=6.0, phi=0.0, dtype=np.float32)
     np.save(tmp_path / "s.npy", frames)

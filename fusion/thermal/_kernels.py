@@ -73,12 +73,12 @@ from numba import njit, prange, types
 from numba.extending import intrinsic
 
 __all__ = ["accumulate", "solve", "stream", "stream_dask", "is_dask", "work_dtype", "block_sums",
-           "prefetch", "prefetch_rows", "band_rows", "banded", "N_SUMS", "MAP_NAMES", "SUB_BLOCK",
+           "prefetch", "prefetch_rows", "atan2_deg", "band_rows", "banded", "N_SUMS", "MAP_NAMES", "SUB_BLOCK",
            "BAND_BYTES"]
 
 #: Order of the maps written by :func:`solve`.
 MAP_NAMES = ("T0", "delta_T", "delta_T_quadrature", "magnitude", "delta_T_std", "second_harmonic",
-             "second_harmonic_ratio", "drift_rate", "residual_std", "snr")
+             "second_harmonic_ratio", "drift_rate", "residual_std", "snr", "phase")
 
 #: Sums kept per pixel: six cross products with the basis, the sum of d**2, and the
 #: sum of squares about the sub-block references (precision check only).
@@ -183,9 +183,11 @@ def prefetch_rows(frames, first, y):  # pragma: no cover - compiled
 
 
 @njit(parallel=True, cache=True, fastmath=_FASTMATH)
-def accumulate(frames, basis, bsum, ref, acc, vmax):  # pragma: no cover - compiled
+def accumulate(frames, basis, bsum, ref, acc, vmax, first):  # pragma: no cover - compiled
     """Add the lock-in sums of ``frames`` (n, Y, X) into ``acc`` (Y, 8, X) float64.
 
+    With ``first`` (the first block of a pass) ``acc`` is cleared row by row as the pass
+    reaches it, so it may come uninitialised (``np.empty``: no separate zeroing pass).
     ``basis`` is (n, 6) in the work dtype with column 0 equal to one; ``bsum`` its
     float64 column sums per sub-block (:func:`block_sums`); ``ref`` the (Y, X)
     float64 global reference frame. ``vmax`` (Y, X) in the work dtype receives the
@@ -196,6 +198,10 @@ def accumulate(frames, basis, bsum, ref, acc, vmax):  # pragma: no cover - compi
     for y in prange(ny):
         p = np.zeros((7, nx), basis.dtype)         # partial sums of one sub-block
         rb = np.empty(nx, basis.dtype)             # local reference: the sub-block's first frame
+        if first:
+            for j in range(N_SUMS):
+                for x in range(nx):
+                    acc[y, j, x] = 0.0
         for f0 in range(0, n, SUB_BLOCK):
             f1 = min(n, f0 + SUB_BLOCK)
             for x in range(nx):
@@ -260,19 +266,59 @@ def accumulate(frames, basis, bsum, ref, acc, vmax):  # pragma: no cover - compi
             p[:] = 0
 
 
+#: atan(a) = a P(a**2) on [0, 1]: coefficients of P, a degree-9 least-squares fit of
+#: atan(a)/a at 400 Chebyshev nodes in a**2 (made with numpy.polynomial.Chebyshev.fit and
+#: converted to powers). Largest error 1.8e-9 rad (1e-7 degree), far below the float32
+#: rounding of a phase map; checked against numpy.arctan2 in the tests.
+_ATAN_COEF = (0.9999999975460206, -0.3333328229551422, 0.19998230640418527, -0.14261573680607523,
+              0.10940198966442138, -0.08372063951105461, 0.057463557891640364,
+              -0.030717508940221887, 0.01068071946222294, -0.0017437011468155053)
+
+
+@njit(inline="always", fastmath=_FASTMATH)
+def atan2_deg(yv, xv):  # pragma: no cover - compiled
+    """``degrees(arctan2(yv, xv))`` without branches, so a loop over pixels stays vectorised.
+
+    numpy's conventions: (+-0, +-0) gives 0 or +-180 by the signs of the zeros; a NaN gives NaN.
+    """
+    ax = abs(xv)
+    ay = abs(yv)
+    hi = max(ax, ay)
+    lo = min(ax, ay)
+    a = lo / hi if hi > 0.0 else 0.0
+    if xv != xv or yv != yv:
+        a = np.nan
+    u = a * a
+    c = _ATAN_COEF
+    p = c[9]
+    p = p * u + c[8]
+    p = p * u + c[7]
+    p = p * u + c[6]
+    p = p * u + c[5]
+    p = p * u + c[4]
+    p = p * u + c[3]
+    p = p * u + c[2]
+    p = p * u + c[1]
+    p = p * u + c[0]
+    r = a * p
+    r = 0.5 * math.pi - r if ay > ax else r
+    r = math.pi - r if math.copysign(1.0, xv) < 0.0 else r
+    r = -r if math.copysign(1.0, yv) < 0.0 else r
+    return r * (180.0 / math.pi)
+
+
 @njit(parallel=True, cache=True, fastmath=_FASTMATH, error_model="numpy")
-def solve(acc, ref, ginv, vmax, saturation, gain, offset, half, dof, out, reason, counts):  # pragma: no cover
+def solve(acc, ref, ginv, vmax, saturation, gain, offset, half, dof, resolved, out, valid,
+          counts):  # pragma: no cover - compiled
     """Per-pixel coefficients and maps from the sums, in place.
 
-    ``out`` is (11, Y, X) float32 receiving the maps of :data:`MAP_NAMES` (not the
-    phase: numpy's vectorised ``arctan2`` is ten times faster than a scalar call per
-    pixel, so :func:`fusion.thermal._lockin._solve` adds it), then the
-    residual sum of squares over the sum of squares about the sub-block references
-    (how far float32 sums can be trusted with the residual: see
-    :func:`fusion.thermal._lockin._fit`). ``reason``
-    (Y, X) int8 gets 0 valid, 1 non-finite, 2 saturated, 3 dead, and ``counts`` (Y, 4)
-    int64 the number of pixels of each reason per row. ``vmax`` is (Y, X), or (0, 0)
-    when no saturation threshold is set. Masked pixels get NaN.
+    ``out`` is (11, Y, X) float32 receiving the maps of :data:`MAP_NAMES`; ``valid``
+    (Y, X) bool the pixels fitted; ``counts`` (Y, 5) int64 per row the numbers of valid,
+    non-finite, saturated and dead pixels, and of valid pixels whose residual sum of
+    squares is below ``resolved`` times their sum of squares about the sub-block
+    references (float32 sums cannot be trusted with that residual: see
+    :func:`fusion.thermal._lockin._fit`). ``vmax`` is (Y, X), or (0, 0) when no
+    saturation threshold is set. Masked pixels get NaN.
     """
     ny = acc.shape[0]
     nx = acc.shape[2]
@@ -302,8 +348,7 @@ def solve(acc, ref, ginv, vmax, saturation, gain, offset, half, dof, out, reason
             n2 += code == 2
             n3 += code == 3
             poison[x] = 0.0 if code == 0 else np.nan
-        for x in range(nx):
-            reason[y, x] = codes[x]
+            valid[y, x] = code == 0
         counts[y, 0] = nx - n1 - n2 - n3
         counts[y, 1] = n1
         counts[y, 2] = n2
@@ -314,6 +359,7 @@ def solve(acc, ref, ginv, vmax, saturation, gain, offset, half, dof, out, reason
         g30, g31, g32, g33, g34, g35 = ginv[3, 0], ginv[3, 1], ginv[3, 2], ginv[3, 3], ginv[3, 4], ginv[3, 5]
         g40, g41, g42, g43, g44, g45 = ginv[4, 0], ginv[4, 1], ginv[4, 2], ginv[4, 3], ginv[4, 4], ginv[4, 5]
         g50, g51, g52, g53, g54, g55 = ginv[5, 0], ginv[5, 1], ginv[5, 2], ginv[5, 3], ginv[5, 4], ginv[5, 5]
+        n4 = 0
         for x in range(nx):
             a0 = acc[y, 0, x]
             a1 = acc[y, 1, x]
@@ -336,6 +382,7 @@ def solve(acc, ref, ginv, vmax, saturation, gain, offset, half, dof, out, reason
             std = c_std * ag * s
             mag = 2.0 * ag * math.sqrt(b2 * b2 + b3 * b3)
             h2 = 2.0 * ag * math.sqrt(b4 * b4 + b5 * b5)
+            n4 += (rss < resolved * acc[y, 7, x]) & (p == 0.0)
             out[0, y, x] = gain * (b0 + ref[y, x]) + offset + p
             out[1, y, x] = dT + p
             out[2, y, x] = dq + p
@@ -346,7 +393,8 @@ def solve(acc, ref, ginv, vmax, saturation, gain, offset, half, dof, out, reason
             out[7, y, x] = gain * b1 * inv_half + p
             out[8, y, x] = ag * s + p
             out[9, y, x] = abs(dT) / std + p
-            out[10, y, x] = rss / acc[y, 7, x] + p
+            out[10, y, x] = atan2_deg(np.float32(dq), np.float32(dT)) + p
+        counts[y, 4] = n4
 
 
 # ------------------------------------------------------------------------------ driver
@@ -429,9 +477,9 @@ def _block_sums(block, basis, ref, with_max):
     block = _kernel_block(block)
     k = block.shape[1] // ref.shape[0]
     block = banded(block, k)
-    acc = np.zeros((block.shape[1], N_SUMS, block.shape[2]))
+    acc = np.empty((block.shape[1], N_SUMS, block.shape[2]))
     vmax = np.full(block.shape[1:], -np.inf, basis.dtype) if with_max else None
-    _run_kernel(block, np.ascontiguousarray(basis), ref, acc, vmax)
+    _run_kernel(block, np.ascontiguousarray(basis), ref, acc, vmax, True)
     return acc, vmax
 
 
@@ -441,13 +489,13 @@ def _add_sums(a, b):
     return acc, vmax
 
 
-def _run_kernel(block, basis, ref, acc, vmax):
+def _run_kernel(block, basis, ref, acc, vmax, first):
     """One call of :func:`accumulate`; ``basis`` is already in the work dtype."""
     bsum = block_sums(basis)
     if vmax is None:
         vmax = np.empty((0, 0), basis.dtype)
     with _KERNEL_LOCK:
-        accumulate(block, basis, bsum, ref, acc, vmax)
+        accumulate(block, basis, bsum, ref, acc, vmax, first)
 
 
 def is_dask(frames):
@@ -516,7 +564,7 @@ def stream(frames, basis, with_max, chunk_frames, progress):
         chunk_frames = min(int(chunk_frames), max(1, int(limit) // frame_bytes))
     chunk_frames = int(chunk_frames)
     k = band_rows(ny, nx, getattr(frames, "dtype", np.float32))
-    acc = np.zeros((ny // k, N_SUMS, k * nx))
+    acc = np.empty((ny // k, N_SUMS, k * nx))    # cleared by the first block
     vmax = np.full((ny // k, k * nx), -np.inf, basis.dtype) if with_max else None
     bar = _Progress(n, progress)
     ref = None
@@ -526,7 +574,7 @@ def stream(frames, basis, with_max, chunk_frames, progress):
         block = _kernel_block(raw)
         if ref is None:
             ref = banded(np.array(block[0], dtype=np.float64), k)
-        _run_kernel(banded(block, k), basis[f0:f1], ref, acc, vmax)
+        _run_kernel(banded(block, k), basis[f0:f1], ref, acc, vmax, f0 == 0)
         if isinstance(raw, np.ndarray):
             _release(raw)
         del raw, block

@@ -538,11 +538,11 @@ def _fit(*, frames, B, work, half, gain, offset, saturation, chunk_frames, progr
     else:
         acc, vmax, ref = _kernels.stream(frames, Bw, with_max, chunk_frames, progress)
     shape = tuple(frames.shape[1:])
-    maps, bad, rss_fraction, valid = _solve(acc, vmax, ref, G, half, B.shape[0], gain, offset, saturation,
+    maps, bad, n_unresolved, valid = _solve(acc, vmax, ref, G, half, B.shape[0], gain, offset, saturation,
                                             shape)
     unresolved = 0.0
     if work == np.float32 and valid:
-        unresolved = np.count_nonzero(rss_fraction < _RESOLVED_RATIO) / valid
+        unresolved = n_unresolved / valid
     return maps, bad, unresolved
 
 
@@ -559,23 +559,20 @@ def _solve(acc, vmax, ref, G, half, n, gain, offset, saturation, shape):
     """Per-pixel maps and masks from the accumulated sums (compiled, no large temporaries).
 
     The sums come in the band layout of the pass (:func:`fusion.thermal._kernels.stream`);
-    the maps are returned as ``shape`` (Y, X) views. Also returns the map of residual /
-    sum of squares (NaN where masked) and the number of valid pixels.
+    the maps are returned as ``shape`` (Y, X) views. Also returns the number of valid
+    pixels whose residual float32 sums cannot resolve (see :func:`_fit`) and of valid pixels.
     """
     rows, _, cols = acc.shape
-    out = np.empty((len(_kernels.MAP_NAMES) + 1, rows, cols), np.float32)   # maps, rss fraction
-    reason = np.empty((rows, cols), np.int8)
-    counts = np.zeros((rows, 4), np.int64)
+    out = np.empty((len(_kernels.MAP_NAMES), rows, cols), np.float32)
+    valid = np.empty((rows, cols), np.bool_)
+    counts = np.zeros((rows, 5), np.int64)
     vm = vmax if vmax is not None else np.empty((0, 0))
     sat = float(saturation) if saturation is not None else math.inf
-    _kernels.solve(acc, ref, np.linalg.inv(G), vm, sat, gain, offset, half, float(n - _N_BASIS), out,
-                   reason, counts)
+    _kernels.solve(acc, ref, np.linalg.inv(G), vm, sat, gain, offset, half, float(n - _N_BASIS),
+                   _RESOLVED_RATIO, out, valid, counts)
     out = out.reshape(out.shape[0], *shape)
-    reason = reason.reshape(shape)
     counts = counts.sum(axis=0)
     bad = {"nonfinite": int(counts[1]), "saturated": int(counts[2]), "dead": int(counts[3])}
     maps = {name: out[k] for k, name in enumerate(_kernels.MAP_NAMES)}
-    phase = np.arctan2(maps["delta_T_quadrature"], maps["delta_T"])
-    maps["phase"] = np.multiply(phase, np.float32(180.0 / math.pi), out=phase)
-    maps["valid"] = reason == 0
-    return maps, bad, out[-1], int(counts[0])
+    maps["valid"] = valid.reshape(shape)
+    return maps, bad, int(counts[4]), int(counts[0])
