@@ -5,9 +5,10 @@ almost nothing with it (:func:`reference_pass`, numba ``prange`` block sums): th
 fastest of a plain pass over rows unrolled by eight frames, a pass in the kernel's own
 groups of four frames with its software prefetch, each over image rows and over the
 kernel's bands of joined rows, and a pass giving each thread a contiguous chunk of
-whole frames (which is fastest depends on the dtype and the machine; on the
-development machine the frame chunks read float32 ~15 % faster than rows, and the
-prefetched bands read int16 fastest). No streaming
+whole frames summed into float32 or float64 (which is fastest depends on the dtype
+and the machine; on the development machine the prefetched rows and bands read
+fastest, the float32 frame chunks sometimes, the float64 frame chunks never: their
+parts do not stay in the L2 cache). No streaming
 algorithm over the stack can beat it by much. The lock-in is
 timed as the user calls it (:func:`fusion.thermal.lockin`, solve included).
 
@@ -88,8 +89,8 @@ def _block_sum_prefetched(frames, out):  # pragma: no cover - compiled
 
 @njit(parallel=True, cache=True)
 def _frame_chunk_sum(frames, parts):  # pragma: no cover - compiled
-    # each thread sums its own contiguous chunk of whole frames into its float32 part:
-    # the longest sequential reads there are (float32 parts stay in the L2 cache longer)
+    # each thread sums its own contiguous chunk of whole frames into its part: the longest
+    # sequential reads there are (float32 parts stay in the L2 cache longer than float64)
     n, ny, nx = frames.shape
     nt = parts.shape[0]
     for t in prange(nt):
@@ -99,21 +100,21 @@ def _frame_chunk_sum(frames, parts):  # pragma: no cover - compiled
                     parts[t, y, x] += frames[f, y, x]
 
 
-def reference_pass(frames, *, prefetched=False, bands=False, frame_chunks=False):
+def reference_pass(frames, *, prefetched=False, bands=False, frame_chunks=False, chunk_dtype=np.float32):
     """Sum of a (F, Y, X) stack over frames in one parallel pass (float64 result).
 
     The memory-bandwidth reference: every value is read once, with the row-parallel
     schedule of the lock-in kernel; ``prefetched`` reads in the kernel's groups of four
     frames with its software prefetch, ``bands`` walks the kernel's rows of joined image
     rows (:func:`fusion.thermal._kernels.band_rows`). ``frame_chunks`` instead gives each
-    thread a contiguous chunk of whole frames summed into float32 (other options ignored;
-    the result then carries float32 rounding). Which is fastest depends on the machine
+    thread a contiguous chunk of whole frames summed into ``chunk_dtype`` (other options
+    ignored; float32 parts give the result float32 rounding). Which is fastest depends on the machine
     and the dtype, so the benchmark takes the fastest as the limit.
     """
     frames = np.ascontiguousarray(frames)
     _, ny, nx = frames.shape
     if frame_chunks:
-        parts = np.zeros((numba.get_num_threads(), ny, nx), np.float32)
+        parts = np.zeros((numba.get_num_threads(), ny, nx), chunk_dtype)
         _frame_chunk_sum(frames, parts)
         return parts.sum(axis=0, dtype=np.float64)
     view = banded(frames, band_rows(ny, nx, frames.dtype) if bands else 1)
@@ -229,6 +230,9 @@ def bench_lockin(*, quick: bool = False, repeats: int | None = None) -> dict:
         plain block sum alone, the reference as first defined),
         ``lockin_f32_ratio_row_read`` and ``lockin_i16_ratio_row_read`` (against the
         fastest read in the kernel's row schedule, i.e. without the frame chunks),
+        ``lockin_f32_ratio_f64_chunk_sum`` and ``lockin_i16_ratio_f64_chunk_sum`` (against
+        frame chunks summed into float64 parts: slower than the memory allows, since the
+        float64 parts leave the L2 cache, but the most direct form of a block sum),
         ``lockin_mmap_peak_fraction`` (dimensionless), and for information
         ``lockin_f32_seconds``, ``lockin_i16_seconds``, ``reference_f32_seconds``,
         ``reference_i16_seconds``, ``numpy_sum_f32_seconds`` (s),
@@ -249,8 +253,10 @@ def bench_lockin(*, quick: bool = False, repeats: int | None = None) -> dict:
     f32_kw = dict(frequency=7.0, frame_rate=100.0)
     i16_kw = dict(frequency=7.0, frame_rate=100.0, gain=0.01, offset=200.0)
     # the reads the limit is the fastest of: (prefetched, bands), bands only where rows join
+    # (a frame-chunk sum in float64, the issue's example written the obvious way, comes last)
     reads = {name: [dict(prefetched=p, bands=b) for p in (False, True) for b in (False, True)
-                    if not b or band_rows(*stack.shape[1:], stack.dtype) > 1] + [dict(frame_chunks=True)]
+                    if not b or band_rows(*stack.shape[1:], stack.dtype) > 1]
+             + [dict(frame_chunks=True), dict(frame_chunks=True, chunk_dtype=np.float64)]
              for name, stack in (("f32", f32), ("i16", i16))}
     # compile and touch every page before timing
     for stack, kw, name in ((f32, f32_kw, "f32"), (i16, i16_kw, "i16")):
@@ -271,7 +277,8 @@ def bench_lockin(*, quick: bool = False, repeats: int | None = None) -> dict:
     read_f, read_i = times[4:4 + nf], times[4 + nf:]
     plain_f, plain_i = read_f[0], read_i[0]     # (not prefetched, image rows) comes first
     t_rf, t_ri = min(read_f), min(read_i)       # the fastest read is the limit
-    rows_f, rows_i = min(read_f[:-1]), min(read_i[:-1])   # reads in the kernel's row schedule
+    rows_f, rows_i = min(read_f[:-2]), min(read_i[:-2])   # reads in the kernel's row schedule
+    wide_f, wide_i = read_f[-1], read_i[-1]
     del f32, i16
     with tempfile.TemporaryDirectory(prefix="fusion-bench-") as tmp:
         frac, size = _mmap_peak(mshape, budget, tmp)
@@ -282,6 +289,8 @@ def bench_lockin(*, quick: bool = False, repeats: int | None = None) -> dict:
         "lockin_i16_ratio_plain_read": t_li / plain_i,
         "lockin_f32_ratio_row_read": t_lf / rows_f,
         "lockin_i16_ratio_row_read": t_li / rows_i,
+        "lockin_f32_ratio_f64_chunk_sum": t_lf / wide_f,
+        "lockin_i16_ratio_f64_chunk_sum": t_li / wide_i,
         "lockin_numpy_sum_ratio": t_lf / t_np,
         "lockin_f64_work_ratio": t_l64 / t_rf,
         "lockin_mmap_peak_fraction": frac,
