@@ -46,7 +46,7 @@ import numpy as np
 import numba
 from numba import njit, prange
 
-from ..thermal._kernels import band_rows, banded, prefetch_rows
+from ..thermal._kernels import band_rows, banded, prefetch_group, vector_view
 
 __all__ = ["bench_lockin", "reference_pass"]
 
@@ -69,21 +69,25 @@ def _block_sum(frames, out):  # pragma: no cover - compiled
 
 @njit(parallel=True, cache=True)
 def _block_sum_prefetched(frames, out):  # pragma: no cover - compiled
-    # the lock-in kernel's own access pattern without its arithmetic: groups of four
-    # frames, the next four rows prefetched before each group
-    n, ny, nx = frames.shape
+    # the lock-in kernel's own access pattern without its arithmetic: (n, Y, V, L) vectors,
+    # groups of four frames, the next group's lines of each vector prefetched before it
+    n, ny, nv, lanes = frames.shape
     for y in prange(ny):
         f = 0
         while f + 4 <= n:
-            if f + 8 <= n:
-                prefetch_rows(frames, f + 4, y)
-            for x in range(nx):
-                out[y, x] += ((np.float64(frames[f, y, x]) + np.float64(frames[f + 1, y, x]))
-                              + (np.float64(frames[f + 2, y, x]) + np.float64(frames[f + 3, y, x])))
+            ahead = f + 8 <= n
+            for v in range(nv):
+                if ahead:
+                    prefetch_group(frames, f + 4, y, v)
+                for lane in range(lanes):
+                    out[y, v, lane] += ((np.float64(frames[f, y, v, lane]) + np.float64(frames[f + 1, y, v, lane]))
+                                        + (np.float64(frames[f + 2, y, v, lane])
+                                           + np.float64(frames[f + 3, y, v, lane])))
             f += 4
         while f < n:
-            for x in range(nx):
-                out[y, x] += np.float64(frames[f, y, x])
+            for v in range(nv):
+                for lane in range(lanes):
+                    out[y, v, lane] += np.float64(frames[f, y, v, lane])
             f += 1
 
 
@@ -119,7 +123,11 @@ def reference_pass(frames, *, prefetched=False, bands=False, frame_chunks=False,
         return parts.sum(axis=0, dtype=np.float64)
     view = banded(frames, band_rows(ny, nx, frames.dtype) if bands else 1)
     out = np.zeros(view.shape[1:])
-    (_block_sum_prefetched if prefetched else _block_sum)(view, out)
+    if prefetched:
+        view = vector_view(view)
+        _block_sum_prefetched(view, out.reshape(view.shape[1:]))
+    else:
+        _block_sum(view, out)
     return out.reshape(ny, nx)
 
 
