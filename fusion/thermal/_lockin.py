@@ -179,11 +179,12 @@ def _sampling_check(B, frequency, frame_rate, span):
                          "its second harmonic falls on a multiple of half the frame rate); change "
                          "the frame rate")
     Gn = G / np.sqrt(np.outer(d, d))
-    if np.linalg.cond(Gn) > 1e10:
+    w, V = np.linalg.eigh(Gn)   # one decomposition gives the condition number and inv(Gn)
+    if not w[0] > 1e-10 * w[-1]:
         raise ValueError(f"{where}: the sampled basis is singular (the frequency or its second "
                          "harmonic aliases onto the mean, the drift or each other); change the "
                          "frame rate or record more frames")
-    vif = np.diag(np.linalg.inv(Gn))
+    vif = (V * V) @ (1.0 / w)   # diagonal of inv(Gn) = V diag(1/w) V^T
     notes = []
     if max(vif[2], vif[3]) > 100.0 or max(vif[1], vif[4], vif[5]) > 1e6:
         raise ValueError(f"{where}: the samples barely separate the fundamental from the mean, "
