@@ -51,10 +51,10 @@ Layout and numerics
 * The lines of the next four frame rows are prefetched (``llvm.prefetch``) one
   group ahead: the pass alternates between rows of far-apart frames, and the
   requests overlap the memory latency with the arithmetic (measured 10-25 %
-  faster on the development machine). Rows of 4- and 8-byte values are walked in
+  faster on the development machine). Float32 rows in float32 work are walked in
   vectors of 16 (:func:`vector_view`), each vector's next lines requested just
-  before it, which spreads the requests over the arithmetic; rows of smaller
-  counts get theirs in one burst per row.
+  before it, which spreads the requests over the arithmetic; other rows get theirs
+  in one burst per row (faster for them).
 * NaN or infinite values need no test in the loop: they poison only the sums
   of their own pixel, which are checked after the pass. Nothing is shared
   between pixels, so a bad pixel never disturbs its neighbours.
@@ -132,17 +132,20 @@ def banded(arr, k):
     return arr.reshape(*lead, ny // k, k * nx)
 
 
-def vector_view(block):
-    """View a C-contiguous (n, Y, W) block as (n, Y, W/16, 16) where that is whole and the
-    values are 4 or 8 bytes wide, else as (n, Y, 1, W) (no copy either way).
+def vector_view(block, work=None):
+    """View a C-contiguous (n, Y, W) block as (n, Y, W/16, 16) for float32 values in float32
+    work where W is a multiple of 16, else as (n, Y, 1, W) (no copy either way).
 
     The kernel walks a row vector by vector and prefetches the next group's lines of each
     vector just before it: for float32 that spreads the requests over the arithmetic and
-    measured 5-13 % faster than one burst per row. 8- and 16-bit counts were slower that
-    way (their rows stay whole: one burst, then the row).
+    measured 5-13 % faster than one burst per row. Everything else is faster in whole
+    rows (16-bit counts by ~25 %; float64 work two to three times).
+    ``work`` is the work dtype (default :func:`work_dtype` of the block's dtype).
     """
     n, ny, w = block.shape
-    lanes = 16 if block.dtype.itemsize >= 4 and w % 16 == 0 else max(w, 1)
+    work = work_dtype(block.dtype) if work is None else np.dtype(work)
+    vectors = block.dtype == np.float32 and work == np.float32 and w % 16 == 0
+    lanes = 16 if vectors else max(w, 1)
     return block.reshape(n, ny, w // lanes, lanes)
 
 
@@ -525,7 +528,7 @@ def _run_kernel(block, basis, ref, acc, vmax, first):
     if vmax is None:
         vmax = np.empty((0, 0), basis.dtype)
     with _KERNEL_LOCK:
-        accumulate(vector_view(block), basis, bsum, ref, acc, vmax, first)
+        accumulate(vector_view(block, basis.dtype), basis, bsum, ref, acc, vmax, first)
 
 
 def is_dask(frames):
