@@ -464,10 +464,15 @@ def test_kill_at_random_points_then_rerun(demo, tmp_path):
     cfg = campaign(demo, tmp_path / "in", QUICK)
     out = tmp_path / "out"
     cmd = [sys.executable, "-m", "fusion.cli", "run", str(cfg), "--out", str(out)]
+    # the kill windows follow the campaign's own duration on this machine (a whole run
+    # first): one delay in each quarter of it, startup, lock-in, writing, the campaign step
+    t0 = time.monotonic()
+    subprocess.run(cmd[:-1] + [str(tmp_path / "timing")], cwd=ROOT, capture_output=True, check=True,
+                   timeout=300)
+    span = time.monotonic() - t0
     rng = np.random.default_rng(20261201)
     hits = 0
-    # one delay in each 3 s window: startup, lock-in, writing/publishing, the campaign step
-    for i, delay in enumerate(rng.uniform([0.5, 3.0, 6.0, 9.0], [3.0, 6.0, 9.0, 12.0])):
+    for i, delay in enumerate(span * rng.uniform([0.04, 0.25, 0.5, 0.75], [0.25, 0.5, 0.75, 1.0])):
         proc = subprocess.Popen(cmd, cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
                                 start_new_session=True)
         time.sleep(float(delay))
