@@ -306,8 +306,10 @@ def test_rows_joined_into_bands_give_the_pixels_of_a_row_by_row_pass(rng):
     so the maps must equal those of one-row stacks (never joined) bit for bit."""
     from fusion.thermal._kernels import band_rows
 
-    assert band_rows(256, 320, np.int16) == 2          # 1280 bytes a band row
-    assert band_rows(256, 320, np.float32) == 1        # rows already that long
+    assert band_rows(256, 320, np.int16) == 2                    # 640 float32 work values
+    assert band_rows(256, 320, np.float32) == 2
+    assert band_rows(256, 320, np.float32, np.float64) == 1      # 320 float64 work values
+    assert band_rows(256, 640, np.float32) == 1                  # rows already that long
     assert band_rows(7, 20, np.uint16) == 7 and band_rows(11, 200, np.uint16) == 1
     t = np.arange(150) / 40.0
     counts = np.round(forward(t, (6, 40), rng, f=6.0, sigma=0.05) / 0.01).astype(np.uint16)

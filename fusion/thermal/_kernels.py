@@ -42,12 +42,14 @@ Layout and numerics
   register spills.
 * Narrow rows are joined into bands (:func:`band_rows`): a C-contiguous
   ``(n, Y, X)`` block is viewed, without a copy, as ``(n, Y/k, k X)`` so that one
-  kernel row spans about :data:`BAND_BYTES` of each frame. The pass runs fastest
-  when each frame contributes ~20 cache lines per group (measured on 16-bit counts
-  of 320 columns: two image rows a kernel row brought the pass from 1.4x to about
-  1.05x of one read of the same rows). The sums, the reference, the maxima and the
-  maps share that layout; only :func:`fusion.thermal._lockin._solve` turns the
-  maps back to ``(Y, X)`` (again a view).
+  kernel row holds about :data:`BAND_BYTES` of work values (its seven lines of
+  partial sums, ~18 KB, stay in the L1 cache beside the frame rows streaming past).
+  Measured on 320 columns: two image rows a kernel row brought 16-bit counts from
+  1.4x to about 1.05x of one read of the same rows, and float32 frames 4-9 %
+  faster; four rows, or two of 640 columns, were slower again; float64 work runs
+  best on single rows of 320. The sums, the reference, the maxima and the maps
+  share that layout; only :func:`fusion.thermal._lockin._solve` turns the maps
+  back to ``(Y, X)`` (again a view).
 * The lines of the next four frame rows are prefetched (``llvm.prefetch``) one
   group ahead: the pass alternates between rows of far-apart frames, and the
   requests overlap the memory latency with the arithmetic (measured 10-25 %
@@ -92,8 +94,8 @@ N_SUMS = 8
 #: 1e-7 of the sub-block's own values while the widening costs ~0.1 operation a value.
 SUB_BLOCK = 64
 
-#: Bytes of each frame that one kernel row aims at (twenty 64-byte cache lines).
-BAND_BYTES = 1280
+#: Bytes of work values (float32 or float64) one kernel row aims at: 640 float32 values.
+BAND_BYTES = 2560
 
 _FASTMATH = {"contract"}
 
@@ -110,13 +112,14 @@ def work_dtype(dtype):
     return np.dtype(np.float64)
 
 
-def band_rows(ny, nx, dtype):
+def band_rows(ny, nx, dtype, work=None):
     """Image rows joined into one kernel row for frames of ``ny`` x ``nx`` values of ``dtype``.
 
-    The largest ``k <= 8`` dividing ``ny`` with ``k * nx`` values within
-    :data:`BAND_BYTES`, else 1 (rows already that long, or no divisor).
+    The largest ``k <= 8`` dividing ``ny`` with ``k * nx`` values of the work dtype
+    (``work``, default :func:`work_dtype` of ``dtype``) within :data:`BAND_BYTES`,
+    else 1 (rows already that long, or no divisor).
     """
-    size = _kernel_itemsize(dtype)
+    size = (work_dtype(dtype) if work is None else np.dtype(work)).itemsize
     k = 1
     for c in range(2, 9):
         if ny % c == 0 and c * nx * size <= BAND_BYTES:
@@ -153,14 +156,6 @@ def vector_view(block, work=None):
                 break
     lanes = max(lanes, 1)
     return block.reshape(n, ny, w // lanes, lanes)
-
-
-def _kernel_itemsize(dtype):
-    """Bytes a value of ``dtype`` takes in the block the kernel reads (see :func:`_kernel_block`)."""
-    dt = np.dtype(dtype)
-    if dt.kind == "f" and dt.itemsize not in (4, 8):
-        return work_dtype(dt).itemsize
-    return dt.itemsize
 
 
 def block_sums(basis):
@@ -554,7 +549,7 @@ def stream_dask(frames, basis, with_max, chunk_frames, progress):
     # whole frames per block: the kernel walks rows of contiguous frames
     arr = frames.rechunk({0: int(chunk_frames), 1: -1, 2: -1} if chunk_frames else {1: -1, 2: -1})
     _, ny, nx = arr.shape
-    ref = banded(np.array(arr[0].compute(), dtype=np.float64), band_rows(ny, nx, arr.dtype))
+    ref = banded(np.array(arr[0].compute(), dtype=np.float64), band_rows(ny, nx, arr.dtype, basis.dtype))
     ref_d = dask.delayed(ref)
     edges = np.concatenate([[0], np.cumsum(arr.chunks[0])]).astype(int)
     blocks = arr.to_delayed().ravel()
@@ -602,7 +597,7 @@ def stream(frames, basis, with_max, chunk_frames, progress):
     if limit and source is None:  # a lazy reader refuses reads above its limit
         chunk_frames = min(int(chunk_frames), max(1, int(limit) // frame_bytes))
     chunk_frames = int(chunk_frames)
-    k = band_rows(ny, nx, getattr(frames, "dtype", np.float32))
+    k = band_rows(ny, nx, getattr(frames, "dtype", np.float32), basis.dtype)
     acc = np.empty((ny // k, N_SUMS, k * nx))    # cleared by the first block
     vmax = np.full((ny // k, k * nx), -np.inf, basis.dtype) if with_max else None
     bar = _Progress(n, progress)
