@@ -78,7 +78,7 @@ from numba import njit, prange, types
 from numba.extending import intrinsic
 
 __all__ = ["accumulate", "solve", "stream", "stream_dask", "is_dask", "work_dtype", "block_sums",
-           "prefetch", "prefetch_group", "atan2_deg", "band_rows", "banded", "vector_view", "N_SUMS", "MAP_NAMES", "SUB_BLOCK",
+           "prefetch", "prefetch_group", "atan2_deg", "gram", "band_rows", "banded", "vector_view", "N_SUMS", "MAP_NAMES", "SUB_BLOCK",
            "BAND_BYTES"]
 
 #: Order of the maps written by :func:`solve`.
@@ -163,9 +163,35 @@ def block_sums(basis):
 
     Sub-blocks are counted from the first row given, as :func:`accumulate` counts them.
     """
-    b = np.asarray(basis)
-    edges = np.arange(0, b.shape[0], SUB_BLOCK)
-    return np.add.reduceat(b.astype(np.float64), edges, axis=0)
+    return _block_sums_of(np.ascontiguousarray(basis))
+
+
+@njit(cache=True)
+def _block_sums_of(b):  # pragma: no cover - compiled
+    # compiled: after a pass has streamed the stack through every cache, a few numpy calls
+    # on small arrays cost tens of microseconds each, this loop a few
+    n, m = b.shape
+    out = np.zeros(((n + SUB_BLOCK - 1) // SUB_BLOCK, m))
+    for k in range(n):
+        for j in range(m):
+            out[k // SUB_BLOCK, j] += np.float64(b[k, j])
+    return out
+
+
+@njit(cache=True)
+def gram(b):  # pragma: no cover - compiled
+    """``b.T @ b`` in float64 for an (n, m) float32 or float64 array (compiled, see above)."""
+    n, m = b.shape
+    g = np.zeros((m, m))
+    for k in range(n):
+        for i in range(m):
+            bi = np.float64(b[k, i])
+            for j in range(i, m):
+                g[i, j] += bi * np.float64(b[k, j])
+    for i in range(m):
+        for j in range(i):
+            g[i, j] = g[j, i]
+    return g
 
 
 @intrinsic

@@ -16,6 +16,7 @@ import logging
 import math
 
 import numpy as np
+from numba import njit
 
 from . import _kernels
 
@@ -146,18 +147,27 @@ def _check_times(times, n, name="times"):
 
 def _design(times, frequency, phase):
     """(N, 6) basis [1, tau, cos th, sin th, cos 2th, sin 2th] and the half span of tau (s)."""
-    t = np.asarray(times, dtype=np.float64)
+    t = np.ascontiguousarray(times, dtype=np.float64)
+    return _basis(t, float(frequency), float(phase)), max(0.5 * float(t[-1] - t[0]), np.finfo(float).tiny)
+
+
+@njit(cache=True)
+def _basis(t, frequency, phase):  # pragma: no cover - compiled
+    # compiled: numpy's calls on small arrays cost tens of microseconds each when the
+    # caches are cold (as after a pass over a stack), this loop a few
+    n = t.size
     mid = 0.5 * (t[0] + t[-1])
-    half = max(0.5 * (t[-1] - t[0]), np.finfo(float).tiny)
-    theta = 2.0 * math.pi * frequency * t + phase
-    B = np.empty((t.size, _N_BASIS))
-    B[:, 0] = 1.0
-    B[:, 1] = (t - mid) / half
-    B[:, 2] = np.cos(theta)
-    B[:, 3] = np.sin(theta)
-    B[:, 4] = np.cos(2.0 * theta)
-    B[:, 5] = np.sin(2.0 * theta)
-    return B, half
+    half = max(0.5 * (t[-1] - t[0]), 2.2250738585072014e-308)
+    B = np.empty((n, _N_BASIS))
+    for k in range(n):
+        theta = 2.0 * math.pi * frequency * t[k] + phase
+        B[k, 0] = 1.0
+        B[k, 1] = (t[k] - mid) / half
+        B[k, 2] = math.cos(theta)
+        B[k, 3] = math.sin(theta)
+        B[k, 4] = math.cos(2.0 * theta)
+        B[k, 5] = math.sin(2.0 * theta)
+    return B
 
 
 def _sampling_check(B, frequency, frame_rate, span):
@@ -172,7 +182,7 @@ def _sampling_check(B, frequency, frame_rate, span):
     if cycles < 1.0:
         raise ValueError(f"{where}: the record covers {cycles:.2f} load cycles; at least one is "
                          "needed (record more frames)")
-    G = B.T @ B
+    G = _kernels.gram(B)
     d = np.diag(G)
     if np.any(d < 1e-9 * n):
         raise ValueError(f"{where}: a basis column vanishes at the sample times (the frequency or "
@@ -532,7 +542,7 @@ def _fit(*, frames, B, work, half, gain, offset, saturation, chunk_frames, progr
     # the kernels multiply by the basis rounded to their work dtype: the normal matrix is
     # built from those very values, so the fit is exact least squares on them
     Bw = B.astype(work)
-    G = Bw.T.astype(np.float64) @ Bw.astype(np.float64)
+    G = _kernels.gram(Bw)
     with_max = saturation is not None
     if _kernels.is_dask(frames):
         acc, vmax, ref = _kernels.stream_dask(frames, Bw, with_max, chunk_frames, progress)
