@@ -10,10 +10,11 @@ pass over memory, block after block.
 Layout and numerics
 -------------------
 * ``frames`` is a ``(n, Y, X)`` block in its own dtype (float32/float64, or
-  int16/uint16/uint8/int32 detector counts), read once and never copied.
+  int16/uint16/uint8/int32 detector counts), read once and never copied (the
+  kernel sees it through views: bands of rows cut into vectors, below).
 * Work precision (:func:`work_dtype`): float32 for float32 and 8/16-bit integer
   stacks, float64 for float64 and wider integers. In float32 work each value
-  costs half the vector lanes of float64, which is what lets the pass run at the
+  costs half the vector lanes of float64, which is what lets the pass run near the
   speed of memory on two cores (a float64 pass measured 1.5-2x slower than one
   plain read of the stack; the products are compute-bound, not memory-bound).
 * Two-level sums keep float32 work accurate. Within a sub-block of

@@ -428,7 +428,7 @@ def lockin(frames, *, frequency=None, times=None, frame_rate=None, load=None, lo
     record of length T.
 
     Float32 and 8/16-bit integer stacks are multiplied in float32 (twice the values per
-    vector instruction, which keeps the pass at the speed of memory), summed over 64
+    vector instruction, which keeps the pass near the speed of memory), summed over 64
     frames about the first of them and then widened to float64. The coefficients then
     differ from a float64 fit by ~1e-7 of the values (far below their standard errors)
     and the residual noise by about ``6e-8 / rho`` relative, with ``rho`` the residual
