@@ -15,7 +15,7 @@ Layout and numerics
 * Work precision (:func:`work_dtype`): float32 for float32 and 8/16-bit integer
   stacks, float64 for float64 and wider integers. In float32 work each value
   costs half the vector lanes of float64, which is what lets the pass run near the
-  speed of memory on two cores (a float64 pass measured 1.5-2x slower than one
+  speed of memory on two cores (a float64 pass measured 1.3-1.7x the time of one
   plain read of the stack; the products are compute-bound, not memory-bound).
 * Two-level sums keep float32 work accurate. Within a sub-block of
   :data:`SUB_BLOCK` frames the products are summed in the work dtype about that

@@ -400,7 +400,7 @@ def lockin(frames, *, frequency=None, times=None, frame_rate=None, load=None, lo
         Arithmetic of the pass. ``"auto"`` multiplies float32 and 8/16-bit integer
         stacks in float32 (sums widened to float64 every 64 frames, see Notes) and
         refits in float64 when that cannot resolve the residual; ``"float64"``
-        always works in float64 (about 1.5-2x slower on a stack in memory).
+        always works in float64 (about 1.1-1.4x slower on a float32 stack in memory).
 
     Returns
     -------
