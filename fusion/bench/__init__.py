@@ -70,8 +70,9 @@ def run_benchmarks(*, quick: bool = False, only=None) -> dict:
 
 def format_table(results: dict) -> str:
     """The benchmark results as a plain-text table with their targets."""
+    width = max([len("measure")] + [len(k) for k in results])
     lines = [f"fusion bench on {results.get('cores')} cores{' (quick sizes)' if results.get('quick') else ''}",
-             f"{'measure':<22} {'value':>12}  {'target':>10}  meaning"]
+             f"{'measure':<{width}} {'value':>12}  {'target':>10}  meaning"]
     for k, v in results.items():
         if k in ("cores", "quick"):
             continue
@@ -81,5 +82,5 @@ def format_table(results: dict) -> str:
         flag = ""
         if op and isinstance(v, (int, float)):
             flag = "  ok" if (v <= target if op == "<=" else v >= target) else "  MISSED"
-        lines.append(f"{k:<22} {val:>12}  {tgt:>10}  {meaning}{flag}")
+        lines.append(f"{k:<{width}} {val:>12}  {tgt:>10}  {meaning}{flag}".rstrip())
     return "\n".join(lines)
