@@ -80,7 +80,8 @@ def _block_sum_prefetched(frames, out):  # pragma: no cover - compiled
                 if ahead:
                     prefetch_group(frames, f + 4, y, v)
                 for lane in range(lanes):
-                    out[y, v, lane] += ((np.float64(frames[f, y, v, lane]) + np.float64(frames[f + 1, y, v, lane]))
+                    out[y, v, lane] += ((np.float64(frames[f, y, v, lane])
+                                         + np.float64(frames[f + 1, y, v, lane]))
                                         + (np.float64(frames[f + 2, y, v, lane])
                                            + np.float64(frames[f + 3, y, v, lane])))
             f += 4

@@ -47,8 +47,8 @@ Layout and numerics
   partial sums, ~18 KB, stay in the L1 cache beside the frame rows streaming past).
   Measured on 320 columns: two image rows a kernel row brought 16-bit counts from
   1.4x to about 1.05x of one read of the same rows, and float32 frames 4-9 %
-  faster; four rows, or two of 640 columns, were slower again; float64 work runs
-  best on single rows of 320. The sums, the reference, the maxima and the maps
+  faster; four rows were no faster, two rows of 640 columns slower; float64 work
+  runs best on single rows of 320. The sums, the reference, the maxima and the maps
   share that layout; only :func:`fusion.thermal._lockin._solve` turns the maps
   back to ``(Y, X)`` (again a view).
 * The lines of the next four frame rows are prefetched (``llvm.prefetch``) one
@@ -79,8 +79,8 @@ from numba import njit, prange, types
 from numba.extending import intrinsic
 
 __all__ = ["accumulate", "solve", "stream", "stream_dask", "is_dask", "work_dtype", "block_sums",
-           "prefetch", "prefetch_group", "atan2_deg", "gram", "band_rows", "banded", "vector_view", "N_SUMS", "MAP_NAMES", "SUB_BLOCK",
-           "BAND_BYTES"]
+           "prefetch", "prefetch_group", "atan2_deg", "gram", "band_rows", "banded", "vector_view",
+           "N_SUMS", "MAP_NAMES", "SUB_BLOCK", "BAND_BYTES"]
 
 #: Order of the maps written by :func:`solve`.
 MAP_NAMES = ("T0", "delta_T", "delta_T_quadrature", "magnitude", "delta_T_std", "second_harmonic",
@@ -142,7 +142,7 @@ def vector_view(block, work=None):
     The kernel walks a row vector by vector and prefetches the next group's lines of each
     vector just before it, which spreads the requests over the arithmetic. Measured on
     the development machine (rows of 320 values): 4-byte values run fastest in vectors of
-    64 (float32 5-20 % faster than whole rows, int32 17 %; float32 in float64 work 20 %),
+    64 (float32 16-18 % faster than whole rows, int32 17 %; float32 in float64 work 20 %),
     then 32; 16 helps float32 in float32 work only (float64 work is 3x slower that way).
     1-, 2- and 8-byte values run as fast or faster in whole rows (L = W).
     ``work`` is the work dtype (default :func:`work_dtype` of the block's dtype).
