@@ -8,9 +8,9 @@ kernel's bands of joined rows, and a pass giving each thread a contiguous chunk 
 whole frames summed into float32 or float64 (which is fastest depends on the dtype
 and the machine; on the development machine the prefetched rows and bands read
 fastest, the float32 frame chunks sometimes, the float64 frame chunks never: their
-parts do not stay in the L2 cache). No streaming
-algorithm over the stack can beat it by much. The lock-in is
-timed as the user calls it (:func:`fusion.thermal.lockin`, solve included).
+parts do not stay in the L2 cache). No streaming algorithm over the stack can beat it
+by much. The lock-in is timed as the user calls it (:func:`fusion.thermal.lockin`,
+solve included).
 
 Measures
 --------
@@ -105,16 +105,18 @@ def _frame_chunk_sum(frames, parts):  # pragma: no cover - compiled
                     parts[t, y, x] += frames[f, y, x]
 
 
-def reference_pass(frames, *, prefetched=False, bands=False, frame_chunks=False, chunk_dtype=np.float32):
+def reference_pass(frames, *, prefetched=False, bands=False, frame_chunks=False,
+                   chunk_dtype=np.float32):
     """Sum of a (F, Y, X) stack over frames in one parallel pass (float64 result).
 
     The memory-bandwidth reference: every value is read once, with the row-parallel
     schedule of the lock-in kernel; ``prefetched`` reads in the kernel's groups of four
-    frames with its software prefetch, ``bands`` walks the kernel's rows of joined image
-    rows (:func:`fusion.thermal._kernels.band_rows`). ``frame_chunks`` instead gives each
-    thread a contiguous chunk of whole frames summed into ``chunk_dtype`` (other options
-    ignored; float32 parts give the result float32 rounding). Which is fastest depends on the machine
-    and the dtype, so the benchmark takes the fastest as the limit.
+    frames and vectors with its software prefetch, ``bands`` walks the kernel's rows of
+    joined image rows (:func:`fusion.thermal._kernels.band_rows`). ``frame_chunks``
+    instead gives each thread a contiguous chunk of whole frames summed into
+    ``chunk_dtype`` (other options ignored; float32 parts give the result float32
+    rounding). Which is fastest depends on the machine and the dtype, so the benchmark
+    takes the fastest as the limit.
     """
     frames = np.ascontiguousarray(frames)
     _, ny, nx = frames.shape
@@ -262,7 +264,7 @@ def bench_lockin(*, quick: bool = False, repeats: int | None = None) -> dict:
     f32_kw = dict(frequency=7.0, frame_rate=100.0)
     i16_kw = dict(frequency=7.0, frame_rate=100.0, gain=0.01, offset=200.0)
     # the reads the limit is the fastest of: (prefetched, bands), bands only where rows join
-    # (a frame-chunk sum in float64, the issue's example written the obvious way, comes last)
+    # (a frame-chunk sum in float64, the most direct form of a block sum, comes last)
     reads = {name: [dict(prefetched=p, bands=b) for p in (False, True) for b in (False, True)
                     if not b or band_rows(*stack.shape[1:], stack.dtype) > 1]
              + [dict(frame_chunks=True), dict(frame_chunks=True, chunk_dtype=np.float64)]

@@ -147,8 +147,7 @@ def _check_times(times, n, name="times"):
 
 def _design(times, frequency, phase):
     """(N, 6) basis [1, tau, cos th, sin th, cos 2th, sin 2th] and the half span of tau (s)."""
-    t = np.ascontiguousarray(times, dtype=np.float64)
-    return _basis(t, float(frequency), float(phase)), max(0.5 * float(t[-1] - t[0]), np.finfo(float).tiny)
+    return _basis(np.ascontiguousarray(times, dtype=np.float64), float(frequency), float(phase))
 
 
 @njit(cache=True)
@@ -167,7 +166,7 @@ def _basis(t, frequency, phase):  # pragma: no cover - compiled
         B[k, 3] = math.sin(theta)
         B[k, 4] = math.cos(2.0 * theta)
         B[k, 5] = math.sin(2.0 * theta)
-    return B
+    return B, half
 
 
 def _sampling_check(B, frequency, frame_rate, span):
