@@ -164,11 +164,11 @@ def block_sums(basis):
 
     Sub-blocks are counted from the first row given, as :func:`accumulate` counts them.
     """
-    return _block_sums_of(np.ascontiguousarray(basis))
+    return _basis_block_sums(np.ascontiguousarray(basis))
 
 
 @njit(cache=True)
-def _block_sums_of(b):  # pragma: no cover - compiled
+def _basis_block_sums(b):  # pragma: no cover - compiled
     # compiled: after a pass has streamed the stack through every cache, a few numpy calls
     # on small arrays cost tens of microseconds each, this loop a few
     n, m = b.shape
