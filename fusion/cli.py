@@ -77,11 +77,11 @@ def _setup_logging(debug: bool, quiet: bool) -> None:
 
 
 def _cmd_run(args) -> int:
-    from ._workers import prestart
+    from .campaign._workers import prestart
 
-    # before the pipeline's imports: the workers' fork server starts up meanwhile
+    # before the campaign's imports: the workers' fork server starts up meanwhile
     prestart(args.config, workers=args.workers, scheduler=args.scheduler, only=args.only)
-    from .pipeline import run_campaign
+    from .campaign import run_campaign
 
     outcome = run_campaign(args.config, out=args.out, overwrite=args.overwrite, only=args.only,
                            scheduler=args.scheduler, workers=args.workers,
@@ -91,7 +91,7 @@ def _cmd_run(args) -> int:
 
 
 def _cmd_check(args) -> int:
-    from .pipeline import check_campaign
+    from .campaign import check_campaign
 
     lines = check_campaign(args.config)
     for line in lines:

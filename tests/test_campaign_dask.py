@@ -14,10 +14,10 @@ import numpy as np
 import pytest
 import xarray as xr
 
-from fusion import _schedule
+from fusion.campaign import _schedule
 from fusion.cli import main
 from fusion.errors import InputError
-from fusion.pipeline import run_campaign
+from fusion.campaign import run_campaign
 
 from _campaigns import T0, write_campaign  # noqa: E402  (shared synthetic campaign)
 
@@ -175,14 +175,14 @@ def test_one_log_line_per_run_when_not_interactive(campaign, caplog, tmp_path):
     with caplog.at_level(logging.INFO, logger="fusion"):
         res = run_campaign(cfg, out=tmp_path / "o", workers=1, progress=True)   # stderr is no terminal
     assert res.ok
-    lines = [r.getMessage() for r in caplog.records if r.name == "fusion._schedule" and r.levelno >= logging.INFO]
+    lines = [r.getMessage() for r in caplog.records if r.name == "fusion.campaign._schedule" and r.levelno >= logging.INFO]
     for name in ("R0", "R1", "R2"):
         mine = [m for m in lines if f" {name} " in m]
         assert len(mine) == 1 and "done" in mine[0], lines
     with caplog.at_level(logging.INFO, logger="fusion"):
         caplog.clear()
         run_campaign(cfg, out=tmp_path / "o", workers=1)
-    assert sum("skipped" in r.getMessage() for r in caplog.records if r.name == "fusion._schedule") == 3
+    assert sum("skipped" in r.getMessage() for r in caplog.records if r.name == "fusion.campaign._schedule") == 3
 
 
 class _Terminal(io.StringIO):
@@ -203,5 +203,5 @@ def test_bars_on_a_terminal(campaign, caplog, monkeypatch, tmp_path):
     for name in ("R0", "R1", "R2"):
         assert f"] {name} done" in text                            # a line per run above the bar
     # the terminal shows the lines; the log does not repeat them
-    assert not [r for r in caplog.records if r.name == "fusion._schedule" and r.levelno == logging.INFO
+    assert not [r for r in caplog.records if r.name == "fusion.campaign._schedule" and r.levelno == logging.INFO
                 and " R0 " in r.getMessage()]

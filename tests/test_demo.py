@@ -1,11 +1,12 @@
 """End to end on the demo campaign: the recovered source maps match the sources built in.
 
-The demo data are synthetic (fusion/demo.py, sample_data/README.md): each run is generated with a
+The demo data are synthetic (fusion/demo/, sample_data/README.md): each run is generated with a
 known source of the signal. These tests run the whole pipeline on them and check what a user
 relies on: the source map, the residual of the true source, the contract of the outputs.
 """
 
 import json
+import os
 import re
 from pathlib import Path
 
@@ -16,7 +17,7 @@ import xarray as xr
 
 from fusion.datamodel import RESULT_VARIABLES
 from fusion.demo import DEMO_RUNS, generate
-from fusion.pipeline import run_campaign
+from fusion.campaign import run_campaign
 
 pytestmark = pytest.mark.slow
 
@@ -160,3 +161,56 @@ strain_ranges = "CX-2Hz_strain.csv"
     assert not list(out.glob(".*partial*"))
     report = (out / "report.html").read_text()
     assert "BAD-missing" in report
+
+
+# ------------------------------------------------------------------------ unchanged results
+# A change detector, not a reference: the digest of every demo map as the code computed it when
+# the digest was written (tests/data/demo_digest.json). A change that is meant to alter results
+# rewrites it (FUSION_WRITE_DEMO_DIGEST=1 python3 -m pytest tests/test_demo.py -k digest) and says
+# in its commit message which maps moved and why; any other change must leave every map as it was.
+DIGEST = ROOT / "tests" / "data" / "demo_digest.json"
+
+
+def _digest(out):
+    digest = {}
+    for run in DEMO_RUNS:
+        ds = _open(out, run.name)
+        entry = {}
+        for name, var in ds.data_vars.items():
+            a = np.asarray(var.values)
+            if a.dtype.kind in "iu":
+                vals, counts = np.unique(a, return_counts=True)
+                entry[name] = {"counts": {str(int(v)): int(c) for v, c in zip(vals, counts)}}
+            else:
+                a = a.astype(np.float64)
+                ok = np.isfinite(a)
+                entry[name] = {"finite": int(ok.sum()), "mean": float(a[ok].mean()) if ok.any() else None,
+                               "std": float(a[ok].std()) if ok.any() else None}
+        digest[run.name] = entry
+    return digest
+
+
+def test_demo_maps_are_unchanged(demo):
+    _, out, _ = demo
+    now = _digest(out)
+    if os.environ.get("FUSION_WRITE_DEMO_DIGEST"):
+        DIGEST.write_text(json.dumps(now, indent=1, sort_keys=True) + "\n")
+    then = json.loads(DIGEST.read_text())
+    assert sorted(now) == sorted(then)
+    moved = []
+    for run, maps in then.items():
+        assert sorted(now[run]) == sorted(maps), f"{run}: variables changed"
+        for name, d in maps.items():
+            n = now[run][name]
+            if "counts" in d:
+                total = sum(d["counts"].values())
+                # a pixel or two may change class on another CPU (last-bit rounding of float32 sums)
+                if any(abs(n["counts"].get(k, 0) - c) > 2 + 0.002 * total for k, c in d["counts"].items()):
+                    moved.append(f"{run}.{name}: {d['counts']} -> {n['counts']}")
+                continue
+            if abs(n["finite"] - d["finite"]) > 2 + 0.002 * d["finite"]:
+                moved.append(f"{run}.{name}: {d['finite']} -> {n['finite']} finite values")
+            for k in ("mean", "std"):
+                if d[k] is not None and not np.isclose(n[k], d[k], rtol=1e-4, atol=1e-12 + 1e-4 * abs(d["std"] or 0)):
+                    moved.append(f"{run}.{name}.{k}: {d[k]!r} -> {n[k]!r}")
+    assert not moved, "demo results changed:\n" + "\n".join(moved)

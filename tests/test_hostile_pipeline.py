@@ -26,7 +26,7 @@ import pytest
 
 from fusion.cli import main
 from fusion.io import read_netcdf
-from fusion.pipeline import LOCK_NAME, campaign_lock
+from fusion.campaign import LOCK_NAME, campaign_lock
 from fusion.report import validate_summary
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -273,12 +273,12 @@ def test_one_bad_run_does_not_stop_the_others(demo, tmp_path, capsys):
 def test_disk_full_while_writing_leaves_no_folder(demo, tmp_path, capsys, monkeypatch):
     import errno
 
-    import fusion.report as P
+    import fusion.run._write as writer
 
     def full(*a, **k):
         raise OSError(errno.ENOSPC, "No space left on device", str(tmp_path / "out" / "x.tmp"))
 
-    monkeypatch.setattr(P, "write_summary", full)
+    monkeypatch.setattr(writer, "write_summary", full)
     cfg = campaign(demo, tmp_path / "in", ("CQ-0p05Hz",))
     code, stdout, _ = fusion_run(capsys, cfg, tmp_path / "out")
     assert code == 1
@@ -288,12 +288,12 @@ def test_disk_full_while_writing_leaves_no_folder(demo, tmp_path, capsys, monkey
 
 
 def test_interrupt_while_computing_leaves_no_folder(demo, tmp_path, capsys, monkeypatch):
-    import fusion._runner as runner
+    import fusion.campaign._process as process
 
     def interrupted(*a, **k):
         raise KeyboardInterrupt
 
-    monkeypatch.setattr(runner, "write_run", interrupted)
+    monkeypatch.setattr(process, "write_run", interrupted)
     cfg = campaign(demo, tmp_path / "in", ("CQ-0p05Hz",))
     assert main(["run", str(cfg), "--out", str(tmp_path / "out"), "--scheduler", "synchronous"]) == 130
     assert "interrupted" in capsys.readouterr().err

@@ -54,8 +54,8 @@ def measured(name, **kw):
     peak = status()["VmHWM"] if reset else resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
     return outcome, before, peak, reset
 
-import fusion.pipeline, fusion._runner  # noqa: E401  (the libraries of a run, imported up front)
-from fusion.pipeline import process_run
+import fusion.campaign, fusion.run  # noqa: E401  (the libraries of a run, imported up front)
+from fusion.campaign import process_run
 
 cfg, out = sys.argv[1], sys.argv[2]
 warm = process_run(cfg, "small", out)           # compiles or loads every kernel a run calls

@@ -31,3 +31,13 @@ def test_public_functions_are_documented(module):
         obj = getattr(mod, name)
         if callable(obj):
             assert obj.__doc__, f"{module}.{name} has no docstring"
+
+
+def test_old_pipeline_names_forward_with_a_warning():
+    import fusion.campaign as new
+    import fusion.pipeline as old
+
+    with pytest.warns(DeprecationWarning, match="fusion.campaign.run_campaign"):
+        assert old.run_campaign is new.run_campaign
+    with pytest.raises(AttributeError):
+        old.compute_run

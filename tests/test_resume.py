@@ -16,7 +16,7 @@ import pytest
 import xarray as xr
 
 from fusion.config import load_config
-from fusion.pipeline import run_campaign, run_stamp
+from fusion.campaign import run_campaign, run_stamp
 
 from _campaigns import ROOT, write_campaign, write_stack  # noqa: E402  (shared synthetic campaign)
 

@@ -9,7 +9,7 @@ from pathlib import Path
 
 import pytest
 
-from fusion import _schedule, _workers
+from fusion.campaign import _schedule, _workers
 
 from _campaigns import ROOT, write_campaign  # noqa: E402  (shared synthetic campaign)
 
@@ -54,7 +54,7 @@ def test_unreadable_config_starts_nothing(tmp_path, monkeypatch):
 def _inside_worker():
     import sys as _sys
 
-    return {"pipeline": "fusion.pipeline" in _sys.modules, "matplotlib": "matplotlib.figure" in _sys.modules,
+    return {"pipeline": "fusion.campaign" in _sys.modules, "matplotlib": "matplotlib.figure" in _sys.modules,
             "blas_threads": os.environ.get("OPENBLAS_NUM_THREADS"), "pid": os.getpid(), "ppid": os.getppid()}
 
 

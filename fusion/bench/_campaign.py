@@ -83,7 +83,7 @@ def bench_campaign(*, quick: bool = False, repeats: int | None = None) -> dict:
     Notes
     -----
     Worker processes are forked from a fork server that imports what a run needs
-    while the campaign process validates the config (:mod:`fusion._workers`); that
+    while the campaign process validates the config (:mod:`fusion.campaign._workers`); that
     start-up (about 2.5 s on the 2-core development machine) is still as long as two
     demo-sized runs (about a second each, figures included), so the speed-up grows
     with the size of the runs. Sequential runs use both cores inside their numba

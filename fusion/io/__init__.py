@@ -6,6 +6,8 @@ write_netcdf, read_netcdf
     Results through xarray, written atomically.
 atomic_path, atomic_write_text, atomic_write_bytes, sha256_file, safe_child
     Safe output helpers.
+input_file
+    An input path checked to be a readable regular file (named in the message).
 open_frames, FrameStack
     Infrared frame stacks (.npy, raw, TIFF, HDF5, NetCDF), lazy and memory-mapped.
 read_load_signal, LoadSignal, read_frame_times
@@ -20,12 +22,13 @@ from ._atomic import atomic_path, atomic_write_bytes, atomic_write_text, safe_ch
 from ._dic import read_dic_field
 from ._images import read_image
 from ._frames import FrameStack, open_frames
+from ._guard import input_file
 from ._maps import read_thermal_maps
 from ._netcdf import read_netcdf, write_netcdf
 from ._signals import LoadSignal, read_frame_times, read_load_signal
 
 __all__ = [
-    "atomic_path", "atomic_write_bytes", "atomic_write_text", "safe_child", "sha256_file",
+    "atomic_path", "atomic_write_bytes", "atomic_write_text", "safe_child", "sha256_file", "input_file",
     "read_netcdf", "write_netcdf",
     "open_frames", "FrameStack", "read_load_signal", "LoadSignal", "read_frame_times", "read_thermal_maps",
     "read_dic_field", "read_image",

@@ -1,6 +1,6 @@
 """One task per run: in-process, on local Dask workers, or on a dask.distributed cluster.
 
-Each task is :func:`fusion.pipeline.process_run` with plain arguments (config path,
+Each task is :func:`fusion.campaign.process_run` with plain arguments (config path,
 run name, output folder), so it pickles to any worker; the worker reads the
 config and the inputs itself. Inputs and the output folder must therefore be
 visible to the workers at the same paths (a shared file system for a remote
@@ -15,7 +15,7 @@ WORKER_BASELINE)))``, where ``available`` is the memory the operating system
 reports as available and ``WORKER_BASELINE`` what a worker holds besides its frame
 chunks. With more than one, Dask's local scheduler feeds that many worker processes
 (forked from a fork server that has the run's modules loaded already, on Linux; see
-:mod:`fusion._workers`), each run's numba and OpenCV kernels on
+:mod:`fusion.campaign._workers`), each run's numba and OpenCV kernels on
 ``max(1, cores // workers)`` threads so that workers do not fight over cores.
 Worker processes exit when the campaign process dies; when one dies, the runs in
 flight fail and the others go on. The ``threads`` kind runs one run at a time: the
@@ -33,6 +33,7 @@ lock-in). Otherwise each run gives exactly one log line when it finishes.
 
 from __future__ import annotations
 
+import hashlib
 import logging
 import math
 import os
@@ -42,6 +43,14 @@ import threading
 import time
 import uuid
 from pathlib import Path
+
+from ..errors import ConfigError, FusionError, InputError
+from ..io import safe_child
+from ._folders import LOCK_NAME
+from ._outcome import RunOutcome
+from ._process import process_run
+from ._provenance import read_stamp, read_summary, run_stamp
+from ._workers import context, watch_campaign_process
 
 log = logging.getLogger(__name__)
 
@@ -228,8 +237,6 @@ def _task(config_path, run_name, out, overwrite, threads):
     """One run on a worker: numba (and OpenCV) threads sized to the worker's share of the cores."""
     import numba
 
-    from .pipeline import process_run
-
     if threads is None:
         threads = _distributed_threads()
     if threads is not None:
@@ -254,8 +261,6 @@ def _distributed_threads():
 
 
 def _worker_init():
-    from ._workers import watch_campaign_process
-
     watch_campaign_process()
 
 
@@ -263,26 +268,22 @@ def _already_done(cfg, run, out):
     """The outcome "skipped" when the run's folder holds a result with the same stamp, else None.
 
     Checked here so that a resumed batch sends no task (and starts no worker) for a
-    finished run; :func:`fusion.pipeline.process_run` makes the same check again.
+    finished run; :func:`fusion.campaign.process_run` makes the same check again.
     """
-    from .errors import FusionError
-    from .io import safe_child
-    from .pipeline import RunOutcome, _read_stamp, _read_summary, run_stamp
-
     try:
         folder = safe_child(Path(out), run.name)
         if folder.is_symlink() or not folder.is_dir() or not (folder / "result.nc").is_file():
             return None
-        if _read_stamp(folder) != run_stamp(cfg, run):
+        if read_stamp(folder) != run_stamp(cfg, run):
             return None
     except (FusionError, OSError):
         return None  # the task reports the problem with the run
-    return RunOutcome(run.name, "skipped", folder, summary=_read_summary(folder))
+    return RunOutcome(run.name, "skipped", folder, summary=read_summary(folder))
 
 
 # --------------------------------------------------------------------------- entry
 def schedule_runs(cfg, runs, out, *, overwrite=False, scheduler=None, workers=None, progress=False):
-    """Process ``runs`` and return their :class:`~fusion.pipeline.RunOutcome` in config order.
+    """Process ``runs`` and return their :class:`~fusion.campaign.RunOutcome` in config order.
 
     Parameters
     ----------
@@ -320,8 +321,6 @@ def schedule_runs(cfg, runs, out, *, overwrite=False, scheduler=None, workers=No
         The distributed scheduler cannot be reached, or a worker cannot see the config
         or the output folder at the same path.
     """
-    from .errors import ConfigError
-
     if scheduler is not None and scheduler not in _KINDS and not _ADDRESS.fullmatch(str(scheduler)):
         raise ConfigError("--scheduler", f"{scheduler!r} is not a scheduler: expected tcp://HOST:PORT, "
                           "'processes', 'threads' or 'synchronous'")
@@ -361,8 +360,6 @@ def _dispatch(cfg, todo, out, report, *, overwrite, scheduler, workers, progress
 
 
 def _sequential(cfg, todo, out, report, *, overwrite, progress):
-    from .pipeline import process_run
-
     for run in todo:
         log.debug("%s ...", run.name)
         report.bar.freeze()  # the run's step bars (lock-in) draw on the next line
@@ -379,7 +376,7 @@ def _preload_products():
     import importlib
 
     for name in ("xarray", "netCDF4", "matplotlib.figure", "matplotlib.backends.backend_agg",
-                 "fusion.io", "fusion.mechanics", "fusion.report", "fusion._campaign"):
+                 "fusion.io", "fusion.mechanics", "fusion.report", "fusion.campaign._products"):
         try:
             importlib.import_module(name)
         except Exception:  # only a head start: the products import (and report) it again later
@@ -388,8 +385,6 @@ def _preload_products():
 
 def _process_pool(n):
     from concurrent.futures import ProcessPoolExecutor
-
-    from ._workers import context
 
     # never a plain fork of this process: its numba thread pool and open files are not
     # fork-safe; workers come from the preloaded fork server (Linux) or are spawned
@@ -407,8 +402,6 @@ def _local(cfg, todo, out, report, *, n, overwrite):
     import dask
     from concurrent.futures.process import BrokenProcessPool
     from dask.callbacks import Callback
-
-    from .pipeline import RunOutcome
 
     config_path, out_s = str(Path(cfg.path).resolve()), str(out.resolve())
     threads = max(1, (os.cpu_count() or 1) // n)
@@ -462,8 +455,6 @@ def _one_line(e) -> str:
 def _connect(address):
     from distributed import Client
 
-    from .errors import InputError
-
     try:
         return Client(address, timeout=CONNECT_TIMEOUT, set_as_default=False)
     except (OSError, TimeoutError, ValueError) as e:
@@ -473,10 +464,6 @@ def _connect(address):
 
 def _probe(config_path, config_sha256, out):
     """On a worker: None when the config and the output folder are visible as on the client."""
-    import hashlib
-
-    from .pipeline import LOCK_NAME
-
     p = Path(config_path)
     try:
         text = p.read_text(encoding="utf-8")
@@ -493,8 +480,6 @@ def _probe(config_path, config_sha256, out):
 
 
 def _check_workers(client, cfg, out):
-    from .errors import InputError
-
     answers = client.run(_probe, str(Path(cfg.path).resolve()), cfg.sha256, str(out))
     if not answers:
         raise InputError(client.scheduler.address, "the Dask cluster has no workers")
@@ -519,8 +504,6 @@ def _check_workers(client, cfg, out):
 def _distributed(address, cfg, todo, out, report, overwrite):
     from distributed import as_completed
 
-    from .errors import InputError
-
     if cfg.path is None:
         raise InputError(address, "a Dask cluster needs the config as a file the workers can read")
     client = _connect(address)
@@ -536,8 +519,6 @@ def _distributed(address, cfg, todo, out, report, overwrite):
             try:
                 o = fut.result()
             except Exception as e:  # a lost worker (KilledWorker), or a task that cannot unpickle
-                from .pipeline import RunOutcome
-
                 o = RunOutcome(futures[fut], "failed", error=f"the Dask worker failed ({_one_line(e)}); "
                                "rerun to retry")
             if o.status == "failed" and "does not exist" in (o.error or ""):

@@ -19,9 +19,9 @@ source map is only as good as the stated uncertainties of the measurement and of
 material properties behind each prediction.
 """
 
-from ._diagnose_calibration import CALIBRATION_RANGE, apply_calibration, calibration_factor
-from ._diagnose_map import Diagnosis, diagnose
-from ._diagnose_regions import WHOLE_FIELD, region_mask, region_table
+from ._calibration import CALIBRATION_RANGE, apply_calibration, calibration_factor
+from ._map import Diagnosis, diagnose
+from ._regions import WHOLE_FIELD, region_mask, region_table
 
 __all__ = [
     "CALIBRATION_RANGE", "Diagnosis", "WHOLE_FIELD", "apply_calibration", "calibration_factor",

@@ -8,8 +8,12 @@ from pathlib import Path
 
 import numpy as np
 
-from . import __version__
-from .errors import FusionError
+from .. import __version__
+from ..errors import FusionError
+from ..io import atomic_path, read_netcdf
+from ..io._netcdf import _clean_attrs
+from ..mechanics import fit_sweep, fit_sweep_maps, source_coefficients, sweep_dataset
+from ..report import campaign_figures, write_report
 
 log = logging.getLogger(__name__)
 
@@ -17,8 +21,6 @@ __all__ = ["write_campaign", "sweep_points"]
 
 
 def _load(folder: Path):
-    from .io import read_netcdf
-
     return read_netcdf(folder / "result.nc")
 
 
@@ -86,9 +88,6 @@ def _sweeps(cfg, outcomes, results):
 
 
 def _fit_specimen(cfg, spec, items, datasets):
-    from .mechanics import fit_sweep, source_coefficients
-    from .mechanics import fit_sweep_maps
-
     lams = {cfg.laminate_for(run).name for run, _ in items}
     lam = cfg.laminate_for(items[0][0])
     if len(lams) > 1:
@@ -131,10 +130,6 @@ def _write_frequency(fits: dict, path: Path, *, overwrite=True) -> Path:
     infrared grid, the per-pixel maps), written atomically."""
     import xarray as xr
 
-    from .io import atomic_path
-    from .io._netcdf import _clean_attrs
-    from .mechanics import sweep_dataset
-
     with atomic_path(path, overwrite=overwrite) as tmp:
         root = xr.Dataset(attrs={"title": "frequency-sweep fits of the campaign", "Conventions": "CF-1.10",
                                  "fusion_version": __version__, "specimens": " ".join(fits)})
@@ -173,8 +168,6 @@ def _band(fit):
 
 def write_campaign(cfg, out: Path, outcomes, *, overwrite=True):
     """Write frequency.nc (when a specimen has a sweep) and report.html; return their paths."""
-    from . import report as P
-
     fits = {}
     loaded = _results(outcomes)
     for spec, (items, datasets) in _sweeps(cfg, outcomes, loaded).items():
@@ -203,7 +196,7 @@ def write_campaign(cfg, out: Path, outcomes, *, overwrite=True):
         if cfg.output.figures:
             specimens = {sp: _specimen_figure_input(f) for sp, f in fits.items()}
             if specimens or results:
-                figures.update(P.campaign_figures(specimens, fig_dir, dpi=150, datasets=results or None,
+                figures.update(campaign_figures(specimens, fig_dir, dpi=150, datasets=results or None,
                                                   overwrite=True))
         failures = [{"run": o.name, "error": o.error} for o in outcomes if o.status == "failed"]
         campaign = {"name": cfg.campaign.name, "description": cfg.campaign.description,
@@ -211,7 +204,7 @@ def write_campaign(cfg, out: Path, outcomes, *, overwrite=True):
                     "date": _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
                     "config_text": cfg.text, "config_path": str(cfg.path) if cfg.path else None,
                     "sweeps": {sp: _sweep_summary(f) for sp, f in fits.items()}}
-        report_path = P.write_report(out / "report.html", campaign=campaign, runs=runs,
+        report_path = write_report(out / "report.html", campaign=campaign, runs=runs,
                                      campaign_figures=figures, failures=failures, overwrite=True)
     return freq_path, report_path
 

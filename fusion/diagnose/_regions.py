@@ -7,7 +7,7 @@ from numbers import Real
 
 import numpy as np
 
-from ._diagnose_map import NO_DATA, Diagnosis
+from ._map import NO_DATA, Diagnosis
 
 __all__ = ["region_mask", "region_table", "WHOLE_FIELD"]
 

@@ -8,7 +8,7 @@ that start-up is as long as several runs and eats the gain of a second worker.
 
 So on Linux the workers are forked from a *fork server* (:mod:`multiprocessing`'s
 ``forkserver`` start method): a fresh, single-threaded interpreter that imports
-and initialises everything once (:mod:`fusion._preload`) and then forks one
+and initialises everything once (:mod:`fusion.campaign._preload`) and then forks one
 worker per request in milliseconds, each inheriting the loaded modules.
 :func:`prestart` launches that server as early as a campaign is known to need
 workers -- the CLI calls it before it imports the pipeline or validates the
@@ -34,7 +34,7 @@ log = logging.getLogger(__name__)
 __all__ = ["prestart", "context", "watch_campaign_process", "PRELOAD_MODULE"]
 
 #: The module the fork server imports before it forks any worker.
-PRELOAD_MODULE = "fusion._preload"
+PRELOAD_MODULE = "fusion.campaign._preload"
 #: Native thread pools limited in the fork server (and so in every worker it forks).
 _THREAD_ENV = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "BLIS_NUM_THREADS",
                "NUMEXPR_NUM_THREADS", "VECLIB_MAXIMUM_THREADS")
@@ -91,7 +91,7 @@ def _wants_workers(config_path, *, workers=None, scheduler=None, only=None) -> b
     A cheap look at the config (TOML only, no validation, no imports of the
     pipeline): more than one core, more than one run to do, and neither the
     arguments nor ``[compute]`` ask for one worker or another scheduler. A wrong
-    guess costs only an idle server; the real decision is :func:`fusion._schedule.plan_workers`.
+    guess costs only an idle server; the real decision is :func:`fusion.campaign._schedule.plan_workers`.
     """
     cores = os.cpu_count() or 1
     if cores < 2 or (workers is not None and workers < 2):

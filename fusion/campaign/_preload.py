@@ -1,4 +1,4 @@
-"""What the fork server of the local workers loads before it forks any (see :mod:`fusion._workers`).
+"""What the fork server of the local workers loads before it forks any (see :mod:`fusion.campaign._workers`).
 
 Imported by that server only: the libraries and fusion modules a run imports,
 the unit registry, and one tiny figure drawn off screen so that the font cache
@@ -19,8 +19,7 @@ _MODULES = (
     "skimage.transform", "cv2", "dask", "dask.local", "dask.array", "distributed",
     "matplotlib", "matplotlib.figure", "matplotlib.backends.backend_agg", "jsonschema",
     "fusion.config", "fusion.io", "fusion.thermal", "fusion.dic", "fusion.register",
-    "fusion.mechanics", "fusion.diagnose", "fusion.report", "fusion._steps", "fusion._runner",
-    "fusion.pipeline", "fusion._schedule",
+    "fusion.mechanics", "fusion.diagnose", "fusion.report", "fusion.run", "fusion.campaign",
 )
 
 _parent = os.getppid()

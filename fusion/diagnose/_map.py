@@ -7,7 +7,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .datamodel import EXTRA_FLAGS, SOURCES, source_flags
+from ..datamodel import EXTRA_FLAGS, SOURCES, source_flags
 
 __all__ = ["Diagnosis", "diagnose"]
 

@@ -17,8 +17,8 @@ from dataclasses import MISSING
 from pathlib import Path
 from typing import Any, Callable
 
-from .errors import ConfigError
-from .units import parse_quantity
+from ..errors import ConfigError
+from ..units import parse_quantity
 
 __all__ = ["Key", "key", "build", "Context", "markdown_reference"]
 

@@ -30,15 +30,20 @@ from pathlib import Path
 
 import numpy as np
 
-from . import __version__
-from ._demo_physics import (apply_homography, coupon_mask, demo_homography, fiducial_centres,
+from .. import __version__
+from ..campaign import run_campaign
+from ..config import load_config
+from ..dic import speckle_image
+from ..io import write_netcdf
+from ..mechanics import engineering_constants, thermal_layers, transfer_coefficients
+from ._physics import (apply_homography, coupon_mask, demo_homography, fiducial_centres,
                             kirsch_displacement, kirsch_strain)
 
 log = logging.getLogger(__name__)
 
 __all__ = ["generate", "run_demo", "DEMO_RUNS", "cache_folder"]
 
-DATA = Path(__file__).parent / "data"
+DATA = Path(__file__).parent.parent / "data"
 
 # geometry (m) and loading
 HALF_WIDTH, HALF_HEIGHT, RADIUS = 15e-3, 21e-3, 4e-3
@@ -88,23 +93,19 @@ def cache_folder() -> Path:
 
 def _scenario_hash() -> str:
     h = hashlib.sha256()
-    for p in (DATA / "demo.toml", DATA / "materials.toml", Path(__file__), Path(__file__).with_name("_demo_physics.py")):
+    for p in (DATA / "demo.toml", DATA / "materials.toml", Path(__file__), Path(__file__).with_name("_physics.py")):
         h.update(p.read_bytes())
     return h.hexdigest()
 
 
 # --------------------------------------------------------------------------- helpers
 def _laminates():
-    from .config import load_config
-
     cfg = load_config(DATA / "demo.toml")
     return cfg
 
 
 def _effective_moduli(lam):
     """Ey and nu_yx of the laminate in the specimen frame (load along y), from CLT."""
-    from .mechanics import engineering_constants
-
     c = engineering_constants(lam)
     # the laminate 0° direction lies along specimen y (zero_direction = 90°)
     return c["Ex"], c["nu_xy"]
@@ -149,8 +150,6 @@ def _scene(xy_mm):
 def _ir_truth(run, lam):
     """Positions (mm) of the IR pixels, their complex ratio, material fraction and displacement
     range (mm) of the surface point seen there, and the homography."""
-    from .mechanics import thermal_layers, transfer_coefficients
-
     H, xy_mm = _ir_geometry()
     xy = xy_mm * 1e-3
     strain, kw = _strain_at(xy, lam)
@@ -237,7 +236,6 @@ def _write_images(folder, run, lam):
     """Speckle images at minimum and maximum load (8-bit PNG), with the fiducial dots and the hole."""
     import cv2
 
-    from .dic import speckle_image
 
     _, kw = _strain_at(np.zeros((1, 2)), lam)
 
@@ -280,8 +278,6 @@ def _write_images(folder, run, lam):
 
 def _write_maps(path, run, T0, ratio, rng):
     """Precomputed lock-in maps (as another processing chain would deliver them)."""
-    from .io import write_netcdf
-
     import xarray as xr
 
     n = run.frames
@@ -363,8 +359,6 @@ def _generate_into(folder: Path):
 # --------------------------------------------------------------------------- run
 def run_demo(out="fusion-demo", *, overwrite=False, progress=False, data=None):
     """Generate the demo inputs (once, cached) and process the campaign into ``out``."""
-    from .pipeline import run_campaign
-
     cfg_path = generate(data)
     log.info("demo inputs in %s", cfg_path.parent)
     return run_campaign(cfg_path, out=out, overwrite=overwrite, progress=progress)

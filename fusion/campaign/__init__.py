@@ -1,0 +1,31 @@
+"""A campaign: every ``[[run]]`` of a config processed into an output folder, safely.
+
+:func:`run_campaign` processes the runs of a config (one task per run, on local
+worker processes or a Dask cluster), publishes each run's folder whole or not at
+all, skips runs whose inputs and settings are unchanged, keeps going when a run
+fails, and then writes the campaign products (``report.html``, and
+``frequency.nc`` for specimens tested at two or more frequencies).
+:func:`check_campaign` validates a config and its inputs without processing.
+
+Public names
+------------
+run_campaign, check_campaign
+    The ``fusion run`` and ``fusion check`` commands as functions.
+process_run
+    One run of a config into its folder (what a worker does).
+RunOutcome, CampaignOutcome
+    What became of a run and of a campaign.
+run_stamp
+    The hash of everything that determines a run's result.
+campaign_lock, LOCK_NAME
+    The exclusive lock of an output folder.
+"""
+
+from ._campaign import check_campaign, run_campaign
+from ._folders import LOCK_NAME, campaign_lock
+from ._outcome import CampaignOutcome, RunOutcome
+from ._process import process_run
+from ._provenance import run_stamp
+
+__all__ = ["CampaignOutcome", "LOCK_NAME", "RunOutcome", "campaign_lock", "check_campaign", "process_run",
+           "run_campaign", "run_stamp"]

@@ -1,0 +1,56 @@
+"""What became of a run and of a campaign."""
+
+from __future__ import annotations
+
+import dataclasses
+from pathlib import Path
+
+__all__ = ["RunOutcome", "CampaignOutcome"]
+
+
+@dataclasses.dataclass
+class RunOutcome:
+    """What became of one run: ``status`` is "done", "skipped" or "failed"."""
+
+    name: str
+    status: str
+    folder: Path | None = None
+    error: str | None = None
+    seconds: float = 0.0
+    summary: dict | None = None
+
+
+@dataclasses.dataclass
+class CampaignOutcome:
+    """What became of a campaign."""
+
+    out: Path
+    runs: list
+    report: Path | None = None
+    frequency: Path | None = None
+    campaign_errors: list = dataclasses.field(default_factory=list)
+
+    @property
+    def ok(self) -> bool:
+        return all(r.status != "failed" for r in self.runs) and not self.campaign_errors
+
+    def describe(self) -> str:
+        lines = []
+        for r in self.runs:
+            if r.status == "failed":
+                lines.append(f"  FAILED  {r.name}: {r.error}")
+            elif r.status == "skipped":
+                lines.append(f"  skipped {r.name} (unchanged since its last result; --overwrite recomputes)")
+            else:
+                verdict = (r.summary or {}).get("verdict", "")
+                lines.append(f"  done    {r.name} ({r.seconds:.1f} s){': ' + verdict if verdict else ''}")
+        for e in self.campaign_errors:
+            lines.append(f"  FAILED  campaign: {e}")
+        n_fail = sum(r.status == "failed" for r in self.runs)
+        head = (f"{len(self.runs) - n_fail} of {len(self.runs)} runs ok" if self.runs else "no runs")
+        lines.insert(0, f"fusion: {head}; results in {self.out}")
+        if self.frequency:
+            lines.append(f"  frequency sweep fit: {self.frequency}")
+        if self.report:
+            lines.append(f"  report: {self.report}")
+        return "\n".join(lines)

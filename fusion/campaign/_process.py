@@ -1,0 +1,77 @@
+"""One run of a campaign into its folder of the output folder, published whole or not at all."""
+
+from __future__ import annotations
+
+import logging
+import os
+import shutil
+import tempfile
+import time
+from pathlib import Path
+
+from ..config import Config, load_config
+from ..errors import ConfigError, FusionError, InputError
+from ..io import safe_child
+from ..run import compute_run, write_run
+from ._folders import publish
+from ._outcome import RunOutcome
+from ._provenance import read_stamp, read_summary, run_stamp
+
+log = logging.getLogger(__name__)
+
+__all__ = ["process_run"]
+
+
+def process_run(config_path, run_name: str, out, *, overwrite: bool = False,
+                progress: bool = False, config: Config | None = None) -> RunOutcome:
+    """Process one run of a config into ``out/<run name>/``; never raises for bad input.
+
+    The function reads the config itself so that it can run on a Dask worker.
+    """
+    t0 = time.perf_counter()
+    try:
+        cfg = config if config is not None else load_config(config_path)
+        run = next((r for r in cfg.runs if r.name == run_name), None)
+        if run is None:
+            raise ConfigError("run", f"no run named {run_name!r}")
+        out = Path(out)
+        folder = safe_child(out, run.name)
+        stamp = run_stamp(cfg, run)
+        if folder.exists() or folder.is_symlink():
+            if folder.is_symlink() or not folder.is_dir():
+                raise InputError(folder, "exists and is not a result folder; remove it or choose another --out")
+            if not overwrite:
+                if read_stamp(folder) == stamp:
+                    return RunOutcome(run.name, "skipped", folder, seconds=time.perf_counter() - t0,
+                                      summary=read_summary(folder))
+                raise InputError(folder, "holds a result made from other inputs or settings; pass "
+                                 "--overwrite to replace it")
+        tmp = Path(tempfile.mkdtemp(prefix=f".{run.name}.partial-", dir=out))
+        # mkdtemp makes the folder private (0700); a published result follows the umask
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o777 & ~umask)
+        try:
+            result = compute_run(cfg, run, progress=progress)
+            summary = write_run(result, tmp, cfg=cfg, run=run, stamp=stamp)
+            publish(tmp, folder)
+        except BaseException:
+            shutil.rmtree(tmp, ignore_errors=True)
+            raise
+        return RunOutcome(run.name, "done", folder, seconds=time.perf_counter() - t0, summary=summary)
+    except FusionError as e:
+        log.info("run %s failed: %s", run_name, e)
+        return RunOutcome(run_name, "failed", error=str(e), seconds=time.perf_counter() - t0)
+    except MemoryError:
+        return RunOutcome(run_name, "failed", error="out of memory; lower [compute] memory_budget",
+                          seconds=time.perf_counter() - t0)
+    except OSError as e:
+        # the system refused a read or write (disk full, permissions, a share gone): name the
+        # file, this is not a bug to report
+        where = e.filename or out
+        return RunOutcome(run_name, "failed", error=f"{where}: {e.strerror or e}",
+                          seconds=time.perf_counter() - t0)
+    except Exception as e:  # a bug: keep the batch going, say so plainly
+        log.debug("run %s crashed", run_name, exc_info=True)
+        return RunOutcome(run_name, "failed", error=f"internal error ({type(e).__name__}: {e}); "
+                          "rerun with --debug and report it", seconds=time.perf_counter() - t0)

@@ -1,0 +1,255 @@
+"""Reading a config: TOML with the standard library, validated into a :class:`Config`."""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import re
+import tomllib
+from dataclasses import dataclass
+from pathlib import Path
+
+from ..errors import ConfigError
+from ..mechanics import (
+    IsotropicMaterial, Laminate, LayupError, MaterialError, OrthotropicMaterial, Ply,
+    SurfaceLayer, parse_layup,
+)
+from . import _schema as s
+from ._schema import Context
+from ._sections import (CampaignSpec, ComputeSpec, DiagnosisSpec, IsotropicSpec, LaminateSpec, LayerRef,
+                        OrthotropicSpec, OutputSpec, PlanSpec, RegistrationSpec, RunSpec, TopLevel)
+
+_MAX_CONFIG_BYTES = 4 << 20
+
+
+# --------------------------------------------------------------------------- the config
+@dataclass(frozen=True)
+class Config:
+    """A validated campaign config (all quantities SI, paths resolved)."""
+
+    path: Path | None
+    text: str
+    campaign: CampaignSpec
+    materials: dict
+    laminates: dict
+    runs: tuple
+    registration: RegistrationSpec | None
+    diagnosis: DiagnosisSpec
+    compute: ComputeSpec
+    output: OutputSpec
+    plan: PlanSpec
+    material_sources: dict = dataclasses.field(default_factory=dict)
+
+    @property
+    def sha256(self) -> str:
+        """SHA-256 of the config text (provenance)."""
+        return hashlib.sha256(self.text.encode("utf-8")).hexdigest()
+
+    @property
+    def folder(self) -> Path:
+        return self.path.parent if self.path is not None else Path(".")
+
+    def laminate_for(self, run: RunSpec) -> Laminate:
+        """The laminate of ``run`` (its ``laminate`` key, or the default one)."""
+        return self.laminates[run.laminate or "default"]
+
+    def registration_for(self, run: RunSpec) -> RegistrationSpec | None:
+        return run.registration or self.registration
+
+    def output_folder(self, override=None) -> Path:
+        if override is not None:
+            return Path(override)
+        return self.output.folder if self.output.folder is not None else self.folder / "results"
+
+
+def _read_toml(path: Path, key_name: str, ctx: Context | None) -> tuple[dict, str]:
+    where = ctx.source if ctx else None
+    try:
+        if path.is_dir():
+            raise ConfigError(key_name, f"{str(path)!r} is a folder, expected a TOML file", source=where)
+        if path.exists() and not path.is_file():
+            raise ConfigError(key_name, f"{str(path)!r} is not a regular file (a pipe or device?), "
+                              "expected a TOML file", source=where)
+        size = path.stat().st_size
+        if size > _MAX_CONFIG_BYTES:
+            raise ConfigError(key_name, f"{str(path)!r} is {size} bytes; a config is at most "
+                              f"{_MAX_CONFIG_BYTES} bytes", source=where)
+        raw = path.read_bytes()
+    except FileNotFoundError as e:
+        raise ConfigError(key_name, f"file {str(path)!r} does not exist", source=where) from e
+    except PermissionError as e:
+        raise ConfigError(key_name, f"file {str(path)!r} cannot be read (permission denied)", source=where) from e
+    try:
+        text = raw.decode("utf-8-sig")          # editors on Windows may write a byte-order mark
+    except UnicodeDecodeError as e:
+        raise ConfigError(key_name, f"{str(path)!r} is not UTF-8 text (byte {e.start})", source=where) from e
+    return _parse_toml(text, key_name, where, f"{str(path)!r} is")
+
+
+def _parse_toml(text, key_name, where, what):
+    try:
+        return tomllib.loads(text), text
+    except tomllib.TOMLDecodeError as e:
+        raise ConfigError(key_name, f"{what} not valid TOML: {e}", source=where) from e
+    except RecursionError as e:
+        raise ConfigError(key_name, f"{what} nested too deeply to be a config", source=where) from e
+
+
+def load_config(path) -> Config:
+    """Read and validate a config file.
+
+    Raises
+    ------
+    ConfigError
+        Naming the key path and what was expected.
+    """
+    path = Path(path)
+    doc, text = _read_toml(path, "config", None)
+    return _validate(doc, text, path)
+
+
+def loads_config(text: str, *, base=".") -> Config:
+    """Validate config ``text`` (relative paths resolve from ``base``)."""
+    if not isinstance(text, str):
+        raise ConfigError("config", f"expected TOML text, got {type(text).__name__}")
+    doc, _ = _parse_toml(text, "config", None, "the text is")
+    return _validate(doc, text, None, base=Path(base))
+
+
+def _validate(doc: dict, text: str, path: Path | None, *, base: Path | None = None) -> Config:
+    ctx = Context(source=str(path) if path else None, base=(path.parent if path else base or Path(".")))
+    top = s.build(TopLevel, doc, "", ctx)
+
+    raw_materials: dict = {}
+    library = top.material_library
+    if isinstance(library, Path):
+        library = (library,)
+    for i, lib in enumerate(library or ()):
+        lib_doc, _ = _read_toml(lib, f"material_library[{i}]" if len(library) > 1 else "material_library", ctx)
+        extra = set(lib_doc) - {"materials"}
+        if extra:
+            raise ConfigError(f"material_library ({lib.name})", f"expected only [materials.NAME] tables, "
+                              f"found {sorted(extra)}", source=ctx.source)
+        raw_materials.update(_table(lib_doc.get("materials", {}), "materials", ctx))
+    raw_materials.update(_table(top.materials, "materials", ctx))
+    materials, material_sources = {}, {}
+    for name, table in raw_materials.items():
+        materials[name], material_sources[name] = _material(name, table, ctx)
+
+    laminate_specs = {}
+    if top.laminate is not None:
+        laminate_specs["default"] = ("laminate", top.laminate)
+    for name, table in _table(top.laminates, "laminates", ctx).items():
+        if not re.fullmatch(r"[A-Za-z0-9_.\-]{1,60}", name):
+            raise ConfigError(f"laminates.{name}", "laminate names use letters, digits, - _ . only",
+                              source=ctx.source)
+        laminate_specs[name] = (f"laminates.{name}", s.build(LaminateSpec, table, f"laminates.{name}", ctx))
+    laminates = {name: _laminate(name, spec, k, materials, ctx) for name, (k, spec) in laminate_specs.items()}
+
+    if not isinstance(top.run, (list, tuple)):
+        raise ConfigError("run", "expected an array of tables [[run]]", source=ctx.source)
+    runs, seen = [], {}
+    for i, table in enumerate(top.run):
+        run = s.build(RunSpec, table, f"run[{i}]", ctx)
+        low = run.name.lower()
+        if low in seen:
+            raise ConfigError(f"run[{i}].name", f"{run.name!r} is used by run[{seen[low]}] already "
+                              "(names become folder names and must be unique, ignoring case)",
+                              source=ctx.source)
+        seen[low] = i
+        want = run.laminate or "default"
+        if want not in laminates:
+            if run.laminate is None:
+                raise ConfigError(f"run[{i}].laminate", "no laminate given and the config has no "
+                                  "[laminate] table", source=ctx.source)
+            raise ConfigError(f"run[{i}].laminate", f"unknown laminate {run.laminate!r}; known: "
+                              f"{sorted(k for k in laminates if k != 'default')}", source=ctx.source)
+        if run.registration is None and top.registration is None:
+            raise ConfigError(f"run[{i}].registration", "no [registration] for this run and none at "
+                              "the top level (use method = \"identity\" if the grids coincide)",
+                              source=ctx.source)
+        runs.append(run)
+
+    diagnosis = top.diagnosis or DiagnosisSpec()
+    region_names = [r.name for r in diagnosis.regions]
+    if len(set(region_names)) != len(region_names):
+        raise ConfigError("diagnosis.regions", "region names must be unique", source=ctx.source)
+    if diagnosis.calibration is not None and diagnosis.calibration.region not in region_names:
+        raise ConfigError("diagnosis.calibration.region", f"unknown region "
+                          f"{diagnosis.calibration.region!r}; regions: {region_names}", source=ctx.source)
+    plan = top.plan or PlanSpec()
+    if plan.f_min >= plan.f_max:
+        raise ConfigError("plan.f_max", f"expected f_max > f_min ({plan.f_min} Hz)", source=ctx.source)
+    if plan.laminate is not None and plan.laminate not in laminates:
+        raise ConfigError("plan.laminate", f"unknown laminate {plan.laminate!r}", source=ctx.source)
+
+    return Config(path=path, text=text, campaign=top.campaign or CampaignSpec(), materials=materials,
+                  laminates=laminates, runs=tuple(runs), registration=top.registration,
+                  diagnosis=diagnosis, compute=top.compute or ComputeSpec(),
+                  output=top.output or OutputSpec(), plan=plan, material_sources=material_sources)
+
+
+def _table(value, k, ctx) -> dict:
+    if not isinstance(value, dict) or not all(isinstance(v, dict) for v in value.values()):
+        raise ConfigError(k, f"expected tables [{k}.NAME], got {value!r}", source=ctx.source)
+    return value
+
+
+def _material(name, table, ctx):
+    k = f"materials.{name}"
+    if not re.fullmatch(r"[A-Za-z0-9_.\-]{1,60}", name):
+        raise ConfigError(k, "material names use letters, digits, - _ . only", source=ctx.source)
+    if "E1" in table:
+        spec_cls, cls = OrthotropicSpec, OrthotropicMaterial
+    elif "E" in table:
+        spec_cls, cls = IsotropicSpec, IsotropicMaterial
+    else:
+        raise ConfigError(k, "expected an orthotropic ply (E1 E2 G12 nu12 alpha1 alpha2 density "
+                          "specific_heat k1 k2 k3) or an isotropic material (E nu alpha density "
+                          "specific_heat k)", source=ctx.source)
+    spec = s.build(spec_cls, table, k, ctx)
+    values = {f.name: getattr(spec, f.name) for f in dataclasses.fields(spec) if f.name != "source"}
+    try:
+        return cls(name=name, **values), spec.source
+    except MaterialError as e:
+        raise ConfigError(f"{k}.{e.field}", str(e).split(": ", 1)[-1], source=ctx.source) from e
+
+
+def _layer(ref: LayerRef | None, k, materials, ctx):
+    if ref is None:
+        return None
+    mat = materials.get(ref.material)
+    if mat is None:
+        raise ConfigError(f"{k}.material", f"unknown material {ref.material!r}; known: {sorted(materials)}",
+                          source=ctx.source)
+    if not isinstance(mat, IsotropicMaterial):
+        raise ConfigError(f"{k}.material", f"{ref.material!r} is orthotropic; a surface layer needs an "
+                          "isotropic material (E, nu, alpha...)", source=ctx.source)
+    try:
+        return SurfaceLayer(material=mat, thickness=ref.thickness)
+    except MaterialError as e:
+        raise ConfigError(f"{k}.{e.field}", str(e).split(": ", 1)[-1], source=ctx.source) from e
+
+
+def _laminate(name, spec: LaminateSpec, k, materials, ctx) -> Laminate:
+    try:
+        angles = parse_layup(spec.layup if isinstance(spec.layup, str) else list(spec.layup))
+    except LayupError as e:
+        raise ConfigError(f"{k}.layup", str(e), source=ctx.source) from e
+    mat = materials.get(spec.ply_material)
+    if mat is None:
+        raise ConfigError(f"{k}.ply_material", f"unknown material {spec.ply_material!r}; known: "
+                          f"{sorted(materials)}", source=ctx.source)
+    if not isinstance(mat, OrthotropicMaterial):
+        raise ConfigError(f"{k}.ply_material", f"{spec.ply_material!r} is isotropic; plies need an "
+                          "orthotropic material (E1, E2, G12...)", source=ctx.source)
+    try:
+        plies = tuple(Ply(material=mat, angle=a, thickness=spec.ply_thickness) for a in angles)
+        return Laminate(plies=plies, zero_direction=spec.zero_direction,
+                        coating=_layer(spec.coating, f"{k}.coating", materials, ctx),
+                        resin_layer=_layer(spec.resin_layer, f"{k}.resin_layer", materials, ctx),
+                        back_layer=_layer(spec.back_layer, f"{k}.back_layer", materials, ctx),
+                        convection_front=spec.convection_front, convection_back=spec.convection_back,
+                        name=name, layup_code=spec.layup if isinstance(spec.layup, str) else None)
+    except MaterialError as e:
+        raise ConfigError(f"{k}.{e.field}", str(e).split(": ", 1)[-1], source=ctx.source) from e

@@ -1,0 +1,24 @@
+"""One run: its steps and their composition, in memory, and the writing of its result.
+
+The steps read a run's inputs through :mod:`fusion.io` and compute with the physics
+subpackages; nothing here knows about output folders, locks or scheduling (that is
+:mod:`fusion.campaign`).
+
+Public names
+------------
+compute_run, RunResult
+    Every product of one ``[[run]]`` of a config, in memory.
+write_run
+    result.nc, summary.json and the figures of a computed run, written into a folder.
+check_run_inputs
+    Every input of a run opened far enough to know it can be read (``fusion check``).
+input_files
+    The files a run reads.
+"""
+
+from ._check import check_run_inputs
+from ._compose import RunResult, compute_run
+from ._files import input_files
+from ._write import write_run
+
+__all__ = ["RunResult", "check_run_inputs", "compute_run", "input_files", "write_run"]

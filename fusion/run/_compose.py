@@ -1,0 +1,290 @@
+"""One run composed from its steps: strain, thermal, registration, predictions, diagnosis.
+
+:func:`compute_run` turns one ``[[run]]`` of a config into its result in memory (no
+file is written). The strain side comes first (its displacement may drive motion
+compensation of the infrared frames), then the lock-in, registration onto the
+infrared grid, the predictions of every candidate source and the diagnosis.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import logging
+from pathlib import Path
+
+import numpy as np
+
+from .. import __version__
+from ..datamodel import SOURCES, result_dataset
+from ..diagnose import apply_calibration, calibration_factor, diagnose, region_mask, region_table
+from ..errors import ConfigError, InputError
+from ..io import read_image, read_load_signal
+from ..mechanics import ply_profile
+from ..thermal import motion_amplitude
+from ._files import need_file
+from ._predictions import predictions
+from ._registration import refine_registration, registration_side
+from ._strain import strain_side
+from ._thermal import load_range as fit_load_range
+from ._thermal import motion_field, thermal_side
+
+log = logging.getLogger(__name__)
+
+__all__ = ["compute_run", "RunResult"]
+
+# maps that keep their values outside the valid area (T0 shows the whole scene; the flags
+# and probabilities have their own no-data coding)
+_KEEP_OUTSIDE = ("source_layer", "valid", "source_probability", "T0")
+
+
+@dataclasses.dataclass
+class RunResult:
+    """Everything one run produced, in memory."""
+
+    dataset: object                 # xarray.Dataset of result.nc
+    regions: list                   # region-table rows
+    warnings: list
+    meta: dict
+    figure_inputs: dict
+
+
+def compute_run(cfg, run, *, progress=False) -> RunResult:
+    """Compute every product of one run (nothing is written)."""
+    lam = cfg.laminate_for(run)
+    reg = cfg.registration_for(run)
+    dg = cfg.diagnosis
+    warnings: list[str] = []
+
+    load_range = _load_range_of(run)
+    ranges, disp = strain_side(run, load_range=load_range)
+
+    budget = cfg.compute.memory_budget
+    thermal, t_valid, t_info, _ = thermal_side(run, budget=budget, progress=progress)
+    frequency = t_info.get("frequency") or run.frequency
+    warnings += t_info.get("warnings", [])
+    ir_shape = thermal["T0"].shape
+
+    smaps, inside, reg_report, reg_warn, transform = registration_side(run, reg, ranges, ir_shape,
+                                                                       thermal["T0"])
+    warnings += reg_warn
+    if reg.refine and transform is not None:
+        smaps, inside, reg_report, transform = refine_registration(run, reg, ranges, lam, thermal, t_valid,
+                                                                   smaps, inside, reg_report, transform,
+                                                                   warnings)
+    if run.thermal.motion_compensation:
+        thermal, t_valid, t_info = _motion_compensated(run, budget, disp, transform, load_range, ir_shape,
+                                                       progress)
+
+    strain = np.moveaxis(smaps[:3], 0, -1).astype(np.float32)          # (Y, X, 3)
+    strain_std = np.moveaxis(smaps[3:], 0, -1).astype(np.float32)
+    measured, measured_std, snr, lag, lag_std = _measured(thermal)
+    valid = (t_valid & inside & np.all(np.isfinite(strain), axis=-1) & np.isfinite(measured)
+             & np.isfinite(measured_std) & (snr >= dg.min_snr))
+    if not valid.any():
+        raise InputError(run.thermal.frames or run.thermal.maps,
+                         "no pixel has both usable thermal data and strain data: check the "
+                         "registration (points, method) and the signal-to-noise ratio")
+
+    sources = list(dg.sources) if dg.sources else list(SOURCES)
+    pred, pstd, plag, pinfo = predictions(lam, strain, strain_std, frequency, sources=sources,
+                                          property_uncertainty=dg.property_uncertainty)
+    missing = [s for s in (dg.sources or ()) if s not in pred]
+    if missing:
+        warnings.append(f"sources {missing} not evaluated: the laminate has no such layer")
+
+    regions = {r.name: _region(r, ir_shape) for r in dg.regions}
+    calibration = None
+    if dg.calibration is not None:
+        measured, measured_std, calibration = _calibrate(dg.calibration, regions, valid, measured,
+                                                         measured_std, pred, pstd)
+        warnings.append(f"infrared measurement calibrated by a factor {calibration['factor']:.3f} ± "
+                        f"{calibration['factor_std']:.3f} on region {dg.calibration.region!r} assumed to "
+                        f"show the {calibration['source']}")
+
+    diag = diagnose(measured, measured_std, pred, pstd, valid=valid, measured_lag=lag,
+                    measured_lag_std=lag_std, predicted_lag=plag, fit_threshold=dg.fit_threshold,
+                    distinguish=dg.distinguish)
+    table = _flat_regions(region_table(measured, diag, pred, regions=regions, valid=valid))
+
+    maps = _result_maps(thermal, measured, measured_std, snr, lag, strain, strain_std, pred, pstd, plag,
+                        diag, valid)
+    meta = _meta(run, lam, frequency, reg_report, t_info, ranges, calibration, pinfo, valid)
+    attrs = _attrs(cfg, run, meta, reg_report, ranges, pred, calibration)
+    ds = result_dataset(maps, attrs=attrs, sources=tuple(pred))
+    fig_inputs = {"region_mask": inside, "ply_profile": _ply_profile(lam, strain, valid),
+                  "reference_image": _reference_on_ir(run, transform, ir_shape)}
+    return RunResult(ds, table, warnings, meta, fig_inputs)
+
+
+# --------------------------------------------------------------------------- steps
+def _load_range_of(run):
+    """Peak-to-peak load range of the thermal run's load signal, or None without one."""
+    if run.thermal.load is None:
+        return None
+    sig = read_load_signal(need_file(run.thermal.load, "thermal.load"), time_column=run.thermal.time_column,
+                           load_column=run.thermal.load_column)
+    return fit_load_range(sig, run.frequency)
+
+
+def _motion_compensated(run, budget, disp, transform, load_range, ir_shape, progress):
+    """The thermal side again, on frames warped back by the correlation displacement."""
+    if disp is None or transform is None or load_range is None:
+        raise ConfigError("thermal.motion_compensation", "needs displacement fields (dic.states, "
+                          "series or images), a 2D registration and a load signal")
+    motion = motion_field(transform, disp, load_range, ir_shape)
+    thermal, t_valid, t_info, _ = thermal_side(run, budget=budget, motion=motion, progress=progress)
+    t_info["motion_compensated"] = True
+    thermal["motion_amplitude"] = np.asarray(motion_amplitude(motion, load_range), np.float32)
+    return thermal, t_valid, t_info
+
+
+def _measured(thermal):
+    """Measured ratio dT/T0, its std, the signal-to-noise ratio and the phase lag with its std."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        measured = thermal["delta_T"] / thermal["T0"]
+        measured_std = thermal["delta_T_std"] / np.abs(thermal["T0"])
+        snr = np.abs(thermal["delta_T"]) / thermal["delta_T_std"]
+    quad = thermal.get("delta_T_quadrature")
+    lag = lag_std = None
+    if quad is not None:
+        with np.errstate(invalid="ignore", divide="ignore"):
+            lag = -np.degrees(np.arctan(quad / thermal["delta_T"])).astype(np.float32)
+            mag = np.hypot(thermal["delta_T"], quad)
+            lag_std = np.degrees(thermal["delta_T_std"] / mag).astype(np.float32)
+    return measured, measured_std, snr, lag, lag_std
+
+
+def _calibrate(spec, regions, valid, measured, measured_std, pred, pstd):
+    """The measurement scaled so that a region of known source matches its prediction."""
+    mask = regions[spec.region] & valid
+    src = spec.source
+    if src not in pred:
+        raise ConfigError("diagnosis.calibration.source", f"source {src!r} is not evaluated for this run")
+    try:
+        factor, fstd, n = calibration_factor(measured, pred[src], mask, measured_std=measured_std,
+                                             predicted_std=pstd[src])
+    except ValueError as e:
+        raise ConfigError("diagnosis.calibration", str(e)) from e
+    measured, measured_std = apply_calibration(measured, factor, measured_std=measured_std, factor_std=fstd)
+    info = {"region": spec.region, "source": src, "factor": float(factor), "factor_std": float(fstd),
+            "pixels": int(n)}
+    return measured, measured_std, info
+
+
+def _result_maps(thermal, measured, measured_std, snr, lag, strain, strain_std, pred, pstd, plag, diag,
+                 valid):
+    """The variables of result.nc, NaN outside the valid area."""
+    maps = {k: v for k, v in thermal.items() if k in ("T0", "delta_T", "delta_T_std", "delta_T_quadrature",
+                                                      "phase", "motion_amplitude")}
+    maps.update(ratio_measured=measured, ratio_measured_std=measured_std, snr=snr,
+                delta_eps_xx=strain[..., 0], delta_eps_yy=strain[..., 1], delta_gamma_xy=strain[..., 2],
+                delta_eps_xx_std=strain_std[..., 0], delta_eps_yy_std=strain_std[..., 1],
+                delta_gamma_xy_std=strain_std[..., 2])
+    if lag is not None:
+        maps["phase_lag_measured"] = lag
+    for s in pred:
+        maps[f"ratio_{s}"] = pred[s]
+        maps[f"ratio_{s}_std"] = pstd[s]
+    if "model" in pred:
+        maps["phase_model"] = plag["model"]
+    maps.update(diag.to_maps())
+    maps["valid"] = valid.astype(np.int8)
+    for k, v in list(maps.items()):
+        if k not in _KEEP_OUTSIDE:
+            v = np.asarray(v, np.float32).copy()
+            v[~valid] = np.nan
+            maps[k] = v
+    prob = np.asarray(maps["source_probability"], np.float32).copy()
+    prob[:, ~valid] = np.nan
+    maps["source_probability"] = prob
+    return maps
+
+
+def _meta(run, lam, frequency, reg_report, t_info, ranges, calibration, pinfo, valid):
+    """What the summary and the report say about the run beyond its maps."""
+    meta = {
+        "run_name": run.name, "specimen": run.specimen or run.name, "frequency": float(frequency),
+        "laminate": lam.name, "layup": lam.layup_code or "/".join(f"{a:g}" for a in lam.angles),
+        "registration_rms": reg_report.get("rms"), "registration_max_error": reg_report.get("max_error"),
+        "registration": reg_report, "thermal": t_info, "strain": dict(ranges.attrs),
+        "calibration": calibration, "model": pinfo, "valid_fraction": float(valid.mean()),
+    }
+    harm = t_info.pop("second_harmonic_ratio_map", None)
+    if harm is not None:
+        # judged where the signal is (the valid pixels), not on the background
+        meta["second_harmonic_ratio"] = float(np.nanmedian(np.asarray(harm)[valid]))
+    if "pixel_size_mm" in reg_report:
+        meta["pixel_size_mm"] = reg_report["pixel_size_mm"]
+    return meta
+
+
+def _attrs(cfg, run, meta, reg_report, ranges, pred, calibration):
+    """Global attributes of result.nc (CF conventions, provenance, caution)."""
+    attrs = {
+        "title": f"fusion result of run {run.name}",
+        "Conventions": "CF-1.10",
+        "source": f"fusion {__version__}",
+        "fusion_version": __version__,
+        "run_name": run.name, "specimen": meta["specimen"], "frequency": meta["frequency"],
+        "frequency_units": "Hz",
+        "registration_rms": float(reg_report.get("rms", float("nan"))),
+        "registration_rms_units": "IR pixel",
+        "config_text": cfg.text, "config_sha256": cfg.sha256,
+        "strain_attrs": dict(ranges.attrs),
+        "sources_evaluated": " ".join(pred),
+        "caution": "Results support engineering judgement and do not certify a component.",
+    }
+    if "pixel_size_mm" in meta:
+        attrs["pixel_size_mm"] = meta["pixel_size_mm"]
+    if calibration:
+        attrs["calibration_factor"] = calibration["factor"]
+    return attrs
+
+
+# --------------------------------------------------------------------------- helpers
+def _flat_regions(rows):
+    """Region-table rows flattened for summary.json and the report (one value per column)."""
+    out = []
+    for row in rows:
+        flat = {"name": row["name"], "pixels": int(row["n_pixels"]),
+                "measured_mean": row["measured_mean"], "measured_std": row["measured_std"],
+                "winner": row.get("winner"), "winner_share": row.get("winner_share")}
+        for s, v in (row.get("predicted_mean") or {}).items():
+            flat[f"predicted_{s}"] = v
+        for s, v in (row.get("abs_z_mean") or {}).items():
+            flat[f"mean_abs_z_{s}"] = v
+        out.append({k: (None if isinstance(v, float) and not np.isfinite(v) else v) for k, v in flat.items()})
+    return out
+
+
+def _region(r, shape):
+    if r.mask is not None:
+        m = read_image(need_file(r.mask, f"diagnosis.regions[{r.name}].mask")) > 0
+        if m.shape != shape:
+            raise InputError(r.mask, f"region mask has shape {m.shape}, expected the IR grid {shape}")
+        return m
+    try:
+        return region_mask(shape, rect=r.rect, circle=r.circle)
+    except ValueError as e:
+        raise ConfigError(f"diagnosis.regions[{r.name}]", str(e)) from e
+
+
+def _ply_profile(lam, strain, valid):
+    mean = np.nanmedian(strain[valid], axis=0) if valid.any() else np.zeros(3)
+    return ply_profile(lam, mean)
+
+
+def _reference_on_ir(run, transform, shape):
+    """The visible reference image resampled onto the IR grid (for the overlay), or None."""
+    ref = run.dic.reference_image or (run.dic.images[0] if run.dic.images else None)
+    if ref is None or transform is None or not Path(ref).is_file():
+        return None
+    import cv2
+
+    img = read_image(ref).astype(np.float32)
+    rows, cols = np.mgrid[0:shape[0], 0:shape[1]]
+    dic_xy = transform.inverse_apply(np.column_stack([cols.ravel(), rows.ravel()]).astype(float))
+    scale = run.dic.pixel_size if (run.dic.coordinates == "mm" and run.dic.pixel_size) else 1.0
+    map_x = (dic_xy[:, 0] / scale).reshape(shape).astype(np.float32)
+    map_y = (-dic_xy[:, 1] / scale).reshape(shape).astype(np.float32)
+    return cv2.remap(img, map_x, map_y, cv2.INTER_LINEAR, borderMode=cv2.BORDER_CONSTANT, borderValue=np.nan)
