@@ -1,7 +1,7 @@
 """Names, dims, units and long names of every variable of ``result.nc``.
 
-One table defines the output data model of a run (the contract of DESIGN
-section 5); :func:`result_dataset` builds an :class:`xarray.Dataset` from maps
+One table defines the output data model of a run (the contract of
+``result.nc``); :func:`result_dataset` builds an :class:`xarray.Dataset` from maps
 and stamps the attributes, and :func:`fusion.io.write_result` writes it.
 The IR grid has dims ``(y, x)``: ``y`` is the IR pixel row (increasing
 downward, as the camera delivers it), ``x`` the IR pixel column. Strain

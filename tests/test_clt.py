@@ -1,10 +1,8 @@
 """Classical lamination theory against textbook worked examples and closed forms.
 
-Sources: Kaw, *Mechanics of Composite Materials*, 2nd ed., CRC 2006 (Table 2.1 data and
-worked examples, stored with their status in tests/data/kaw_clt_examples.json); Tsai &
-Pagano, "Invariant properties of composite materials" (1968), as given in Jones,
-*Mechanics of Composite Materials*, 2nd ed., 1999, sec. 2.8; Daniel & Ishai,
-*Engineering Mechanics of Composite Materials*, 2nd ed., 2006, ch. 8 (laminate CTE).
+Sources (docs/references.md): [Kaw2006] (Table 2.1 data and worked examples, stored with
+their status in tests/data/kaw_clt_examples.json); [TsaiPagano1968] invariants as given in
+[Jones1999] sec. 2.8; [DanielIshai2006] ch. 8 (laminate CTE). Each test names its own.
 """
 
 import json
@@ -149,6 +147,7 @@ def test_strain_rotation_matches_tensor_rotation(angle, strain):
 
 
 def test_rotations_keep_float32_and_shape():
+    # not a physics check: dtype and shape of the rotations, and their argument errors
     e = np.ones((4, 5, 3), dtype=np.float32)
     assert strain_to_material(e, 30.0).dtype == np.float32
     assert stress_to_material(e, 30.0).shape == (4, 5, 3)
@@ -159,17 +158,17 @@ def test_rotations_keep_float32_and_shape():
 
 
 def test_abd_of_kaw_example_4_2():
-    # Kaw (2006) Example 4.2: [0/30/-45] graphite/epoxy, 5 mm plies. A to printed precision;
-    # the B and D entries are from memory of the printed answer.
+    # Kaw (2006) Example 4.2: [0/30/-45] graphite/epoxy, 5 mm plies, to printed precision
+    # (answers recomputed by us from Table 2.1; the printed ones from memory, [Kaw2006]).
     ex = KAW["example_4_2"]
     lam = Laminate.from_layup(GE, ex["layup"], ex["ply_thickness_m"])
     a, b, d = abd_matrices(lam)
     idx = {"11": (0, 0), "12": (0, 1), "16": (0, 2), "22": (1, 1), "26": (1, 2), "66": (2, 2)}
     for k, v in ex["A"].items():
         assert a[idx[k]] == pytest.approx(v, rel=PRINTED), k
-    for k, v in ex["B_from_memory"].items():
+    for k, v in ex["B"].items():
         assert b[idx[k]] == pytest.approx(v, rel=PRINTED), k
-    for k, v in ex["D_from_memory"].items():
+    for k, v in ex["D"].items():
         assert d[idx[k]] == pytest.approx(v, rel=PRINTED), k
     np.testing.assert_allclose(a, a.T)
     np.testing.assert_allclose(b, b.T)
@@ -214,7 +213,8 @@ def test_b_vanishes_for_symmetric_and_flips_for_reversed_layup():
 
 
 def test_d_of_homogeneous_plate_is_q_h3_over_12():
-    # Plate theory (Jones sec. 4.2): a plate of one orientation has A = Q h, B = 0, D = Q h^3/12.
+    # Plate theory (Jones (1999) sec. 4.2, [Jones1999]): a plate of one orientation has
+    # A = Q h, B = 0, D = Q h^3/12 (integrals of Q, z Q, z^2 Q over the thickness).
     lam = Laminate.from_layup(GE, [0.0] * 5, 0.2e-3)
     a, b, d = abd_matrices(lam)
     h = lam.thickness
@@ -294,7 +294,7 @@ def test_square_symmetric_laminate_cte(layup):
 
 def test_cte_of_isotropic_plies_is_the_material_cte():
     # A laminate of isotropic layers expands freely with their common alpha (no internal
-    # constraint): the exact limit of the CLT CTE.
+    # constraint): the exact limit of the CLT CTE (Kaw (2006) sec. 4.5, [Kaw2006]).
     lam = Laminate.from_layup(_iso_ply(alpha=17e-6), [0.0, 35.0, -70.0], 1e-3, zero_direction=25.0)
     np.testing.assert_allclose(laminate_cte(lam), [17e-6, 17e-6, 0.0], rtol=1e-12, atol=1e-20)
     np.testing.assert_allclose(laminate_cte(lam, frame="specimen"), [17e-6, 17e-6, 0.0],
@@ -304,8 +304,8 @@ def test_cte_of_isotropic_plies_is_the_material_cte():
 
 
 def test_ply_stresses_uniaxial_and_zero_direction():
-    # Uniaxial stress along the fibres gives sigma1 = E1 eps1, sigma2 = tau12 = 0 exactly
-    # (Kaw eq. 2.67 definitions of E1 and nu12). With the laminate turned by zero_direction
+    # Uniaxial stress along the fibres gives sigma1 = E1 eps1, sigma2 = tau12 = 0 exactly: the
+    # definitions of E1 and nu12 (Kaw (2006) ch. 2, [Kaw2006]). With the laminate turned by zero_direction
     # the same holds for strain applied along the turned fibres.
     for zd in (0.0, 30.0, -75.0):
         lam = Laminate.from_layup(GE, [0.0, 0.0], 0.5e-3, zero_direction=zd)
@@ -321,7 +321,8 @@ def test_ply_stresses_uniaxial_and_zero_direction():
 
 
 def test_uniaxial_strain_state_of_a_lamina():
-    # [0] lamina: uniaxial along the fibres gives eps_yy = -nu12 eps; across them -nu21 eps.
+    # [0] lamina: uniaxial along the fibres gives eps_yy = -nu12 eps; across them -nu21 eps
+    # (definitions of the Poisson ratios, Kaw (2006) ch. 2, [Kaw2006]).
     lam = Laminate.from_layup(GE, [0.0], 1e-3)
     np.testing.assert_allclose(uniaxial_strain_state(lam), [1e-3, -GE.nu12 * 1e-3, 0.0], rtol=1e-12,
                                atol=1e-18)
@@ -339,8 +340,9 @@ def test_uniaxial_strain_state_of_a_lamina():
 
 
 def test_isotropic_material_reduced_stiffness():
-    # Plane-stress isotropic stiffness (any elasticity text): E/(1-nu^2) [[1, nu, 0], [nu, 1, 0],
-    # [0, 0, (1-nu)/2]]; the orthotropic record with isotropic values gives the same.
+    # Plane-stress isotropic stiffness (common practice; any elasticity text, e.g. Kaw (2006)
+    # ch. 2): E/(1-nu^2) [[1, nu, 0], [nu, 1, 0], [0, 0, (1-nu)/2]]; the orthotropic record
+    # with isotropic values gives the same.
     m = IsotropicMaterial("al", 70e9, 0.33, 23e-6, 2700.0, 900.0, 160.0)
     f = 70e9 / (1 - 0.33 ** 2)
     expect = f * np.array([[1, 0.33, 0], [0.33, 1, 0], [0, 0, (1 - 0.33) / 2]])

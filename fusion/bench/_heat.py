@@ -13,7 +13,7 @@ def _stack(n_plies: int = 32):
     """Resin layer, n carbon/epoxy plies ([0/90] alternating sources) and a back layer."""
     from ..mechanics import ThermalLayer
 
-    resin = [-0.245, -0.245, 0.0]  # Kelvin's law for an epoxy witness layer (REFERENCES.md)
+    resin = [-0.245, -0.245, 0.0]  # Kelvin's law, epoxy witness (docs/references.md)
     zero, ninety = [-4.3e-2, -0.8e-2, 0.0], [-0.8e-2, -4.3e-2, 0.0]
     layers = [ThermalLayer("resin_layer", 20e-6, 1200.0, 1100.0, 0.2, resin)]
     layers += [ThermalLayer(f"ply {i + 1}", 0.156e-3, 1600.0, 900.0, 0.6, zero if i % 2 == 0 else ninety)
