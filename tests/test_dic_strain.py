@@ -1,4 +1,9 @@
-"""Strain by local polynomial fits: analytic fields, the Kirsch plate, least-squares theory."""
+"""Strain by local polynomial fits: analytic fields, the Kirsch plate, least-squares theory.
+
+Sources (docs/references.md): the Kirsch plate [Kirsch1898] as in [TimoshenkoGoodier1970]
+sec. 35, its displacements after [Barber2010] ch. 8; least-squares theory [DraperSmith1998];
+the virtual strain gauge of [iDICs2018]. Each test names its own.
+"""
 
 import numpy as np
 import pytest
@@ -13,7 +18,8 @@ EPS0 = S / E_MOD
 
 
 def kirsch_stress(x, y):
-    """Kirsch (1898) stresses, as in Timoshenko & Goodier, Theory of Elasticity, sec. 35."""
+    """Kirsch (1898) stresses, as in Timoshenko & Goodier, Theory of Elasticity, 3rd ed., sec. 35
+    (from memory; test_kirsch_stresses_meet_their_textbook_conditions checks them)."""
     r = np.hypot(x, y)
     t = np.arctan2(y, x)
     q = A_HOLE ** 2 / r ** 2
@@ -59,9 +65,33 @@ def _gradients(x, y, h=1e-5):
             (up[1] - um[1]) / (2 * h), (vp[1] - vm[1]) / (2 * h))
 
 
+def test_kirsch_stresses_meet_their_textbook_conditions():
+    # The Kirsch solution ([TimoshenkoGoodier1970] sec. 35, from memory) checked by what it must
+    # satisfy: a traction-free hole, the concentration 3 S beside the hole and -S on the load
+    # axis, the remote stress S, and equilibrium (central differences, h = 1e-4 mm).
+    th = np.linspace(0.0, np.pi, 13)
+    x, y = A_HOLE * np.cos(th) * (1 + 1e-12), A_HOLE * np.sin(th) * (1 + 1e-12)
+    sxx, syy, txy = kirsch_stress(x, y)
+    c, s = np.cos(th), np.sin(th)
+    srr = sxx * c * c + syy * s * s + 2 * txy * s * c
+    srt = (syy - sxx) * s * c + txy * (c * c - s * s)
+    stt = sxx * s * s + syy * c * c - 2 * txy * s * c
+    np.testing.assert_allclose(srr, 0.0, atol=1e-8 * S)
+    np.testing.assert_allclose(srt, 0.0, atol=1e-8 * S)
+    np.testing.assert_allclose(stt, S * (1 - 2 * np.cos(2 * th)), rtol=1e-9, atol=1e-8 * S)
+    assert stt[6] == pytest.approx(3 * S) and stt[0] == pytest.approx(-S)
+    far = kirsch_stress(np.array([1e5]), np.array([3e4]))
+    np.testing.assert_allclose([far[0][0], far[1][0], far[2][0]], [S, 0.0, 0.0], atol=1e-6 * S)
+    h, px, py = 1e-4, np.array([7.3, -6.1, 9.0]), np.array([4.1, 8.2, -11.5])
+    d = lambda i, dx, dy: (kirsch_stress(px + dx, py + dy)[i] - kirsch_stress(px - dx, py - dy)[i]) / (2 * h)
+    np.testing.assert_allclose(d(0, h, 0) + d(2, 0, h), 0.0, atol=1e-6 * S)
+    np.testing.assert_allclose(d(2, h, 0) + d(1, 0, h), 0.0, atol=1e-6 * S)
+
+
 def test_kirsch_displacement_matches_the_stresses():
-    # The forward model of the next test, checked independently: differentiating
-    # the displacements must give Hooke's-law strains of the Kirsch stresses.
+    # The forward model of the next test, checked independently: differentiating the
+    # displacements ([Barber2010], from memory) must give Hooke's-law strains of the Kirsch
+    # stresses checked above.
     # Central differences with h = 1e-5 mm: truncation and rounding ~1e-9 relative.
     x = np.array([7.0, -6.0, 10.0, 0.5, 5.2])
     y = np.array([3.0, 8.0, -12.0, 6.0, -0.3])
@@ -90,7 +120,8 @@ def test_kirsch_strain_away_from_the_hole(kirsch_field):
     # gradient plus the leading Taylor truncation term
     #   s^2 [ (sum k^4 / (6 sum k^2)) d^2/dn^2 + (<k^2> / 2) d^2/dt^2 ] (gradient),
     # n along the derivative, t across it (standard least-squares algebra; for
-    # h = 2 the factors are 34/60 and 1). The analytic strain plus this term must
+    # h = 2 the factors are 34/60 and 1; [DraperSmith1998]). The analytic strain
+    # ([TimoshenkoGoodier1970]) plus this term must
     # match our strain to 5e-4 eps0, the size of the neglected fifth-order terms at
     # r >= 1.5 a; the term itself reaches ~0.8 % of eps0 there.
     field, s = kirsch_field
@@ -150,6 +181,7 @@ def test_masked_fit_equals_a_direct_least_squares_solve(kirsch_field):
 
 
 def test_holes_do_not_spread_nan_beyond_the_window(kirsch_field):
+    # not a physics check: where NaN may appear around missing points
     field, _ = kirsch_field
     exx, _, _ = strain_from_field(field, window=5)
     invalid = ~field.grid("valid")
@@ -168,7 +200,8 @@ def _linear(x, y):
 
 
 def test_plane_fit_is_exact_for_linear_fields_grid_and_scattered(rng):
-    # A linear displacement is reproduced exactly by any least-squares plane fit.
+    # A linear displacement is reproduced exactly by any least-squares plane fit (common
+    # practice; [DraperSmith1998]).
     g = np.arange(0, 30, 0.5)
     yy, xx = np.meshgrid(g[::-1], g, indexing="ij")
     x, y = xx.ravel(), yy.ravel()
@@ -189,6 +222,7 @@ def test_plane_fit_is_exact_for_linear_fields_grid_and_scattered(rng):
 
 
 def test_quadratic_fit_is_exact_for_quadratic_fields(rng):
+    # A quadratic least-squares fit reproduces a quadratic field exactly ([DraperSmith1998]).
     xs, ys = rng.uniform(0, 30, 2500), rng.uniform(0, 30, 2500)
     u = 1e-3 * xs + 2e-5 * xs ** 2 - 1e-5 * xs * ys
     v = 4e-4 * ys + 3e-5 * ys ** 2
@@ -200,8 +234,9 @@ def test_quadratic_fit_is_exact_for_quadratic_fields(rng):
 
 
 def test_green_lagrange_matches_the_deformation_gradient():
-    # Continuum mechanics: E = (F^T F - I) / 2 with F = I + grad(u); engineering
-    # shear 2 E_xy. A homogeneous field has an exact gradient.
+    # Continuum mechanics (common practice): E = (F^T F - I) / 2 with F = I + grad(u),
+    # computed here with numpy; engineering shear 2 E_xy. A homogeneous field has an exact
+    # gradient.
     h = np.array([[0.02, 0.01], [-0.015, 0.03]])  # [[u_x, u_y], [v_x, v_y]]
     g = np.arange(0, 10, 1.0)
     yy, xx = np.meshgrid(g[::-1], g, indexing="ij")
@@ -218,7 +253,7 @@ def test_green_lagrange_matches_the_deformation_gradient():
 
 
 def test_reported_std_follows_least_squares_theory(rng):
-    # Textbook least squares: the slope of a plane fit to white noise sigma over a
+    # Textbook least squares ([DraperSmith1998]): the slope of a plane fit to white noise sigma over a
     # full 5 x 5 window of spacing s has variance sigma^2 / (s^2 sum k^2), sum k^2 =
     # 50. The residual-based estimate (22 degrees of freedom) scatters by ~15 % per
     # point, so its median is tested to 5 %; the spread of the strain over ~3,000
@@ -241,7 +276,7 @@ def test_reported_std_follows_least_squares_theory(rng):
 
 
 def test_vsg_size_follows_the_good_practices_guide():
-    # iDICs Good Practices Guide (2018): VSG = (strain window - 1) x step + subset
+    # iDICs Good Practices Guide (2018), [iDICs2018]: VSG = (strain window - 1) x step + subset
     # (from memory).
     assert vsg_size(5, 10, 21) == 61
     assert vsg_size(9, 7, 29) == 85

@@ -1,16 +1,16 @@
 """Through-thickness harmonic heat model: checks against sources outside the project.
 
-Sources used below (each named again beside its check):
-- Carslaw & Jaeger, *Conduction of Heat in Solids*, 2nd ed., 1959, sec. 2.6: diffusion
-  length mu = sqrt(2 kappa / omega); a surface thermal wave in a semi-infinite solid decays
-  as exp(-z/mu) and lags z/mu radians.
+Sources used below (docs/references.md; each named again beside its check):
+- [CarslawJaeger1959] sec. 2.6: diffusion length mu = sqrt(2 kappa / omega); a surface
+  thermal wave in a semi-infinite solid decays as exp(-z/mu) and lags z/mu radians.
 - Closed form for a layer on a semi-infinite substrate, theta(0) = theta_c + (theta_s -
-  theta_c) / (cosh(sigma d) + r sinh(sigma d)) with r the effusivity ratio (thermal-wave
-  reflection, Almond & Patel, *Photothermal Science and Techniques*, 1996; values in
-  /work/shared/REFERENCES.md, "computed").
+  theta_c) / (cosh(sigma d) + r sinh(sigma d)) with r the effusivity ratio (the thermal-wave
+  reflection form of [AlmondPatel1996]), derived from the per-layer periodic solution
+  theta_ad + A e^{sigma z} + B e^{-sigma z} with continuous temperature and flux.
 - An independent numerical solution: the transient heat equation with sinusoidal sources
-  integrated in time (vertex-centred finite volumes, Crank-Nicolson, SciPy's banded
-  Cholesky) to the periodic steady state, written here without any code of the package.
+  integrated in time (vertex-centred finite volumes, Crank-Nicolson [CrankNicolson1947],
+  SciPy's banded Cholesky) to the periodic steady state, written here without any code of
+  the package.
 """
 
 import numpy as np
@@ -28,8 +28,9 @@ from fusion.mechanics._heat import (
 from fusion.mechanics._predict import source_coefficients, thermal_layers
 
 # Kaw, Mechanics of Composite Materials, 2nd ed., Table 2.1 (graphite/epoxy, glass/epoxy
-# elastic and expansion data). Thermal data from memory (REFERENCES.md ranges): carbon/epoxy
-# k3 0.6 W/m K, rho 1600, c 900; E-glass/epoxy k3 0.35, rho 1950, c 900.
+# elastic and expansion data; [Kaw2006]). Thermal data typical, from memory (ranges in
+# docs/references.md): carbon/epoxy k3 0.6 W/m K, rho 1600, c 900; E-glass/epoxy k3 0.35,
+# rho 1950, c 900.
 CFRP = OrthotropicMaterial("graphite/epoxy", 181e9, 10.3e9, 7.17e9, 0.28, 0.02e-6, 22.5e-6,
                            1600.0, 900.0, 5.0, 0.6, 0.6)
 GFRP = OrthotropicMaterial("glass/epoxy", 38.6e9, 8.27e9, 4.14e9, 0.26, 8.6e-6, 22.1e-6,
@@ -99,7 +100,7 @@ def fd_periodic(thickness, rhoc, k, sources, frequency, *, h_front=0.0, h_back=0
 
 # ---------------------------------------------------------------- diffusion length
 def test_diffusion_length_formula():
-    # Carslaw & Jaeger sec. 2.6: mu = sqrt(2 kappa / omega), kappa = k / (rho c).
+    # Carslaw & Jaeger (1959) sec. 2.6, [CarslawJaeger1959]: mu = sqrt(2 kappa / omega), kappa = k / (rho c).
     kappa = 0.6 / 1.44e6
     assert diffusion_length(0.6, 1.44e6, 10.0) == pytest.approx(np.sqrt(2 * kappa / (2 * np.pi * 10.0)),
                                                                 rel=1e-14)
@@ -112,7 +113,7 @@ def test_diffusion_length_formula():
 
 
 def test_semi_infinite_surface_wave_decay_and_lag():
-    # Carslaw & Jaeger sec. 2.6: under a periodic surface temperature a semi-infinite solid
+    # Carslaw & Jaeger (1959) sec. 2.6: under a periodic surface temperature a semi-infinite solid
     # carries theta(z) = theta(0) exp(-(1+i) z / mu): 1/e decay and 1 rad lag per mu.
     # The driver is a thin layer with its own source; the sourceless substrate is 40 mu thick
     # (reflection from its adiabatic back face ~exp(-80), negligible).
@@ -133,35 +134,40 @@ def test_semi_infinite_surface_wave_decay_and_lag():
 
 # ---------------------------------------------------------------- closed forms
 def closed_form_coating(d, kc, rhoc_c, ks, rhoc_s, f, theta_c=0.0, theta_s=1.0):
-    """Layer on a semi-infinite substrate (REFERENCES.md; Almond & Patel 1996)."""
+    """Layer on a semi-infinite substrate, derived in the module docstring ([AlmondPatel1996])."""
     sigma = (1 + 1j) / np.sqrt(2 * kc / (rhoc_c * 2 * np.pi * f))
     r = np.sqrt(kc * rhoc_c / (ks * rhoc_s))
     return theta_c + (theta_s - theta_c) / (np.cosh(sigma * d) + r * np.sinh(sigma * d))
 
 
-@pytest.mark.parametrize("d, ks, rhoc_s, magnitude, phase", [
-    # REFERENCES.md (computed): epoxy-like coating at 10 Hz. The numbers listed there follow
-    # from rho c = 1200 kg/m3 * 1100 J/kg K = 1.32e6 J/m3 K (the resin witness data of the
-    # same file), not from the 1.4e6 written beside them; checked with the closed form below.
-    (20e-6, 51.9, 7870 * 486.0, 0.987, -5.3),   # on AISI 1018 steel
-    (50e-6, 51.9, 7870 * 486.0, 0.893, -29.3),
-    (50e-6, 0.6, 1.44e6, 0.620, -37.4),          # on carbon/epoxy across the plies
+@pytest.mark.parametrize("d, ks, rhoc_s", [
+    (20e-6, 51.9, 7870 * 486.0),   # on AISI 1018 steel ([ASM1990] values, from memory)
+    (50e-6, 51.9, 7870 * 486.0),
+    (50e-6, 0.6, 1.44e6),          # on carbon/epoxy across the plies (typical, from memory)
 ])
-def test_coating_on_substrate_reference_values(d, ks, rhoc_s, magnitude, phase):
-    rhoc_c, kc, f = 1.32e6, 0.2, 10.0
+def test_coating_on_substrate_matches_closed_form_and_finite_differences(d, ks, rhoc_s):
+    # An epoxy-like coating (k 0.2 W/m K, rho c 1.4e6 J/m3 K; typical, from memory) with no
+    # source of its own, at 10 Hz, on a substrate whose adiabatic value is 1. Two references
+    # written in this file: the closed form derived in the module docstring ([AlmondPatel1996],
+    # [CarslawJaeger1959]), and the independent transient finite differences above on a
+    # substrate 10 diffusion lengths thick (reflection from its back face ~exp(-20)).
+    rhoc_c, kc, f = 1.4e6, 0.2, 10.0
     mu_s = diffusion_length(ks, rhoc_s, f)
     stack = [layer("coating", d, rhoc_c, kc, 0.0), layer("substrate", 60 * mu_s, rhoc_s, ks, 1.0)]
     r = surface_response(stack, [f], sources=[0.0, 1.0])[0]
     # closed form (exact for a semi-infinite substrate; 60 mu leaves exp(-120) of reflection)
     assert r == pytest.approx(closed_form_coating(d, kc, rhoc_c, ks, rhoc_s, f), rel=1e-10)
-    # the published values are given to 3 digits and 0.1 degree
-    assert abs(r) == pytest.approx(magnitude, abs=6e-4)
-    assert np.degrees(np.angle(r)) == pytest.approx(phase, abs=0.06)
-    assert phase_lag(r) == pytest.approx(-phase, abs=0.06)  # delayed: positive lag
+    # finite differences: second order in space and time, 40 cells per diffusion length and 400
+    # steps per period give errors of order (1/40)^2 ~ 6e-4 at most; 2e-3 is three times that
+    _, fd = fd_periodic([d, 10 * mu_s], [rhoc_c, rhoc_s], [kc, ks], [0.0, 1.0], f)
+    assert abs(r) == pytest.approx(abs(fd[0]), rel=2e-3)
+    assert phase_lag(r) == pytest.approx(phase_lag(fd[0]), rel=2e-3)
+    assert phase_lag(r) > 0   # the substrate's signal arrives delayed through the coating
 
 
 def test_closed_form_with_own_sources_and_many_frequencies():
-    # Same closed form with both layers carrying a source, 0.1-200 Hz, rho c 1.4e6.
+    # Same closed form ([AlmondPatel1996], derived above) with both layers carrying a source,
+    # 0.1-200 Hz, rho c 1.4e6.
     f = np.geomspace(0.1, 200, 40)
     d, kc, rc = 80e-6, 0.2, 1.4e6
     stack = [layer("coating", d, rc, kc, -0.3), layer("steel", 0.1, 7870 * 486.0, 51.9, 1.7)]
@@ -171,7 +177,7 @@ def test_closed_form_with_own_sources_and_many_frequencies():
 
 
 def test_single_slab_with_convection_analytic():
-    # Separation of variables (Carslaw & Jaeger sec. 2.6 method) for one slab, adiabatic back,
+    # Separation of variables (Carslaw & Jaeger (1959) ch. 3 method) for one slab, adiabatic back,
     # k theta'(0) = h theta(0): theta(0) = s k lam tanh(lam d) / (h + k lam tanh(lam d)).
     f = np.geomspace(0.01, 100, 25)
     d, rc, k, h = 2e-3, 1.44e6, 0.6, 50.0
@@ -195,42 +201,46 @@ def _fd_compare(stack, sources, f, **h):
 @pytest.mark.parametrize("f", [0.5, 2.0, 10.0])
 def test_two_layer_matches_transient_finite_differences(f):
     # resin-rich layer 0.1 mm (k 0.2) on 1 mm of carbon/epoxy (k3 0.6); sources of the order
-    # Kelvin's and the orthotropic law give at 1e-3 strain. The FD solution resolves each
-    # diffusion length with 40 cells and each period with 400 steps: its own error is ~1e-4,
-    # so the 1 % the brief asks for is a real margin, not a loose tolerance.
+    # Kelvin's and the orthotropic law give at 1e-3 strain. Reference: the independent
+    # transient finite differences above (Crank-Nicolson, [CrankNicolson1947]), second order
+    # with 40 cells per diffusion length and 400 steps per period: errors of order
+    # (1/40)^2 ~ 6e-4 at most, so 2e-3 is three times that.
     stack = [layer("resin", 100e-6, 1.32e6, 0.2), layer("ply", 1e-3, 1.44e6, 0.6)]
     sources = [-1.7e-4, -4.3e-5]
     fd, r, theta = _fd_compare(stack, sources, f)
-    assert abs(r) == pytest.approx(abs(fd[0]), rel=0.01)
-    assert phase_lag(r) == pytest.approx(phase_lag(fd[0]), rel=0.01)
+    assert abs(r) == pytest.approx(abs(fd[0]), rel=2e-3)
+    assert phase_lag(r) == pytest.approx(phase_lag(fd[0]), rel=2e-3)
     assert abs(phase_lag(r)) > 2.0  # the case really is non-adiabatic
     # the whole profile too (relative to the largest value)
-    assert np.max(np.abs(theta - fd)) <= 0.01 * np.max(np.abs(fd))
+    assert np.max(np.abs(theta - fd)) <= 2e-3 * np.max(np.abs(fd))
 
 
 @pytest.mark.parametrize("f", [1.0, 5.0])
 def test_cross_ply_matches_transient_finite_differences(f):
     # [0/90]s, four 0.25 mm carbon/epoxy plies, 0 and 90 deg plies with the sources the
     # orthotropic law gives for 1e-3 uniaxial strain (computed with Kaw Table 2.1 data).
+    # Reference: the independent solution above (transient finite differences, Crank-Nicolson),
+    # tolerance as above.
     stack = [layer(n, 0.25e-3, 1.44e6, 0.6) for n in ("0", "90", "90", "0")]
     sources = [-4.29e-5, -1.60e-4, -1.60e-4, -4.29e-5]
     fd, r, theta = _fd_compare(stack, sources, f)
-    assert abs(r) == pytest.approx(abs(fd[0]), rel=0.01)
-    assert phase_lag(r) == pytest.approx(phase_lag(fd[0]), rel=0.01)
+    assert abs(r) == pytest.approx(abs(fd[0]), rel=2e-3)
+    assert phase_lag(r) == pytest.approx(phase_lag(fd[0]), rel=2e-3)
     assert abs(phase_lag(r)) > 5.0
-    assert np.max(np.abs(theta - fd)) <= 0.01 * np.max(np.abs(fd))
+    assert np.max(np.abs(theta - fd)) <= 2e-3 * np.max(np.abs(fd))
 
 
 def test_convection_faces_match_transient_finite_differences():
-    # a large (forced-air) h on both faces of a thin cross-ply at 0.2 Hz, where loss matters
+    # a large (forced-air) h on both faces of a thin cross-ply at 0.2 Hz, where loss matters;
+    # reference: the independent solution above (transient finite differences) with the same h
     stack = [layer(n, 0.25e-3, 1.44e6, 0.6) for n in ("0", "90")]
     sources = [-4.29e-5, -1.60e-4]
     h = {"convection_front": 200.0, "convection_back": 100.0}
     fd, r, _ = _fd_compare(stack, sources, 0.2, **h)
     adiabatic = surface_response(stack, [0.2], sources=sources)[0]
     assert abs(r - adiabatic) > 0.02 * abs(adiabatic)  # the loss is visible
-    assert abs(r) == pytest.approx(abs(fd[0]), rel=0.01)
-    assert phase_lag(r) == pytest.approx(phase_lag(fd[0]), rel=0.01)
+    assert abs(r) == pytest.approx(abs(fd[0]), rel=2e-3)
+    assert phase_lag(r) == pytest.approx(phase_lag(fd[0]), rel=2e-3)
 
 
 # ---------------------------------------------------------------- limits
@@ -241,7 +251,8 @@ def _stack():
 
 
 def test_high_frequency_limit_is_top_layer():
-    # DESIGN sec. 4 limit: f -> infinity gives the top layer's adiabatic value (mu -> 0).
+    # High-frequency limit of harmonic conduction (Carslaw & Jaeger (1959) sec. 2.6): as
+    # mu -> 0 the surface sees only the top layer's adiabatic value.
     stack = _stack()
     s = np.array([la.coefficients[0] for la in stack])
     r = surface_response(stack, [1e6, 1e8], sources=s)
@@ -250,8 +261,9 @@ def test_high_frequency_limit_is_top_layer():
 
 
 def test_low_frequency_limit_is_heat_capacity_weighted_mean():
-    # DESIGN sec. 4 limit: f -> 0 gives sum(rho c d s) / sum(rho c d). The first-order
-    # correction is O(omega H^2 / kappa): at 1e-5 Hz that is ~1e-6 of the value.
+    # Low-frequency limit ([CarslawJaeger1959]; derived in docs/references.md): f -> 0 gives
+    # sum(rho c d s) / sum(rho c d). The first-order correction is O(omega H^2 / kappa): at
+    # 1e-5 Hz that is ~1e-6 of the value.
     stack = _stack()
     s = np.array([la.coefficients[0] for la in stack])
     w = np.array([la.volumetric_heat_capacity * la.thickness for la in stack])
@@ -261,6 +273,8 @@ def test_low_frequency_limit_is_heat_capacity_weighted_mean():
 
 
 def test_uniform_sources_give_that_value_at_every_frequency():
+    # A uniform source is a uniform solution of the heat equation with adiabatic faces
+    # ([CarslawJaeger1959]): no gradient, no flux, at every frequency.
     stack = [ThermalLayer(la.name, la.thickness, la.density, la.specific_heat, la.conductivity,
                           [-2e-4, 3e-5, 1e-5]) for la in _stack()]
     f = np.geomspace(1e-3, 1e4, 50)
@@ -271,7 +285,9 @@ def test_uniform_sources_give_that_value_at_every_frequency():
 
 def test_stable_for_thick_stacks_at_200_hz():
     # 5 mm of laminate (32 plies) and a 0.5 m block at 200 Hz: thousands of diffusion
-    # lengths; warnings are errors in this suite, so an overflow would fail here.
+    # lengths; warnings are errors in this suite, so an overflow would fail here. A buried
+    # layer thousands of diffusion lengths deep cannot reach the surface ([CarslawJaeger1959]
+    # sec. 2.6: the wave decays as exp(-z/mu)).
     plies = [layer(str(i), 5e-3 / 32, 1.44e6, 0.6, -4.3e-5 if i % 2 else -1.6e-4) for i in range(32)]
     stack = [layer("resin", 20e-6, 1.32e6, 0.2, -1.7e-4)] + plies + [layer("block", 0.5, 1.44e6, 0.6, 1.0)]
     s = np.array([la.coefficients[0] for la in stack])
@@ -286,6 +302,8 @@ def test_stable_for_thick_stacks_at_200_hz():
 
 
 def test_profile_default_depths_and_continuity():
+    # Temperature is continuous across every interface (perfect thermal contact,
+    # [CarslawJaeger1959] ch. 3); the profile's first point is the surface value.
     stack = _stack()
     s = np.array([la.coefficients[0] for la in stack])
     r, z, theta = surface_response(stack, [3.0, 30.0], sources=s, profile=True, points_per_layer=8)
@@ -302,6 +320,9 @@ def test_profile_default_depths_and_continuity():
 
 # ---------------------------------------------------------------- coefficients and maps
 def test_transfer_coefficients_are_linear_in_strain():
+    # The heat equation is linear ([CarslawJaeger1959]), so the response to any strain is the
+    # strain times the response to each unit component; compared with a direct solve whose
+    # sources come from each layer's own adiabatic law.
     stack = thermal_layers(Laminate.from_layup(CFRP, "[45/0/-45/90]s", 0.125e-3,
                                                resin_layer=SurfaceLayer(PAINT, 15e-6)))
     f = np.array([0.3, 5.0, 80.0])
@@ -314,7 +335,8 @@ def test_transfer_coefficients_are_linear_in_strain():
 
 
 def test_model_response_convention_and_dtypes():
-    # shared convention: lag = -degrees(arctan(Im/Re)); numpy.angle is the reference here
+    # project convention (DEVELOPERS.md): lag = -degrees(arctan(Im/Re)); numpy.angle is the
+    # reference here
     c = np.array([1.0 - 0.2j, -0.5 + 0.1j, 0.3j])
     rng = np.random.default_rng(7)
     e = rng.normal(0, 1e-3, (5, 6, 3)).astype(np.float32)
@@ -368,7 +390,7 @@ def test_glass_epoxy_cross_ply_barely_changes_over_1_to_50_hz():
     carbon, _ = _inphase(Laminate.from_layup(CFRP, "[0/90]s", 0.5e-3), f)
     spread_glass = np.ptp(glass) / np.abs(glass).mean()
     spread_carbon = np.ptp(carbon) / np.abs(carbon).mean()
-    assert spread_glass < 0.05   # "barely": within 5 % (the computed spread is ~3.5 %)
+    assert spread_glass < 0.05   # "barely": our criterion of 5 % over the band
     assert spread_carbon > 4 * spread_glass
 
 
