@@ -1,7 +1,7 @@
 """Pinhole camera with lens distortion: curved and flat parts seen by a distorted IR camera.
 
 The ground truth is an independent forward model written here in numpy: a pinhole camera with
-Brown-Conrady distortion (Brown, Photogramm. Eng. 32(3), 1966; the same equations are printed in
+Brown-Conrady distortion ([Brown1966], docs/references.md; the same equations are printed in
 OpenCV's calib3d documentation), looking at a cylinder section or a plane.
 """
 
@@ -68,7 +68,7 @@ def test_cylinder_held_out_points_within_0p2px(rng):
     noise = 0.05  # px: centroid noise of good fiducial markers (common practice)
     cam = fit_camera(fit_pts, truth_fit + rng.normal(0, noise, truth_fit.shape), SHAPE)
     err = np.linalg.norm(cam.project(held) - forward(held), axis=1)
-    # issue requirement 0.2 px; the fit's prediction error should be ~noise (0.05 px) here
+    # accuracy target 0.2 px; the fit's prediction error should be ~noise (0.05 px) here
     assert np.sqrt(np.mean(err ** 2)) < 0.2
     assert err.max() < 0.3
     # the fit's own residual is consistent with the injected noise: E[rms] = noise*sqrt(2(1-p/2N))
@@ -84,7 +84,8 @@ def test_cylinder_held_out_points_within_0p2px(rng):
 
 
 def test_cylinder_with_offset_frame(rng):
-    # a stereo system's origin is arbitrary: shifting the 3D frame must not change the fit
+    # a stereo system's origin is arbitrary: shifting the 3D frame must not change the fit; the
+    # truth is the independent forward model (Brown 1966 distortion written here)
     pts = cylinder_points(rng, 40)
     shift = np.array([500.0, -300.0, 1000.0])
     img = forward(pts)
@@ -96,7 +97,7 @@ def test_cylinder_with_offset_frame(rng):
 
 def test_planar_part_with_distortion(rng):
     # flat coupon, z = 0, seen at an angle; square pixels and centred principal point as in the
-    # planar single-view case
+    # planar single-view case (Zhang 2000); truth from the independent forward model
     k = np.array([[700.0, 0, 320.0], [0, 700.0, 256.0], [0, 0, 1]])
     plate = lambda n: np.column_stack([rng.uniform(-70, 70, n), rng.uniform(-60, 60, n), np.zeros(n)])
     fit_pts, held = plate(40), plate(25)
@@ -104,10 +105,11 @@ def test_planar_part_with_distortion(rng):
     cam = fit_camera(fit_pts, img, SHAPE)
     assert cam.planar
     err = np.linalg.norm(cam.project(held) - forward(held, k=k), axis=1)
-    assert np.sqrt(np.mean(err ** 2)) < 0.2  # issue requirement for held-out points
+    assert np.sqrt(np.mean(err ** 2)) < 0.2  # accuracy target for held-out points
 
 
 def test_round_trip_and_errors(rng):
+    # not a physics check: dictionary round trip, error text, points behind the camera
     pts = cylinder_points(rng, 30)
     cam = fit_camera(pts, forward(pts), SHAPE)
     back = CameraModel.from_dict(cam.to_dict())

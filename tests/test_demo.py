@@ -1,8 +1,10 @@
-"""End to end on the demo campaign: the recovered source maps match the sources built in.
+"""The demo campaign run whole: outputs, their contract, and self-consistency.
 
-The demo data are synthetic (fusion/demo/, sample_data/README.md): each run is generated with a
-known source of the signal. These tests run the whole pipeline on them and check what a user
-relies on: the source map, the residual of the true source, the contract of the outputs.
+The demo data are synthetic (fusion/demo/, sample_data/README.md), generated with the
+package's own forward models (its heat model, its speckle rendering). Recovering the sources
+built in is therefore a self-consistency check, not a reference: a sign error shared by the
+generator and the predictor would pass here. The outside check of the same chain is
+tests/test_end_to_end.py, whose data are made by code of its own.
 """
 
 import json
@@ -39,6 +41,7 @@ def _open(out, name):
 
 
 def test_every_run_succeeds(demo):
+    # not a physics check: every demo run completes and the campaign files exist
     _, out, outcome = demo
     assert outcome.ok, outcome.describe()
     assert {r.name for r in outcome.runs} == {r.name for r in DEMO_RUNS}
@@ -47,6 +50,8 @@ def test_every_run_succeeds(demo):
 
 @pytest.mark.parametrize("run", DEMO_RUNS, ids=lambda r: r.name)
 def test_source_map_matches_built_in_source(demo, run):
+    # not a physics check: self-consistency on the package's own demo data (see the module
+    # docstring); the independent check is tests/test_end_to_end.py
     _, out, _ = demo
     ds = _open(out, run.name)
     valid = ds["valid"].values.astype(bool)
@@ -60,6 +65,8 @@ def test_source_map_matches_built_in_source(demo, run):
 
 @pytest.mark.parametrize("run", DEMO_RUNS, ids=lambda r: r.name)
 def test_residual_of_true_source_centred_on_zero(demo, run):
+    # not a physics check: self-consistency on the package's own demo data (see the module
+    # docstring)
     _, out, _ = demo
     ds = _open(out, run.name)
     valid = ds["valid"].values.astype(bool)
@@ -86,6 +93,7 @@ def test_carbon_cross_ply_moves_from_laminate_to_surface_ply(demo):
 
 
 def test_every_variable_has_units_and_long_name(demo):
+    # not a physics check: CF attributes of result.nc
     _, out, _ = demo
     ds = _open(out, DEMO_RUNS[0].name)
     for name, var in ds.data_vars.items():
@@ -101,6 +109,7 @@ def test_every_variable_has_units_and_long_name(demo):
 
 
 def test_summaries_validate_against_schema(demo):
+    # not a physics check: summary.json against its schema
     _, out, _ = demo
     schema = json.loads((ROOT / "fusion" / "schema" / "summary.schema.json").read_text())
     for run in DEMO_RUNS:
@@ -110,6 +119,7 @@ def test_summaries_validate_against_schema(demo):
 
 
 def test_frequency_file_has_a_group_per_specimen(demo):
+    # not a physics check: the layout of frequency.nc
     _, out, _ = demo
     for spec in ("CQ", "CX", "GP"):
         with xr.open_dataset(out / "frequency.nc", group=spec) as g:
@@ -118,12 +128,14 @@ def test_frequency_file_has_a_group_per_specimen(demo):
 
 
 def test_rerun_skips_unchanged_runs(demo):
+    # not a physics check: unchanged runs are skipped
     cfg, out, _ = demo
     again = run_campaign(cfg, out=out, workers=1)
     assert again.ok and all(r.status == "skipped" for r in again.runs)
 
 
 def test_bad_runs_fail_alone(demo, tmp_path):
+    # not a physics check: broken runs fail alone, with the file named
     cfg, _, _ = demo
     data = cfg.parent
     text = cfg.read_text()

@@ -25,18 +25,18 @@ Y, X = 60, 80
 # --- forward model -------------------------------------------------------------------
 
 # Resin witness, Kelvin's law -(alpha/(rho c)) E/(1-nu) (Harwood & Cummings 1991 form):
-# E 3.5 GPa, nu 0.35, alpha 60e-6 /K, rho 1200, c 1100 -> -0.245 per (eps_xx + eps_yy)
-# (REFERENCES.md, computed; recomputed here).
+# E 3.5 GPa, nu 0.35, alpha 60e-6 /K, rho 1200, c 1100 (typical, from memory) -> -0.245 per
+# (eps_xx + eps_yy) (docs/references.md; recomputed here).
 _K_RESIN = -(60e-6 / (1200 * 1100)) * 3.5e9 / (1 - 0.35)
 # 0 deg graphite/epoxy ply, orthotropic law -(alpha1 dsigma1 + alpha2 dsigma2)/(rho c)
 # (Potter & Greaves 1987): Q11 181.8, Q12 2.897, Q22 10.35 GPa from Kaw, Mechanics of
-# Composite Materials, 2nd ed., Table 2.1 data; alpha1 0.02e-6, alpha2 22.5e-6 /K; rho 1600
-# and c 900 assumed (as in REFERENCES.md).
+# Composite Materials, 2nd ed., Table 2.1 data ([Kaw2006]); alpha1 0.02e-6, alpha2 22.5e-6 /K;
+# rho 1600 and c 900 typical (from memory).
 _RC_PLY = 1600 * 900
 _C_PLY0 = -np.array([0.02e-6 * 181.8e9 + 22.5e-6 * 2.897e9,
                      0.02e-6 * 2.897e9 + 22.5e-6 * 10.35e9, 0.0]) / _RC_PLY
 # A 90 deg ply swaps the material axes; the homogenised [0/90]s laminate with equal ply
-# thickness and rho c is the thickness-weighted mean (DESIGN section 4, laminate form).
+# thickness and rho c is the thickness-weighted mean of the ply laws ([Kaw2006] sec. 4.5).
 _C_PLY90 = _C_PLY0[[1, 0, 2]]
 _C_LAM = 0.5 * (_C_PLY0 + _C_PLY90)
 
@@ -178,6 +178,8 @@ def test_best_source_is_taken_among_fitting_ones():
 
 
 def test_coinciding_predictions_are_indistinguishable(rng):
+    # Independent forward model (this file): equal predictions; their likelihoods are equal
+    # (scipy.stats.norm gives the same density), so each has probability 1/2.
     # A unidirectional [0]4 laminate: the homogenised law of identical plies equals the
     # ply's own law (thickness-weighted mean of equal terms), so surface ply == laminate.
     e = _strain()
@@ -199,6 +201,8 @@ def test_coinciding_predictions_are_indistinguishable(rng):
 
 
 def test_distinguish_threshold_in_combined_sigma(rng):
+    # Independent forward model (this file): two predictions a known number of sigmas apart;
+    # which pixels fit is computed here from |z| <= 3.
     sm, sp = 2e-6, 0.0
     base = np.full((Y, X), -1e-4)
     measured = base + rng.normal(0.0, sm, (Y, X))
@@ -216,6 +220,7 @@ def test_distinguish_threshold_in_combined_sigma(rng):
 
 
 def test_distinguish_threshold_in_lag(rng):
+    # Independent forward model (this file): equal ratios, lags a known number of sigmas apart.
     # Equal ratios; lags 0 and gap deg apart with a measured lag std of 1 deg and no floor,
     # so the pair's combined lag sigma is 1 deg.
     base = np.full((Y, X), -1e-4)
@@ -233,6 +238,8 @@ def test_distinguish_threshold_in_lag(rng):
 
 
 def test_no_source_fits_far_from_every_prediction(rng):
+    # Independent forward model (this file): the measurement is built 40 sigma below every
+    # prediction; a N(0, 1) z beyond 3 is expected everywhere (scipy.stats.norm tails).
     sm, sp = 3e-6, 2e-6
     truth = _true_predictions()
     measured = truth["resin_layer"] - 40 * sm + rng.normal(0, sm, (Y, X))  # below them all
@@ -298,6 +305,8 @@ def test_lag_difference_wraps_modulo_180():
 
 
 def test_surface_fraction_recovers_known_mixture(rng):
+    # Independent forward model (this file): a known mixture beta of two sources plus numpy
+    # noise; the pulls of beta are checked against N(0, 1) with scipy.stats.kstest.
     sm, sp = 1e-6, 1e-6
     truth = _true_predictions()
     beta = np.broadcast_to(np.linspace(0.2, 0.9, X), (Y, X))
@@ -324,6 +333,7 @@ def test_surface_fraction_recovers_known_mixture(rng):
 
 
 def test_nan_pixels_become_no_data_without_affecting_neighbours(rng):
+    # not a physics check: bad pixels become no-data and leave their neighbours bit for bit
     sm, sp = 3e-6, 2e-6
     measured, preds, pstd, _, _, _ = _scenario(rng, sm, sp)
     lag = rng.normal(0, 1.0, (Y, X))
@@ -355,6 +365,7 @@ def test_nan_pixels_become_no_data_without_affecting_neighbours(rng):
 
 
 def test_zero_combined_sigma_is_no_data():
+    # not a physics check: a zero combined sigma is no-data, not a division by zero
     m = np.array([[1.0, 1.0]])
     d = diagnose(m, np.array([[0.0, 0.1]]), {"laminate": np.ones((1, 2))}, {"laminate": 0.0})
     assert d.source_layer.tolist() == [[-1, SOURCES.index("laminate")]]
@@ -422,6 +433,7 @@ def test_calibration_weighted_and_unweighted_match_curve_fit(rng):
 
 
 def test_calibration_refusals(rng):
+    # not a physics check: the calibration range and its error text
     m, p, mask = _calibration_case(rng, 50, 3.0, 1e-7, 1e-7)
     with pytest.raises(ValueError, match=r"outside 0\.5\.\.2"):
         calibration_factor(m, p, mask, measured_std=1e-7, predicted_std=1e-7)
@@ -439,7 +451,7 @@ def test_apply_calibration_propagates_first_order():
     out, std = apply_calibration(m, 1.1, measured_std=1e-6, factor_std=0.01)
     assert out.dtype == np.float32 and std.dtype == np.float32
     np.testing.assert_allclose(out, 1.1 * m.astype(float), rtol=1e-6)
-    # Taylor (1997) eq. 3.18 for a product: relative errors add in quadrature.
+    # Taylor (1997) eq. 3.18 for a product ([Taylor1997]): relative errors add in quadrature.
     np.testing.assert_allclose(std, np.hypot(1.1e-6, m.astype(float) * 0.01), rtol=1e-6)
 
 
@@ -509,6 +521,7 @@ def test_region_table_rows(rng):
 
 
 def test_dtypes_flags_and_result_dataset(rng):
+    # not a physics check: dtypes, CF flags and the result dataset
     sm, sp = 3e-6, 2e-6
     measured, preds, pstd, _, _, _ = _scenario(rng, sm, sp)
     d = diagnose(measured.astype(np.float32), sm, preds, pstd)
@@ -528,6 +541,7 @@ def test_dtypes_flags_and_result_dataset(rng):
 
 
 def test_bad_arguments():
+    # not a physics check: argument errors
     m = np.zeros((2, 3))
     ok = {"laminate": np.zeros((2, 3))}
     with pytest.raises(ValueError, match="unknown source"):
@@ -554,13 +568,15 @@ def test_bad_arguments():
 
 
 def test_public_api_is_pinned():
-    # Public-API guard in the manner of SciPy's test_public_api (STYLE.md habit 1).
+    # not a physics check: public-API guard in the manner of SciPy's test_public_api
     assert set(fd.__all__) == {
         "CALIBRATION_RANGE", "Diagnosis", "WHOLE_FIELD", "apply_calibration",
         "calibration_factor", "diagnose", "region_mask", "region_table"}
 
 
 def test_heat_model_is_named_only_where_no_layer_fits(rng):
+    # Independent forward model (this file): layer sources and a heat-model map that agrees
+    # with one layer on the left and with none on the right; numpy noise of a known sigma.
     # Layer sources at -1e-4 (laminate) and -3e-4 (resin layer); the heat model predicts
     # -1e-4 on the left half (it agrees with the laminate) and -2e-4 on the right half,
     # where heat flows between layers and no single layer explains the signal.

@@ -16,7 +16,7 @@ PUBLIC = {
 
 
 def test_public_names_are_pinned():
-    # SciPy-style public-API guard: nothing leaks, nothing disappears.
+    # not a physics check: SciPy-style public-API guard, nothing leaks, nothing disappears.
     assert set(fusion.dic.__all__) == PUBLIC
     for name in PUBLIC - {"REASON_CODES"}:
         assert getattr(fusion.dic, name).__module__.startswith("fusion.dic._"), name
@@ -24,6 +24,7 @@ def test_public_names_are_pinned():
 
 
 def test_options_are_keyword_only():
+    # not a physics check: signatures
     checks = {
         fusion.dic.correlate: 2, fusion.dic.strain_from_field: 1, fusion.dic.speckle_image: 1,
         fusion.dic.ranges_from_states: 2, fusion.dic.ranges_from_series: 2,
@@ -39,20 +40,21 @@ def test_options_are_keyword_only():
 
 
 def test_reason_codes_are_documented_int8():
+    # not a physics check: reason codes are documented and fit int8
     codes = fusion.dic.REASON_CODES
     assert codes[0].startswith("converged") and all(isinstance(v, str) and v for v in codes.values())
     assert all(-128 <= k <= 127 for k in codes)
 
 
 def test_quick_benchmark_reports_the_contract_keys():
-    # DESIGN section 6: the flat JSON keys dic_subsets_per_s, dic_points_per_s,
-    # dic_flow_seconds. Speed is not asserted (benchmarks only); accuracy is: the
-    # noise-free exact-shift pair must meet |bias| <= 0.001 px, std <= 0.003 px.
+    # The flat JSON keys dic_subsets_per_s, dic_points_per_s, dic_flow_seconds (DEVELOPERS.md,
+    # Benchmarks). Speed is not asserted (benchmarks only); accuracy is: the noise-free
+    # exact-shift pair (Reu et al. 2018, [Reu2018]) must meet |bias| <= 0.001 px, std <= 0.003 px.
     out = bench_dic(quick=True, repeats=1)
     for key in ("dic_subsets_per_s", "dic_points_per_s", "dic_flow_seconds", "dic_bias_px",
                 "dic_std_px"):
         assert np.isfinite(out[key]) and out[key] >= 0
     assert out["dic_bias_px"] <= 0.001 and out["dic_std_px"] <= 0.003
-    # Pan et al. (2008) noise prediction, design target within 1.3x
+    # Pan et al. (2008) noise prediction, our target within 1.3x
     assert 1 / 1.3 <= out["dic_noise_std_ratio"] <= 1.3
     assert out["dic_image_size"] == 256

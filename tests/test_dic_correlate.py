@@ -1,4 +1,9 @@
-"""Built-in subset correlation: kernels, accuracy on exact synthetic pairs, cross-checks."""
+"""Built-in subset correlation: kernels, accuracy on exact synthetic pairs, cross-checks.
+
+Test images are band-limited speckle patterns moved exactly in Fourier space ([Reu2011]), the
+method of the DIC Challenge ([Reu2018]); reference libraries are SciPy, scikit-image and
+OpenCV (keys of docs/references.md).
+"""
 
 import cv2
 import numpy as np
@@ -20,8 +25,8 @@ def reference8():
 
 
 def test_bspline_interpolation_matches_scipy(rng):
-    # Reference library: map_coordinates(order=3, mode="mirror") evaluates the same
-    # cubic B-spline interpolant; agreement to float64 rounding of 16-tap sums.
+    # Reference library: scipy.ndimage.map_coordinates(order=3, mode="mirror") evaluates the
+    # same cubic B-spline interpolant ([Unser1999]); agreement to float64 rounding of 16-tap sums.
     img = speckle_image((64, 72), seed=1, bits=None) * 255
     ys = rng.uniform(1.0, 61.99, 500)
     xs = rng.uniform(1.0, 69.99, 500)
@@ -58,6 +63,7 @@ def test_zncc_map_matches_skimage_match_template(rng):
 
 
 def test_global_shift_recovers_an_integer_roll(reference8):
+    # numpy.roll makes an exact integer shift; the FFT seed must find it.
     moved = np.roll(reference8, (5, -9), axis=(0, 1))
     assert global_shift(reference8.astype(float), moved.astype(float)) == (5, -9)
 
@@ -65,9 +71,10 @@ def test_global_shift_recovers_an_integer_roll(reference8):
 @pytest.mark.parametrize("s", np.round(np.arange(0.0, 1.01, 0.1), 1))
 def test_subpixel_translation_accuracy(reference8, s):
     # DIC Challenge method (Reu et al. 2018): exact Fourier-space translation of a
-    # band-limited pattern, 8-bit, noise-free. Targets of the project's design
-    # (derived from the DIC Challenge accuracy study): |bias| <= 0.001 px and
-    # std <= 0.003 px. 8-bit quantisation alone gives about 0.0016 px std here.
+    # band-limited pattern, 8-bit, noise-free. Our accuracy targets, in the range such
+    # studies report for subset correlation (docs/references.md, [Reu2018]; from memory):
+    # |bias| <= 0.001 px and std <= 0.003 px. 8-bit quantisation alone gives about
+    # 0.0016 px std here.
     u_true, v_true = s, -s
     moved = speckle_image((N, N), seed=11, bits=8, displacement=(u_true, v_true))
     res = correlate(reference8, moved)
@@ -98,9 +105,10 @@ def test_agrees_with_skimage_phase_cross_correlation(reference8, shift):
 
 @pytest.mark.parametrize("s", [0.0, 0.4])
 def test_noise_follows_pan_2008(s):
-    # Pan et al., Opt. Express 16 (2008): sigma_u ~ sqrt(2) sigma / sqrt(SSSIG) with
-    # the same noise sigma in both images. SSSIG is taken from the noise-free pair.
-    # Target of the design: measured std within 1.3x of the prediction. Overlapping
+    # Pan et al., Opt. Express 16 (2008), [Pan2008]: sigma_u ~ sqrt(2) sigma / sqrt(SSSIG)
+    # with the same noise sigma in both images. SSSIG is taken from the noise-free pair.
+    # Our target: measured std within 1.3x of the prediction (the formula is an
+    # approximation; its exact form is from memory). Overlapping
     # subsets (step 10 < 21) leave ~200 independent points over two realisations:
     # ~5 % scatter on the measured std.
     sigma = 2.0 / 255.0
@@ -128,9 +136,10 @@ def _affine(a, b, d, e, c0, r0):
 def test_homogeneous_strain_1000_microstrain():
     # Imposed in image axes (x = column, y = row down): u = a x + b y, v = d x + e y.
     # In the specimen frame (X = x, Y = -y, U = u, V = -v): eps_xx = a, eps_yy = e,
-    # gamma_xy = dU/dY + dV/dX = -(b + d). Design target: recovered within 30
-    # microstrain; 16-bit images so quantisation noise (~5 microstrain here) does not
-    # mask the method's own error.
+    # gamma_xy = dU/dY + dV/dX = -(b + d). Images: exact Fourier-space warps of the
+    # pattern (Reu 2011, [Reu2011]). Our target: recovered within 30 microstrain; 16-bit
+    # images so quantisation noise (~5 microstrain here) does not mask the method's own
+    # error.
     a, b, d, e = 1000e-6, 200e-6, 200e-6, -300e-6
     disp = _affine(a, b, d, e, N / 2, N / 2)
     ref = speckle_image((N, N), seed=3, bits=16)
@@ -149,8 +158,8 @@ def test_homogeneous_strain_1000_microstrain():
 
 
 def test_homogeneous_strain_8bit_mean():
-    # Same field on 8-bit images: quantisation noise (~0.0016 px) gives ~40
-    # microstrain scatter at a 61 px VSG, but the mean stays within 30 microstrain.
+    # Same field on 8-bit images (exact warps, [Reu2011]): quantisation noise (~0.0016 px)
+    # gives ~40 microstrain scatter at a 61 px VSG, but the mean stays within 30 microstrain.
     a, b, d, e = 1000e-6, 0.0, 0.0, -300e-6
     disp = _affine(a, b, d, e, N / 2, N / 2)
     ref = speckle_image((N, N), seed=3)
@@ -186,6 +195,7 @@ def test_smooth_field_against_opencv_dense_flow():
 
 
 def test_propagation_modes_and_seed_points_agree():
+    # not a physics check: three propagation orders of the package reach the same optimum
     def disp(x, y):
         return (0.8 * np.sin(2 * np.pi * y / 400), 0.5 * np.cos(2 * np.pi * x / 300))
 
@@ -203,8 +213,8 @@ def test_propagation_modes_and_seed_points_agree():
 
 
 def test_large_translation_found_by_fft_seeding(reference8):
-    # Integer start from FFT cross-correlation: a 12.3 / -7.6 px shift is far outside
-    # the IC-GN capture range, and must still be found.
+    # Integer start from FFT cross-correlation: a 12.3 / -7.6 px shift (an exact Fourier-space
+    # translation, [Reu2011]) is far outside the IC-GN capture range, and must still be found.
     moved = speckle_image((N, N), seed=11, bits=8, displacement=(12.3, -7.6))
     res = correlate(reference8, moved)
     ok = res.valid
@@ -220,6 +230,8 @@ def test_large_translation_found_by_fft_seeding(reference8):
 
 
 def test_region_of_interest_rectangle_and_mask(reference8):
+    # Exact Fourier-space translation ([Reu2011]): the shift built in is the reference, also for
+    # subsets cut by the mask.
     moved = speckle_image((N, N), seed=11, bits=8, displacement=(0.25, 0.4))
     res = correlate(reference8, moved, roi=(40, 60, 200, 180))
     assert res.rows.min() >= 40 + 10 and res.rows.max() <= 200 - 1 - 10
@@ -239,6 +251,7 @@ def test_region_of_interest_rectangle_and_mask(reference8):
 
 
 def test_failures_are_masked_with_a_reason(reference8):
+    # not a physics check: failed points carry a reason code and NaN, never a guess
     unrelated = speckle_image((N, N), seed=99, bits=8)
     res = correlate(reference8, unrelated)
     assert res.valid.mean() < 0.05
@@ -257,6 +270,7 @@ def test_failures_are_masked_with_a_reason(reference8):
 
 
 def test_to_field_converts_to_the_specimen_frame(reference8):
+    # not a physics check: the image-to-specimen conversion of DEVELOPERS.md (y and v change sign)
     moved = speckle_image((N, N), seed=11, bits=8, displacement=(0.5, 0.25))
     res = correlate(reference8, moved, step=15)
     f = res.to_field(pixel_size=0.02)

@@ -32,7 +32,7 @@ def _write_csv(path, header, rows, sep=","):
 
 def test_csv_grid_in_pixels_rows_down(tmp_path):
     # Pixel coordinates default to y down (image rows): y = -row, v = -v_img and
-    # gxy = -gxy_img on conversion; exx, eyy keep their sign (DESIGN, frames).
+    # gxy = -gxy_img on conversion; exx, eyy keep their sign (DEVELOPERS.md, Conventions).
     x, y = _grid_table(step=10.0)
     u, v = 0.01 * x, 0.02 * y
     exx, eyy, gxy = np.full(x.size, 1e-3), np.full(x.size, 2e-3), np.full(x.size, 3e-4)

@@ -1,4 +1,8 @@
-"""Cyclic strain ranges from two states, a load series, a time series, or a table."""
+"""Cyclic strain ranges from two states, a load series, a time series, or a table.
+
+Fields are homogeneous strain states of our own (exact for a plane fit); noise checks use
+least-squares theory ([DraperSmith1998], [Kay1993]) and SciPy's linregress (docs/references.md).
+"""
 
 import numpy as np
 import pytest
@@ -33,7 +37,8 @@ EXX, EYY, GXY = GRAD[0, 0], GRAD[1, 1], GRAD[0, 1] + GRAD[1, 0]
 
 
 def test_two_states_give_max_minus_min():
-    # Linear field: the plane fit is exact; d eps = eps(max) - eps(min), signed.
+    # Linear field: the plane fit is exact (common practice); d eps = eps(max) - eps(min),
+    # signed (DEVELOPERS.md); Green-Lagrange from (F^T F - I)/2 written here with numpy.
     r = ranges_from_states(_field(1.0, offset=0.2), _field(9.0, offset=-0.4))
     ok = r.valid
     assert ok.mean() > 0.95
@@ -54,8 +59,8 @@ def test_two_states_give_max_minus_min():
 def test_two_state_noise_follows_least_squares_theory(rng):
     # White displacement noise sigma in each state: the difference has sqrt(2) sigma,
     # and a 5 x 5 plane fit (sum k^2 = 50, spacing 1) gives a slope std of
-    # sqrt(2) sigma / sqrt(50) (textbook least squares); see test_dic_strain for the
-    # tolerance reasoning.
+    # sqrt(2) sigma / sqrt(50) (textbook least squares, [DraperSmith1998]); see
+    # test_dic_strain for the tolerance reasoning.
     sigma = 2e-4
     r = ranges_from_states(_field(1.0, rng, sigma), _field(9.0, rng, sigma))
     theory = np.sqrt(2) * sigma / np.sqrt(50.0)
@@ -68,7 +73,8 @@ def test_two_state_noise_follows_least_squares_theory(rng):
 
 
 def test_reporting_attributes_from_a_correlated_pair():
-    # Good Practices Guide reporting: subset, step, VSG (px and mm), noise floor.
+    # Good Practices Guide reporting ([iDICs2018]): subset, step, VSG (px and mm), noise floor;
+    # the imposed strains are exact Fourier-space warps ([Reu2011]).
     ref = speckle_image((160, 160), seed=4)
     moved = speckle_image((160, 160), seed=4,
                           displacement=lambda x, y: (1e-3 * (x - 80), -5e-4 * (y - 80)))
@@ -111,9 +117,10 @@ def _cyclic_fields(rng, times, freq, delta, lag_deg, phase0, sigma, drift=0.0):
 
 
 def test_time_series_lock_in_convention(rng):
-    # Shared convention: q = q0 + Re(C/2 exp(i theta)), load L0 + (dL/2) cos theta,
-    # so a response (delta/2) cos(theta - lag) has C = delta exp(-i lag):
-    # Re C = delta cos(lag), Im C = -delta sin(lag). Exact for noise-free data.
+    # Project convention (DEVELOPERS.md): q = q0 + Re(C/2 exp(i theta)), load L0 + (dL/2)
+    # cos theta, so a response (delta/2) cos(theta - lag) has C = delta exp(-i lag):
+    # Re C = delta cos(lag), Im C = -delta sin(lag), written here with numpy (independent
+    # forward model). Exact for noise-free data.
     freq, times = 5.0, np.arange(40) / 50.0  # 4 whole cycles, 10 frames each
     fields, load = _cyclic_fields(rng, times, freq, 8.0, 20.0, 0.7, 0.0, drift=0.3)
     r = ranges_from_time_series(fields, times, freq, load=load)
@@ -133,7 +140,7 @@ def test_time_series_lock_in_convention(rng):
 def test_time_series_noise_falls_as_one_over_root_n(rng):
     # Least squares on N samples of white noise sigma (whole cycles): each
     # quadrature coefficient has std sigma sqrt(2/N), so Re C = 2 c has 2 sigma
-    # sqrt(2/N) (REFERENCES: standard lock-in result). Here sigma is the strain
+    # sqrt(2/N) (standard least-squares result, [Kay1993]). Here sigma is the strain
     # noise per frame of the 5 x 5 plane fit, sigma_u / sqrt(50).
     freq, times = 2.0, np.arange(60) / 20.0  # 6 cycles, 10 frames each
     sigma_u = 2e-4
@@ -149,7 +156,8 @@ def test_time_series_noise_falls_as_one_over_root_n(rng):
 def test_strain_table_noise_estimate(rng):
     # White noise on a smooth strain map: the departure from the 3 x 3 mean has
     # variance sigma^2 (1 - 1/9); the robust estimate recovers sigma (1,600 points:
-    # ~3 % scatter of a MAD estimate, 8 % tolerance).
+    # ~3 % scatter of a MAD estimate, 8 % tolerance). The noise is numpy's normal draws of a
+    # known sigma (independent forward model).
     x, y, shape = _grid()
     sigma = 20e-6
     smooth = 1e-3 + 1e-6 * x - 2e-6 * y

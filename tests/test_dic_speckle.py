@@ -1,4 +1,4 @@
-"""Synthetic speckle images and exact Fourier-space shifts."""
+"""Synthetic speckle images and exact Fourier-space shifts ([Reu2011], docs/references.md)."""
 
 import numpy as np
 import pytest
@@ -18,7 +18,8 @@ def test_fourier_shift_matches_scipy_ndimage(rng):
 
 
 def test_integer_fourier_shift_is_a_roll(rng):
-    # An integer shift of a periodic image is an exact circular roll (DFT shift theorem).
+    # An integer shift of a periodic image is an exact circular roll (DFT shift theorem, common
+    # practice); numpy.roll is the reference.
     a = rng.normal(size=(40, 30))
     np.testing.assert_allclose(fourier_shift(a, (3, -7)), np.roll(a, (3, -7), axis=(0, 1)),
                                atol=1e-12)
@@ -37,7 +38,8 @@ def test_translation_two_independent_routes_agree():
 
 
 def test_integer_callable_shift_is_a_roll():
-    # Shifting the continuous periodic pattern by whole pixels permutes the samples.
+    # Shifting the continuous periodic pattern by whole pixels permutes the samples (common
+    # practice); numpy.roll is the reference.
     ref = speckle_image((64, 80), seed=2, bits=None)
     moved = speckle_image((64, 80), seed=2, bits=None, displacement=lambda x, y: (2.0, -3.0))
     np.testing.assert_allclose(moved, np.roll(ref, (-3, 2), axis=(0, 1)), atol=1e-12)
@@ -45,7 +47,8 @@ def test_integer_callable_shift_is_a_roll():
 
 @pytest.mark.parametrize("size", [3.0, 4.0, 6.0])
 def test_speckle_size_is_the_dot_half_maximum_diameter(size):
-    # Wiener-Khinchin: the autocovariance of randomly placed dots exp(-r^2/R^2) is
+    # Wiener-Khinchin (common practice; numpy.fft computes it): the autocovariance of randomly
+    # placed dots exp(-r^2/R^2) is
     # the dot's self-correlation, proportional to exp(-d^2 / (2 R^2)); with the dot
     # FWHM equal to speckle_size it falls to half at d = speckle_size / sqrt(2).
     img = speckle_image((512, 512), seed=9, speckle_size=size, bits=None)
@@ -61,12 +64,14 @@ def test_speckle_size_is_the_dot_half_maximum_diameter(size):
 
 
 def test_reproducible_and_seed_dependent():
+    # not a physics check: seeds
     a = speckle_image((64, 64), seed=1)
     assert np.array_equal(a, speckle_image((64, 64), seed=1))
     assert not np.array_equal(a, speckle_image((64, 64), seed=2))
 
 
 def test_output_types_and_range():
+    # not a physics check: dtypes, value range and the package's documented grey mapping
     assert speckle_image((32, 32), bits=8).dtype == np.uint8
     b12 = speckle_image((32, 32), bits=12)
     assert b12.dtype == np.uint16 and b12.max() <= 4095
@@ -80,7 +85,8 @@ def test_output_types_and_range():
 def test_noise_has_the_requested_standard_deviation():
     clean = speckle_image((256, 256), seed=3, bits=None)
     noisy = speckle_image((256, 256), seed=3, bits=None, noise=0.01, noise_seed=5)
-    # 65,536 samples: the std estimate scatters by 0.3 %; clipping touches < 0.1 %
+    # sampling theory of a std (common practice): 65,536 samples scatter by 0.3 %; clipping
+    # touches < 0.1 %
     assert np.std(noisy - clean) == pytest.approx(0.01, rel=0.02)
     again = speckle_image((256, 256), seed=3, bits=None, noise=0.01, noise_seed=6)
     assert not np.array_equal(noisy, again)

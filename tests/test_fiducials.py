@@ -110,6 +110,8 @@ def test_missing_marker_fails_clearly(rng):
 
 
 def test_match_handles_order_flip_extra_and_missing(rng):
+    # Independent forward model: the layout, its projection, a permutation, a lost and a
+    # spurious marker are made here; the matching built in is the truth.
     dst_all = project(H_IR, MARKERS_MM) + rng.normal(0, 0.1, MARKERS_MM.shape)
     keep = [0, 1, 2, 4, 5]  # marker 3 not found in the IR image
     dst = np.vstack([dst_all[keep], [[160.0, 60.0]]])  # plus a spurious detection
@@ -127,6 +129,7 @@ def test_match_handles_order_flip_extra_and_missing(rng):
 
 
 def test_symmetric_layout_is_refused_unless_constrained(rng):
+    # A square layout matches itself four ways (common practice: make layouts asymmetric).
     square = np.array([[0, 0], [40, 0], [40, 40], [0, 40.0]])
     img = square * [4, -4] + [30, 200] + rng.normal(0, 0.05, (4, 2))
     with pytest.raises(ValueError, match="symmetric"):
@@ -137,7 +140,8 @@ def test_symmetric_layout_is_refused_unless_constrained(rng):
 
 
 def test_markers_found_matched_and_fitted(rng):
-    # whole chain: markers in the IR T0 map and in mm, no clicking
+    # whole chain: markers in the IR T0 map and in mm, no clicking; truth from the independent
+    # forward model (``render`` and H_IR)
     truth = project(H_IR, MARKERS_MM)
     found = find_fiducials(ir_t0_map(rng, truth), min_radius=3, max_radius=12)
     si, di = match_fiducials(MARKERS_MM, found, method="homography")

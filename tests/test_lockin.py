@@ -3,10 +3,9 @@
 Synthetic stacks come from a forward model written here with complex exponentials,
 q(t) = q0 + r (t - t_mid) + Re(C/2 e^{i theta}) + Re(C2/2 e^{2 i theta}), not from the
 module's basis code. Expected standard errors are the least-squares covariance
-sigma^2 (X^T X)^-1 of that model (Draper & Smith, *Applied Regression Analysis*,
-3rd ed., 1998, ch. 5; Kay, *Fundamentals of Statistical Signal Processing:
-Estimation Theory*, 1993, ch. 4: Fourier coefficients of a sinusoid in white noise
-have variance 2 sigma^2 / N — the 1/sqrt(N) law; chapter numbers from memory).
+sigma^2 (X^T X)^-1 of that model ([DraperSmith1998] ch. 5; [Kay1993] ch. 4: Fourier
+coefficients of a sinusoid in white noise have variance 2 sigma^2 / N — the 1/sqrt(N)
+law; chapter numbers from memory; keys of docs/references.md).
 """
 
 import math
@@ -48,6 +47,8 @@ def zcheck(est, truth, sd, name):
 
 
 def test_recovers_known_parameters_within_predicted_errors(rng):
+    # Independent forward model (``forward``, complex exponentials) against the least-squares
+    # covariance sigma^2 (X^T X)^-1 computed here with numpy (Draper & Smith 1998).
     fs, n, sigma, f, phi = 37.0, 600, 0.02, 5.3, 0.4
     t = np.arange(n) / fs
     frames = forward(t, (32, 32), rng, sigma=sigma, f=f, phi=phi)
@@ -123,7 +124,7 @@ def test_noise_falls_as_one_over_sqrt_n(n, rng):
     r = lockin(frames, frame_rate=fs, frequency=f)
     expected = sigma * math.sqrt(8.0 / n)          # std of Re C = 2 sigma sqrt(2/N) (Kay, ch. 4)
     empirical = float(np.std(r.delta_T))
-    # spread of 2048 pixels estimates the std within 1.6 %: 10 % is the brief's margin
+    # spread of 2048 pixels estimates the std within 1.6 %: 10 % is six of those
     assert empirical == pytest.approx(expected, rel=0.10)
     assert float(np.mean(r.delta_T_std)) == pytest.approx(empirical, rel=0.10)
 
@@ -139,6 +140,8 @@ def test_typical_camera_figure_20mK_2000_frames(rng):
 
 
 def test_undersampled_with_known_frequency(rng):
+    # Least squares needs no Nyquist condition when the frequency is known (Kay 1993 ch. 4,
+    # [Kay1993]): the same covariance as above, computed here with numpy.
     fs, f, n = 7.0, 10.3, 2000                     # below 2f; f aliases to 3.3 Hz, 2f to 0.4 Hz
     t = np.arange(n) / fs
     frames = forward(t, (16, 16), rng, f=f, phi=0.0, sigma=0.02)
@@ -164,6 +167,7 @@ def test_refuses_sampling_that_cannot_resolve_the_frequency(f, fs, n, rng):
 
 
 def test_bad_pixels_masked_without_touching_neighbours(rng):
+    # not a physics check: masking of bad pixels, compared with the same pass on clean frames
     n = 300
     clean = forward(np.arange(n) / 40.0, (8, 8), rng, f=6.0, phi=0.0, dtype=np.float32)
     bad = clean.copy()
@@ -187,6 +191,8 @@ def test_bad_pixels_masked_without_touching_neighbours(rng):
 
 
 def test_int16_counts_fitted_directly_without_float_copy(rng):
+    # not a physics check: counts calibrated inside the pass equal the pass on kelvin, and
+    # no float copy of the stack is made
     gain, offset = 0.004, 250.0                     # K per count, K
     temps = forward(np.arange(400) / 50.0, (64, 64), rng, f=4.0, phi=0.0)
     counts = np.round((temps - offset) / gain).astype(np.int16)
@@ -212,6 +218,7 @@ def _lstsq_maps(frames, t, f):
 
 
 def test_float32_work_matches_float64_lstsq_with_large_drift_and_signal(rng):
+    # Reference library: numpy.linalg.lstsq in float64 on the same frames.
     # 2 K range and a 5 K drift in 20 mK noise: the offsets reach ~3.5 K while the residual
     # is 2e-4 K^2 per frame. The sub-block reference keeps the drift out of the products.
     n, fs, f = 1500, 100.0, 7.0
@@ -228,6 +235,7 @@ def test_float32_work_matches_float64_lstsq_with_large_drift_and_signal(rng):
 
 
 def test_refits_in_float64_when_float32_cannot_resolve_the_noise(rng):
+    # Reference library: numpy.linalg.lstsq in float64 on the same frames.
     # 5 K range in 2 mK noise (rho ~ 1e-6): float32 sums would miss the residual by ~5 %
     n, fs, f = 1000, 100.0, 7.0
     t = np.arange(n) / fs
@@ -246,8 +254,9 @@ def test_refits_in_float64_when_float32_cannot_resolve_the_noise(rng):
 
 @pytest.mark.parametrize("dtype", [np.uint8, np.int8, np.uint16, np.int32, np.uint32, np.float16])
 def test_every_stored_dtype_matches_its_float64_copy(dtype, rng):
-    # float32 work (8/16-bit counts, float16) and float64 work (32-bit counts) against the
-    # float64 pass on the same values, which the tests above check against numpy.linalg.lstsq
+    # not a physics check: float32 work (8/16-bit counts, float16) and float64 work (32-bit
+    # counts) against the package's float64 pass on the same values, which the tests above
+    # check against numpy.linalg.lstsq
     temps = forward(np.arange(333) / 40.0, (6, 5), rng, f=6.0, phi=0.0, sigma=0.05)
     if np.dtype(dtype).kind in "iu":   # counts of 0.02 K (8 bit) or 0.004 K, inside the type's range
         info = np.iinfo(dtype)
@@ -266,6 +275,9 @@ def test_every_stored_dtype_matches_its_float64_copy(dtype, rng):
 
 
 def test_load_on_own_clock_gives_reference_phase_and_lag(rng):
+    # Independent forward model: a load on its own 1 kHz clock and a temperature that follows
+    # it with a known delay; the expected in-phase and quadrature parts are written out below
+    # from the lock-in convention (DEVELOPERS.md) with numpy's cos and sin.
     f, delay, K = 10.0, 0.002, 0.1                  # 2 ms thermal delay = 7.2 degrees at 10 Hz
     tl = np.arange(-0.5, 21.0, 1e-3)                # load at 1 kHz, starting before the frames
     phiL = -1.1
@@ -281,12 +293,13 @@ def test_load_on_own_clock_gives_reference_phase_and_lag(rng):
     # C = -K dL e^{-i delta}: Re C = -K dL cos(delta) (cooling), Im C = +K dL sin(delta)
     np.testing.assert_allclose(r.delta_T, -K * 2.0 * math.cos(d), atol=3e-4)
     np.testing.assert_allclose(r.delta_T_quadrature, K * 2.0 * math.sin(d), atol=3e-4)
-    lag = -np.degrees(np.arctan(r.delta_T_quadrature / r.delta_T))   # the lead's lag definition
+    lag = -np.degrees(np.arctan(r.delta_T_quadrature / r.delta_T))   # the project's lag definition
     np.testing.assert_allclose(lag, 7.2, atol=0.2)
     assert r.load is not None and r.load.range == pytest.approx(4.0, rel=1e-6)
 
 
 def test_dask_array_matches_numpy(rng):
+    # not a physics check: a dask array gives the maps of the same numpy stack
     da = pytest.importorskip("dask.array")
     frames = forward(np.arange(333) / 40.0, (12, 10), rng, f=6.0, phi=0.3, dtype=np.float32)
     ref = lockin(frames, frame_rate=40.0, frequency=6.0, saturation=1e9)
@@ -303,7 +316,9 @@ def test_dask_array_matches_numpy(rng):
 
 def test_rows_joined_into_bands_give_the_pixels_of_a_row_by_row_pass(rng):
     """The pass views narrow frames as bands of joined rows; each pixel's sums are its own,
-    so the maps must equal those of one-row stacks (never joined) bit for bit."""
+    so the maps must equal those of one-row stacks (never joined) bit for bit.
+
+    Not a physics check: two memory layouts of the package's own pass compared."""
     from fusion.thermal._kernels import band_rows
 
     assert band_rows(256, 320, np.int16) == 2                    # 640 float32 work values
@@ -376,6 +391,7 @@ def test_compiled_phase_matches_numpy_arctan2(rng):
 
 
 def test_memmap_and_odd_chunks_match_in_memory(rng, tmp_path):
+    # not a physics check: a memory-mapped file in odd chunks gives the in-memory maps
     frames = forward(np.arange(301) / 40.0, (9, 7), rng, f=6.0, phi=0.0, dtype=np.float32)
     np.save(tmp_path / "s.npy", frames)
     mm = np.load(tmp_path / "s.npy", mmap_mode="r")
@@ -386,6 +402,7 @@ def test_memmap_and_odd_chunks_match_in_memory(rng, tmp_path):
 
 
 def test_memory_mapped_stack_twice_the_budget_stays_under_it(tmp_path):
+    # not a physics check: memory use of the streaming pass
     from fusion.bench._lockin import _mmap_peak
 
     budget = 16 * 2**20
@@ -396,6 +413,7 @@ def test_memory_mapped_stack_twice_the_budget_stays_under_it(tmp_path):
 
 
 def test_reference_pass_is_the_numpy_sum(rng):
+    # The benchmark's reference pass against numpy's sum (reference library).
     from fusion.bench._lockin import reference_pass
 
     a = rng.standard_normal((37, 5, 6)).astype(np.float32)
@@ -413,6 +431,7 @@ def test_reference_pass_is_the_numpy_sum(rng):
 
 
 def test_progress_is_silent_off_a_terminal(rng, capsys):
+    # not a physics check: progress output
     frames = forward(np.arange(64) / 40.0, (4, 4), rng, f=6.0, phi=0.0)
     lockin(frames, frame_rate=40.0, frequency=6.0, progress=True)
     assert capsys.readouterr().err == ""
@@ -441,6 +460,8 @@ def test_argument_errors(rng):
 
 
 def test_frequency_estimated_from_per_frame_load(rng):
+    # The frequency comes from the load as in test_signals.py, whose estimate is checked against
+    # the Cramer-Rao bound (Rife & Boorstyn 1974); here within 1e-4 of the frequency built in.
     t = np.arange(800) / 60.0
     load = 2.0 + np.cos(2 * np.pi * 4.7 * t + 0.3) + 0.01 * rng.standard_normal(t.size)
     frames = forward(t, (2, 2), rng, f=4.7, phi=0.3)
@@ -451,6 +472,7 @@ def test_frequency_estimated_from_per_frame_load(rng):
 
 
 def test_public_api():
+    # not a physics check: public names of fusion.thermal
     import fusion.thermal as th
 
     for name in ("lockin", "LockinResult", "estimate_frequency", "load_reference", "LoadReference"):

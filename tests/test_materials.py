@@ -1,7 +1,7 @@
 """Material and laminate records: validation, error text, and handbook thermoelastic constants.
 
-Handbook values (confirmed on the project's reference sheet): Al 6061-T6 (Aluminum Association
-typical values), AISI 1018 steel (handbook data sheet), Ti-6Al-4V (ASM data). The commonly quoted
+Handbook values of Al 6061-T6, AISI 1018 steel and Ti-6Al-4V: typical room-temperature values
+of the ASM Handbook (docs/references.md, [ASM1990]; from memory). The commonly quoted
 thermoelastic constants of the trade literature (steel about 3.5e-12, aluminium about 8.8e-12,
 titanium about 3.5e-12 per Pa) are from memory.
 """
@@ -17,7 +17,8 @@ from fusion.mechanics import (
     isotropic_coefficients,
 )
 
-# Kaw, Mechanics of Composite Materials (2006), Table 2.1 graphite/epoxy; thermal values assumed.
+# Kaw, Mechanics of Composite Materials (2006), Table 2.1 graphite/epoxy ([Kaw2006]); thermal
+# values typical (from memory). Epoxy: typical neat-resin values (from memory).
 CFRP = dict(name="graphite/epoxy", E1=181e9, E2=10.3e9, G12=7.17e9, nu12=0.28, alpha1=0.02e-6,
             alpha2=22.5e-6, density=1600.0, specific_heat=900.0, k1=5.0, k2=0.6, k3=0.6)
 RESIN = dict(name="epoxy", E=3.5e9, nu=0.35, alpha=60e-6, density=1200.0, specific_heat=1100.0, k=0.2)
@@ -32,7 +33,8 @@ HANDBOOK = {
 
 
 def test_kelvin_constants_reproduce_handbook_computation():
-    # K = alpha / (rho Cp) computed on the reference sheet from the handbook values (3 figures).
+    # K = alpha / (rho Cp) of the [ASM1990] values, recomputed by hand to 3 figures
+    # (docs/references.md): the record's constant must be that quotient of its own inputs.
     expect = {"Al 6061-T6": 9.76e-12, "AISI 1018": 3.01e-12, "Ti-6Al-4V": 3.69e-12}
     for name, (alpha, rho, cp, k, E, nu) in HANDBOOK.items():
         m = IsotropicMaterial(name, E, nu, alpha, rho, cp, k)

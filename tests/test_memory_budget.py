@@ -149,7 +149,7 @@ def test_stack_four_times_the_budget_stays_within_it(tmp_path, rng, motion):
     increase = m["peak"] - m["baseline"]
     where = (f"peak {m['peak'] / 1e6:.0f} MB, {increase / 1e6:.0f} MB over the baseline "
              f"{m['baseline'] / 1e6:.0f} MB (small stack: {m['small_increase'] / 1e6:.0f} MB)")
-    # the bound of the issue: the baseline (interpreter + libraries + kernels, measured before the
+    # the promised bound: the baseline (interpreter + libraries + kernels, measured before the
     # run) plus the budget plus the stated per-pixel margin
     assert increase <= BUDGET + PIXEL_MARGIN, where
     # and the same without the stated margin: what the 4x larger-than-budget stack needs on top

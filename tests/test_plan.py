@@ -12,9 +12,9 @@ from fusion.mechanics import (
 )
 from fusion.plan import frequency_plan, plan_command, plan_figure, plan_table, save_plan
 
-# Kaw, Mechanics of Composite Materials, 2nd ed., Table 2.1 graphite/epoxy; thermal data
-# typical (from memory). Resin: REFERENCES.md epoxy witness; paint: diffusivity inside the
-# 1-3e-7 m2/s of Coelho et al. (2005).
+# Kaw, Mechanics of Composite Materials, 2nd ed., Table 2.1 graphite/epoxy ([Kaw2006]); thermal
+# data typical (from memory). Resin: the typical epoxy of docs/references.md (from memory);
+# paint: diffusivity inside the 1-3e-7 m2/s of Coelho et al. (2005), [Coelho2005].
 CFRP = OrthotropicMaterial("graphite/epoxy", 181e9, 10.3e9, 7.17e9, 0.28, 0.02e-6, 22.5e-6,
                            1600.0, 900.0, 5.0, 0.6, 0.6)
 RESIN = IsotropicMaterial("epoxy", 3.5e9, 0.35, 60e-6, 1200.0, 1100.0, 0.2)
@@ -36,7 +36,7 @@ def test_plan_variables_units_and_diffusion_lengths():
         assert "long_name" in v.attrs, name
         if name not in ("layer", "source"):
             assert "units" in v.attrs, name
-    # Carslaw & Jaeger sec. 2.6: mu = sqrt(2 k / (rho c omega)); first ply k3 0.6, rho c 1.44e6
+    # Carslaw & Jaeger (1959) sec. 2.6: mu = sqrt(2 k / (rho c omega)); first ply k3 0.6, rho c 1.44e6
     f = ds["frequency"].values
     np.testing.assert_allclose(ds["diffusion_length"].sel(layer="ply 1 (0°)").values,
                                np.sqrt(2 * 0.6 / (1600 * 900 * 2 * np.pi * f)), rtol=1e-12)
@@ -52,7 +52,8 @@ def test_plan_variables_units_and_diffusion_lengths():
 
 
 def test_plan_limits_are_the_homogenised_and_top_layer_values():
-    # DESIGN sec. 4: f -> 0 gives the rho-c weighted mean, which for a laminate without surface
+    # Limits of harmonic conduction ([CarslawJaeger1959]; derived in docs/references.md):
+    # f -> 0 gives the rho-c weighted mean, which for a laminate without surface
     # layers is the homogenised value -alpha_lam . dN / (h <rho c>) of lamination theory
     # (Kaw 2006 sec. 4.5; computed by the adiabatic laws from the A matrix and laminate CTE,
     # an independent route); f -> infinity gives the top layer's value.
@@ -89,6 +90,7 @@ def test_plan_bands_of_a_carbon_cross_ply():
 
 
 def test_plan_files_round_trip_and_overwrite(tmp_path):
+    # not a physics check: files, round trip and overwrite
     from PIL import Image
 
     lam = coated()
@@ -115,6 +117,7 @@ def test_plan_files_round_trip_and_overwrite(tmp_path):
 
 
 def test_plan_table_text():
+    # not a physics check: the text table and its cautions
     lam = coated()
     e = uniaxial_strain_state(lam)
     ds = frequency_plan(lam, e)
@@ -166,6 +169,7 @@ dpi = 150
 
 
 def test_plan_command(tmp_path):
+    # not a physics check: the command reads its config and writes its files
     cfg = tmp_path / "campaign.toml"
     cfg.write_text(CONFIG, encoding="utf-8")
     text = plan_command(cfg)

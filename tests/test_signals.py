@@ -1,4 +1,9 @@
-"""Load signals, frame times, frequency and reference phase, and precomputed maps."""
+"""Load signals, frame times, frequency and reference phase, and precomputed maps.
+
+The frequency and phase checks use the Cramer-Rao bound of [RifeBoorstyn1974] / [Kay1993] and
+SciPy (periodogram, curve_fit) as references (keys of docs/references.md); the file tests are
+plumbing and say so.
+"""
 
 import math
 
@@ -19,6 +24,7 @@ def write_csv(path, header, rows, *, sep=",", comment=None):
 
 # ----------------------------------------------------------------------------- load files
 def test_read_load_signal_columns_by_name_any_separator(tmp_path):
+    # not a physics check: reading a load file
     t = np.arange(50) / 200.0
     load = 3.0 + np.cos(2 * np.pi * 8.0 * t)
     for sep in (",", ";", "\t"):
@@ -35,6 +41,7 @@ def test_read_load_signal_columns_by_name_any_separator(tmp_path):
 
 
 def test_frame_column_gives_frame_times(tmp_path):
+    # not a physics check: frame times from a trigger column
     t = np.arange(40) / 400.0                      # load at 400 Hz, a frame trigger every 4th row
     rows = [(ti, math.sin(ti), (i // 4 if i % 4 == 0 else None)) for i, ti in enumerate(t)]
     p = write_csv(tmp_path / "l.csv", ["time", "load", "frame"], rows)
@@ -76,6 +83,7 @@ def test_load_signal_errors_name_file_and_column(tmp_path):
 
 
 def test_read_frame_times(tmp_path):
+    # not a physics check: reading frame-time files
     t = np.cumsum(np.full(12, 0.02))
     np.save(tmp_path / "t.npy", t)
     np.testing.assert_array_equal(read_frame_times(tmp_path / "t.npy", n_frames=12), t)
@@ -126,7 +134,9 @@ def test_estimate_frequency_uneven_sampling_drift_and_harmonic(rng):
     t = np.sort(rng.uniform(0.0, 12.0, 3000))               # an uneven clock
     v = 0.3 * t + np.cos(2 * np.pi * 4.2 * t + 1.0) + 0.1 * np.cos(2 * np.pi * 8.4 * t) \
         + 0.05 * rng.standard_normal(t.size)
-    assert estimate_frequency(t, v) == pytest.approx(4.2, abs=2e-4)   # bound ~1e-5 Hz; margin for drift
+    # Cramer-Rao bound (Rife & Boorstyn 1974) ~1e-5 Hz here; 2e-4 leaves room for the drift and
+    # the harmonic, which the bound does not cover
+    assert estimate_frequency(t, v) == pytest.approx(4.2, abs=2e-4)
 
 
 def test_estimate_frequency_rejects_bad_input():
@@ -137,6 +147,8 @@ def test_estimate_frequency_rejects_bad_input():
 
 
 def test_load_reference_exact_on_a_clean_signal():
+    # Independent forward model: a noise-free load written here with a known mean, slope, range,
+    # phase and second harmonic; least squares must return them to rounding.
     t = 0.37 + np.arange(2000) / 500.0
     f, phi = 6.25, 0.7
     load = 3.0 + 0.01 * (t - 2.0) + 1.5 * np.cos(2 * np.pi * f * t + phi) + 0.03 * np.cos(2 * (2 * np.pi * f * t + phi))
@@ -188,6 +200,7 @@ def maps(rng):
 
 
 def test_maps_from_netcdf_with_units(maps, tmp_path):
+    # not a physics check: reading maps and converting their units
     netCDF4 = pytest.importorskip("netCDF4")
     p = tmp_path / "m.nc"
     with netCDF4.Dataset(p, "w") as ds:
@@ -214,6 +227,7 @@ def test_maps_from_netcdf_with_units(maps, tmp_path):
 
 
 def test_maps_from_tiff_pages(maps, tmp_path):
+    # not a physics check: reading maps from TIFF pages
     tifffile = pytest.importorskip("tifffile")
     pages = np.stack([maps[q] for q in ("T0", "delta_T", "phase", "delta_T_std")]).astype(np.float32)
     tifffile.imwrite(tmp_path / "m.tif", pages, photometric="minisblack")
@@ -226,6 +240,7 @@ def test_maps_from_tiff_pages(maps, tmp_path):
 
 
 def test_maps_from_csv_grids_and_long_table(maps, tmp_path):
+    # not a physics check: reading maps from CSV
     paths = {}
     for q in ("T0", "delta_T"):
         paths[q] = tmp_path / f"{q}.csv"
@@ -266,6 +281,7 @@ def test_maps_validation_messages(maps, tmp_path):
 
 
 def test_maps_read_back_from_a_result_file(rng, tmp_path):
+    # not a physics check: a round trip through result.nc
     # lock-in maps written through the project's data model come back unchanged (NaN kept)
     from fusion.datamodel import result_dataset
     from fusion.io import write_netcdf

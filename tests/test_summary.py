@@ -45,7 +45,7 @@ def result_with_counts(counts: dict, *, invalid: int = 20, frequency=20.0, attrs
 
 
 def test_verdict_of_the_issue_example():
-    # 97 of 100 valid pixels from the surface ply: the sentence the issue asks for, word for word
+    # 97 of 100 valid pixels from the surface ply: the verdict sentence, word for word
     ds = result_with_counts({"surface_ply": 97, "indistinguishable": 3})
     assert report.verdict(ds) == "signal from the surface ply in 97 % of the valid area at 20 Hz"
 

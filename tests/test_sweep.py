@@ -5,7 +5,7 @@ The synthetic sweeps come from the forward model applied to laminates built with
 substitution), with Gaussian noise of known standard deviation; the fit must recover the
 truth within its reported standard errors, and those must match the scatter over many
 noisy draws (the definition of a standard error; Press et al., Numerical Recipes, 3rd ed.,
-sec. 15.6).
+sec. 15.6, [NumericalRecipes2007]).
 """
 
 import dataclasses
@@ -22,9 +22,9 @@ from fusion.mechanics import (
     transfer_coefficients, uniaxial_strain_state,
 )
 
-# Kaw, Mechanics of Composite Materials, 2nd ed., Table 2.1 graphite/epoxy; thermal data
-# typical (from memory, REFERENCES.md ranges). Resin: the epoxy witness of REFERENCES.md
-# (E 3.5 GPa, nu 0.35, alpha 60e-6, rho 1200, Cp 1100), k 0.2 W/m K typical.
+# Kaw, Mechanics of Composite Materials, 2nd ed., Table 2.1 graphite/epoxy ([Kaw2006]); thermal
+# data typical (from memory, ranges in docs/references.md). Resin: the typical epoxy of
+# docs/references.md (E 3.5 GPa, nu 0.35, alpha 60e-6, rho 1200, Cp 1100, k 0.2; from memory).
 CFRP = OrthotropicMaterial("graphite/epoxy", 181e9, 10.3e9, 7.17e9, 0.28, 0.02e-6, 22.5e-6,
                            1600.0, 900.0, 5.0, 0.6, 0.6)
 RESIN = IsotropicMaterial("epoxy", 3.5e9, 0.35, 60e-6, 1200.0, 1100.0, 0.2)
@@ -44,6 +44,7 @@ def forward(lam, f, strain):
 
 # ---------------------------------------------------------------- bands
 def test_band_of_response_linear_in_log_frequency_is_exact():
+    # Independent derivation: an analytic curve written here, its band edges solved by hand.
     # r = T (1 + 0.05 log10(f / 3)): |r - T| <= 0.02 |T| exactly for f in 3 * 10**[-0.4, 0.4];
     # the edge interpolation is linear in log f, so it is exact here (round-off only).
     f = np.geomspace(0.1, 200, 121)
@@ -55,6 +56,8 @@ def test_band_of_response_linear_in_log_frequency_is_exact():
 
 
 def test_band_edge_of_response_linear_in_frequency():
+    # Independent derivation: an analytic curve written here; the interpolation error bound is Taylor's
+    # remainder of a linear interpolation (common practice).
     # r = T (1 + f / 500): analytic edge f* = 0.02 * 500 = 10 Hz. Linear interpolation in
     # u = ln f of g = e^u / 500 - 0.02 misplaces the root by at most du^2 / 8 relative
     # (du = ln(10) / 20 at 20 points per decade: 1.7e-3).
@@ -66,6 +69,7 @@ def test_band_edge_of_response_linear_in_frequency():
 
 
 def test_widest_band_wins_and_ties_keep_the_lowest():
+    # not a physics check: which of two bands is reported
     f = np.geomspace(1, 1000, 61)
     u = np.log10(f)
     # inside for u in [0.2, 0.4] and [1.5, 2.5] (bump of 10 % elsewhere)
@@ -79,6 +83,7 @@ def test_widest_band_wins_and_ties_keep_the_lowest():
 
 
 def test_quadrature_band_is_stricter():
+    # Independent derivation: an analytic curve written here, its band edge solved by hand.
     # in-phase part exactly on target, quadrature 0.05 |T| log10(f): the complex distance is
     # within 2 % for log10(f) <= 0.4 only (analytic; exact as above)
     f = np.geomspace(1, 100, 41)
@@ -90,6 +95,7 @@ def test_quadrature_band_is_stricter():
 
 
 def test_no_band_gives_nan_and_bad_input_is_refused():
+    # not a physics check: no band gives NaN; argument errors
     f = np.geomspace(1, 100, 11)
     lo, hi = frequency_band(f, np.full(11, 2.0), 1.0)
     assert np.isnan(lo) and np.isnan(hi)
@@ -117,6 +123,8 @@ def _synthetic(rng, n=1):
 
 
 def test_fit_recovers_parameters_within_standard_errors(rng):
+    # Independent forward model: fresh material records with the true parameters and numpy
+    # noise; chi-square and standard-error checks per Numerical Recipes ([NumericalRecipes2007]).
     nominal = laminate(15e-6)
     e, sy, sl, [(y, lag)] = _synthetic(rng)
     fit = fit_sweep(nominal, F_SWEEP, y, sy, e, measured_lag=lag, lag_std=sl)
@@ -135,6 +143,7 @@ def test_fit_recovers_parameters_within_standard_errors(rng):
 
 
 def test_standard_errors_match_the_scatter_over_repeated_draws(rng):
+    # A standard error is the scatter over repeated data sets (Press et al. 2007 sec. 15.6).
     # 120 noisy draws: the sample std of a normal sample of 120 has a relative std of
     # 1/sqrt(2*119) = 6.5 %; 3 of those is 20 %, the bound used.
     nominal = laminate(15e-6)
@@ -185,6 +194,7 @@ def test_default_lag_std_is_the_phasor_phase_noise(rng):
 
 
 def test_sweep_dataset_round_trip(tmp_path, rng):
+    # not a physics check: NetCDF round trip with attributes
     nominal = laminate(15e-6)
     e, sy, sl, [(y, lag)] = _synthetic(rng)
     fit = fit_sweep(nominal, F_SWEEP, y, sy, e, measured_lag=lag, lag_std=sl)
@@ -244,6 +254,8 @@ def _maps(rng, shape=(6, 8)):
 
 
 def test_maps_recover_the_thickness_map(rng):
+    # Independent forward model: a known thickness map through fresh laminates pixel by pixel;
+    # the pulls must follow N(0, 1) ([NumericalRecipes2007] sec. 15.6).
     f, true, strain, y, sy, lag, sl = _maps(rng)
     out = fit_sweep_maps(laminate(10e-6), f, y, sy, strain, lag_maps=lag, lag_std_maps=sl)
     assert out["resin_thickness"].dtype == np.float32 and out["resin_thickness"].shape == true.shape
@@ -264,6 +276,8 @@ def test_maps_recover_the_thickness_map(rng):
 
 
 def test_maps_adiabatic_onset_matches_the_band_at_the_fitted_thickness(rng):
+    # not a physics check: the per-pixel onset equals the band of the package's own model at
+    # the fitted thickness (two code paths of the package)
     f, true, strain, y, sy, lag, sl = _maps(rng, shape=(2, 8))
     out = fit_sweep_maps(laminate(10e-6), f, y, sy, strain, lag_maps=lag, lag_std_maps=sl)
     fp = np.geomspace(0.1, 200, 121)
@@ -282,6 +296,7 @@ def test_maps_adiabatic_onset_matches_the_band_at_the_fitted_thickness(rng):
 
 
 def test_maps_missing_runs_shared_strain_and_bad_input(rng):
+    # not a physics check: missing runs, shared strain maps and argument errors
     f, true, strain, y, sy, lag, sl = _maps(rng, shape=(2, 3))
     # lag std by default from the ratio std (phasor noise): same answer as stating it
     stated = fit_sweep_maps(laminate(10e-6), f, y, sy, strain, lag_maps=lag,
