@@ -203,6 +203,7 @@ def _digest(out):
 
 
 def test_demo_maps_are_unchanged(demo):
+    # not a physics check: a regression pin of the demo's maps (a digest), not a reference
     _, out, _ = demo
     now = _digest(out)
     if os.environ.get("FUSION_WRITE_DEMO_DIGEST"):

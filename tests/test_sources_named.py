@@ -65,6 +65,7 @@ OTHER_MODULES = {
     "test_workers.py": "local worker processes",
     "test_campaign_dask.py": "dask.distributed scheduling",
     "test_memory_budget.py": "memory use of the streaming passes",
+    "test_import_graph.py": "the import structure of the package",
 }
 
 LIBRARIES = r"numpy|scipy|scikit-image|skimage|opencv|cv2"
