@@ -137,9 +137,15 @@ def test_homogeneous_strain_1000_microstrain():
     moved = speckle_image((N, N), seed=3, bits=16, displacement=disp)
     res = correlate(ref, moved)
     assert res.valid.mean() > 0.95
-    exx, eyy, gxy = strain_from_field(res.to_field(), window=5)
-    ok = np.isfinite(exx)
-    assert ok.sum() > 400
+    exx, eyy, gxy, sxx, syy, sxy = strain_from_field(res.to_field(), window=5, return_std=True)
+    # points two or more grid steps inside the border have a complete window; nearer the
+    # border the fit is one-sided and noisier, and its reported std says so
+    inner = np.zeros(res.rows.shape, bool)
+    inner[2:-2, 2:-2] = True
+    ok = np.isfinite(exx) & inner.ravel()
+    assert ok.sum() >= 400
+    edge = np.isfinite(exx) & ~inner.ravel()
+    assert np.all(np.abs(exx[edge] - a) <= 30e-6 + 4 * sxx[edge])
     assert np.max(np.abs(exx[ok] - a)) <= 30e-6
     assert np.max(np.abs(eyy[ok] - e)) <= 30e-6
     assert np.max(np.abs(gxy[ok] + (b + d))) <= 30e-6

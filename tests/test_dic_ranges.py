@@ -18,7 +18,7 @@ def _grid(n=40, step=1.0):
     return xx.ravel(), yy.ravel(), xx.shape
 
 
-def _field(load, rng=None, sigma=0.0, n=40, step=1.0, offset=0.0):
+def _field(load, rng=None, sigma=0.0, n=40, step=1.0, offset=0.0, attrs=None):
     x, y, shape = _grid(n, step)
     u = load * (GRAD[0, 0] * x + GRAD[0, 1] * y) + offset
     v = load * (GRAD[1, 0] * x + GRAD[1, 1] * y) - offset
@@ -26,7 +26,7 @@ def _field(load, rng=None, sigma=0.0, n=40, step=1.0, offset=0.0):
         u = u + rng.normal(0, sigma, u.size)
         v = v + rng.normal(0, sigma, v.size)
     return DicField(x, y, u, v, grid_shape=shape, units="mm",
-                    attrs={"subset": 21, "step": 10, "pixel_size": 0.1})
+                    attrs={"subset": 21, "step": 10, "pixel_size": 0.1} if attrs is None else attrs)
 
 
 EXX, EYY, GXY = GRAD[0, 0], GRAD[1, 1], GRAD[0, 1] + GRAD[1, 0]
@@ -56,8 +56,10 @@ def test_two_state_noise_follows_least_squares_theory(rng):
     # and a 5 x 5 plane fit (sum k^2 = 50, spacing 1) gives a slope std of
     # sqrt(2) sigma / sqrt(50) (textbook least squares); see test_dic_strain for the
     # tolerance reasoning.
+    # No subset size is given: the points are independent measurements.
     sigma = 2e-4
-    r = ranges_from_states(_field(1.0, rng, sigma), _field(9.0, rng, sigma))
+    white = {"step": 10, "pixel_size": 0.1}
+    r = ranges_from_states(_field(1.0, rng, sigma, attrs=white), _field(9.0, rng, sigma, attrs=white))
     theory = np.sqrt(2) * sigma / np.sqrt(50.0)
     x, y = r.x, r.y
     interior = r.valid & (x >= 2) & (x <= 37) & (y >= 2) & (y <= 37)
