@@ -93,7 +93,7 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
         thermal["motion_amplitude"] = np.asarray(motion_amplitude(motion, load_range), np.float32)
 
     strain = np.moveaxis(smaps[:3], 0, -1).astype(np.float32)          # (Y, X, 3)
-    strain_std = np.moveaxis(smaps[3:], 0, -1).astype(np.float32)
+    strain_std = np.moveaxis(smaps[3:6], 0, -1).astype(np.float32)
     with np.errstate(invalid="ignore", divide="ignore"):
         measured = thermal["delta_T"] / thermal["T0"]
         measured_std = thermal["delta_T_std"] / np.abs(thermal["T0"])
@@ -148,7 +148,7 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
     maps.update(ratio_measured=measured, ratio_measured_std=measured_std, snr=snr,
                 delta_eps_xx=strain[..., 0], delta_eps_yy=strain[..., 1], delta_gamma_xy=strain[..., 2],
                 delta_eps_xx_std=strain_std[..., 0], delta_eps_yy_std=strain_std[..., 1],
-                delta_gamma_xy_std=strain_std[..., 2])
+                delta_gamma_xy_std=strain_std[..., 2], strain_edge_distance=smaps[6])
     if lag is not None:
         maps["phase_lag_measured"] = lag
     for s in pred:
