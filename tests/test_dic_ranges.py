@@ -78,8 +78,8 @@ def test_reporting_attributes_from_a_correlated_pair():
     r = ranges_from_states(correlate(ref, ref).to_field(pixel_size=0.02),
                            res.to_field(pixel_size=0.02), window=5)
     a = r.attrs
-    assert (a["subset"], a["step"], a["strain_window"]) == (21, 10, 5)
-    assert a["vsg_px"] == 61 and a["vsg_mm"] == pytest.approx(61 * 0.02)
+    assert (a["subset"], a["step"], a["strain_window"]) == (25, 3, 5)   # correlate's defaults
+    assert a["vsg_px"] == 37 and a["vsg_mm"] == pytest.approx(37 * 0.02)
     assert all(np.isfinite(a["noise_floor"])) and "two states" in a["method"]
     # y up in the specimen frame: eps_yy keeps its sign, the imposed -500 microstrain
     assert np.nanmean(r.eyy) == pytest.approx(-5e-4, abs=30e-6)

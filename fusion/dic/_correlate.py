@@ -14,13 +14,17 @@ from ._field import DicField
 from ._seed import global_shift, integer_search
 from ._subset_noise import translation_std
 
-__all__ = ["CorrelationResult", "correlate", "REASON_CODES"]
+__all__ = ["CorrelationResult", "correlate", "REASON_CODES", "DEFAULT_SUBSET", "DEFAULT_STEP",
+           "DEFAULT_WINDOW"]
 
 REASON_CODES = K.REASON_CODES
 
 _PROPAGATIONS = ("reliability", "seeded")
 _TODO, _GOOD, _FAILED, _EXCLUDED = 0, 1, 2, 3
 _SEED_ZNCC = 0.9  # least ZNCC of an accepted seed (or min_zncc when higher)
+#: Defaults of subset (px), step (px) and strain window (points), shared with the config and
+#: chosen by :func:`fusion.dic.default_setting`.
+DEFAULT_SUBSET, DEFAULT_STEP, DEFAULT_WINDOW = 25, 3, 7
 
 
 @dataclass
@@ -324,7 +328,8 @@ def _seed_candidates(status, count):
     return picks[todo]
 
 
-def correlate(reference, deformed, *, subset=21, step=10, roi=None, seed_points=None,
+def correlate(reference, deformed, *, subset=DEFAULT_SUBSET, step=DEFAULT_STEP, roi=None,
+              seed_points=None,
               max_iterations=50, tolerance=1e-4, min_zncc=0.8, propagation="reliability",
               search=None, min_fill=0.6):
     """Displacements between two speckle images by subset correlation.
@@ -334,9 +339,12 @@ def correlate(reference, deformed, *, subset=21, step=10, roi=None, seed_points=
     reference, deformed : (H, W) array_like
         Grey images (any integer or float dtype), same shape.
     subset : int
-        Subset side in pixels (odd, at least 7).
+        Subset side in pixels (odd, at least 7). Default 25, as the config's.
     step : int
-        Grid spacing in pixels.
+        Grid spacing in pixels. Default 3, as the config's: with the config's
+        strain window of 7 points this resolves a hole of 60 px radius with a
+        gain of 0.9 at typical image noise, and puts points within 6 px of
+        every edge (:func:`fusion.dic.default_setting`).
     roi : (row0, col0, row1, col1) or (H, W) bool ndarray, optional
         Rectangle (rows row0..row1-1, columns col0..col1-1) or mask of the
         region of interest. Subset centres lie on a grid over its bounding box
