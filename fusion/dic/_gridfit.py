@@ -223,9 +223,17 @@ def grid_fit(valid, ug, vg, *, window, order, min_valid, lag_rho, u_std=None, v_
             for k, (idx, inv) in inv_store.items():
                 m = m_of[k]
                 expected[idx] -= np.einsum("kij,kji->k", inv, cov[idx, :m, :m])
+            # errors the residual of the correlation does not see (interpolation bias of the
+            # pattern, shape-function misfit) scatter the displacements beyond the stated
+            # noise: where the complete windows' pooled residual exceeds what the noise
+            # explains, every variance is scaled by that ratio
+            inner = usable & complete & (expected > 0)
+            pooled = (float(np.sum(ssr[inner, comp]) / np.sum(expected[inner]))
+                      if inner.any() else 1.0)
+            scale = max(pooled, 1.0)
             with np.errstate(invalid="ignore", divide="ignore"):
-                ratio = np.where(edge & (expected > 0), ssr[:, comp] / expected, 1.0)
-            variances[:, :, comp] *= np.maximum(ratio, 1.0)[:, None]
+                ratio = np.where(edge & (expected > 0), ssr[:, comp] / (scale * expected), 1.0)
+            variances[:, :, comp] *= scale * np.maximum(ratio, 1.0)[:, None]
     else:
         cov1 = window_covariance(np.ascontiguousarray(w), usable, h, lag_rho, phi)
         # residual degrees of freedom of correlated errors: E[SSR] = sigma^2 (n - tr(A^-1 M))
