@@ -266,7 +266,8 @@ def _noise_model(field, gridded):
     source = ("displacement noise from the correlation residual of each point" if known
               else "displacement noise estimated from the strain-fit residuals")
     if gridded and subset and step:
-        corr = f"neighbours correlated by the overlap of their subsets (subset {subset:g} px, step {step:g} px)"
+        corr = (f"neighbours correlated by the overlap of their subsets (subset {subset:g} px, "
+                f"step {step:g} px)")
     elif gridded:
         corr = "neighbours taken as uncorrelated (subset and step unknown)"
     else:
