@@ -193,6 +193,39 @@ class StrainRanges:
         """Number of points N."""
         return self.x.shape[0]
 
+    def map_attrs(self, component: int) -> dict:
+        """Metrology attributes of one strain map (0: eps_xx, 1: eps_yy, 2: gamma_xy).
+
+        Returns
+        -------
+        dict
+            netCDF-ready: ``subset_px``, ``step_px``, ``strain_window``, ``vsg_px``,
+            ``vsg_mm``, ``transfer_wavelength_px`` (array) with ``transfer_gain``,
+            ``wavelength_gain50_px``, ``wavelength_gain90_px`` (and ``_mm`` forms),
+            ``noise_floor`` (this component's, 1), ``noise_model``, ``edge_fit``; keys
+            whose value is unknown are left out.
+        """
+        if component not in (0, 1, 2):
+            raise ValueError(f"component: expected 0, 1 or 2, got {component!r}")
+        a = self.attrs
+        out = {"subset_px": a.get("subset"), "step_px": a.get("step"),
+               "strain_window": a.get("strain_window"), "vsg_px": a.get("vsg_px"),
+               "vsg_mm": a.get("vsg_mm"), "wavelength_gain50_px": a.get("wavelength_gain50_px"),
+               "wavelength_gain90_px": a.get("wavelength_gain90_px"),
+               "wavelength_gain50_mm": a.get("wavelength_gain50_mm"),
+               "wavelength_gain90_mm": a.get("wavelength_gain90_mm"),
+               "transfer_model": a.get("transfer_model"), "noise_model": a.get("noise_model"),
+               "edge_fit": a.get("edge_fit")}
+        for key in ("transfer_wavelength_px", "transfer_wavelength_mm", "transfer_gain"):
+            if a.get(key) is not None:
+                out[key] = np.asarray(a[key], dtype=np.float64)
+        floor = a.get("noise_floor")
+        if floor is not None:
+            out["noise_floor"] = float(floor[component])
+        return {k: (float(v) if isinstance(v, (int, float, np.integer, np.floating))
+                    and not isinstance(v, bool) else v)
+                for k, v in out.items() if v is not None}
+
     def grid(self, name: str) -> np.ndarray:
         """The named per-point array reshaped to ``grid_shape`` (ValueError when scattered)."""
         if self.grid_shape is None:
