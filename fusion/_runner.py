@@ -203,6 +203,10 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
     if calibration:
         attrs["calibration_factor"] = calibration["factor"]
     ds = result_dataset(maps, attrs=attrs, sources=tuple(pred))
+    # each strain map states its spatial resolution and noise floor (and so does its std)
+    for k, name in enumerate(("delta_eps_xx", "delta_eps_yy", "delta_gamma_xy")):
+        for var in (name, f"{name}_std"):
+            ds[var].attrs.update(ranges.map_attrs(k))
     fig_inputs = {"region_mask": inside, "ply_profile": _ply_profile(lam, strain, valid),
                   "reference_image": _reference_on_ir(run, transform, ir_shape)}
     return RunResult(ds, table, warnings, meta, fig_inputs)
