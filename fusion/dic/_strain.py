@@ -322,7 +322,8 @@ def strain_from_field(field, *, window=5, order=1, kind="small", min_valid=0.5, 
     min_valid : float
         Fraction of the window's points that must be valid; the centre must
         be valid too. Elsewhere the strain is NaN, so a hole widens by at
-        most half a window.
+        most half a window (with the default 0.5, hardly at all: a point on
+        a straight edge keeps more than half its window).
     return_std : bool
         Also return the standard deviations of the three strains.
 
@@ -331,23 +332,45 @@ def strain_from_field(field, *, window=5, order=1, kind="small", min_valid=0.5, 
     exx, eyy, gxy : (N,) ndarray
         Strains in the specimen frame (1); gxy is the engineering shear.
     exx_std, eyy_std, gxy_std : (N,) ndarray
-        Only with ``return_std``: first-order standard deviations from the
-        local fit residuals (1).
+        Only with ``return_std``: standard deviations of the strains from the
+        displacement noise (1); see Notes.
 
     Notes
     -----
     On a grid the normal equations of every window are assembled with a few
-    correlations of the validity mask and of the masked displacements, so
-    holes and edges need no special case. The fit residual includes any
-    displacement curvature the polynomial cannot follow, so the standard
-    deviation is an upper bound where strain varies within the window. The
-    virtual strain gauge size is :func:`vsg_size`.
+    correlations of the validity mask and of the masked displacements. Where
+    a point's window is complete the fit has the order asked for; where a
+    hole, a mask or the edge of the data cuts it (window >= 5), the fit keeps
+    to the valid points and takes the quadratic terms as well, so its slope
+    is the derivative at the point (a plane fit to one side would return the
+    strain at the centroid of the remaining points, farther from the edge).
+
+    Standard deviation: the covariance of the displacement errors is
+    propagated through each point's least-squares slope. The errors' standard
+    deviations are the field's ``u_std``/``v_std`` (from
+    :func:`fusion.dic.correlate`: Pan et al. 2008) or, without them, are
+    estimated from the fit residuals pooled over the window's neighbourhood.
+    Neighbours whose subsets overlap (``subset`` and ``step`` in the field's
+    attributes) err alike: their correlation is the shared fraction of the
+    subsets' area (:func:`fusion.dic._subset_noise.overlap_correlation`);
+    ignoring it understates the strain noise two- to fourfold at steps
+    below half the subset. Where the displacements scatter more than their
+    stated noise explains (the pooled residual of the complete windows), the
+    variances are scaled by that ratio, and an edge fit's by its own residual
+    ratio as well (its extrapolation toward the edge meets the field's
+    curvature). The std describes noise; the smoothing of the strain by the
+    subset and the window is its spatial resolution
+    (:func:`fusion.dic.strain_transfer`). Scattered points are taken as
+    uncorrelated. The virtual strain gauge size is :func:`vsg_size`.
 
     References
     ----------
     Jones & Iadicola (eds.), *A Good Practices Guide for Digital Image
-    Correlation*, iDICs 2018, doi:10.32720/idics/gpg.ed1 (strain calculation
-    and the virtual strain gauge).
+    Correlation*, iDICs 2018, doi:10.32720/idics/gpg.ed1 (strain calculation,
+    the virtual strain gauge, the noise floor).
+    B. Pan, H. Xie, Z. Wang, K. Qian, Z. Wang, "Study on subset size selection
+    in digital image correlation for speckle patterns", Optics Express 16(10)
+    (2008) 7037-7048 (displacement noise).
     """
     strains, stds, _ = strain_fit(field, window=window, order=order, kind=kind, min_valid=min_valid)
     if return_std:
