@@ -44,9 +44,11 @@ def strain_resolution(ds) -> dict | None:
     lam = np.atleast_1d(a.get("transfer_wavelength_px", []))
     lam_mm = np.atleast_1d(a.get("transfer_wavelength_mm", [np.nan] * lam.size))
     gain = np.atleast_1d(a.get("transfer_gain", []))
-    out = {key: _num(a.get(key)) for key in (
-        "vsg_px", "vsg_mm", "subset_px", "step_px", "strain_window", "wavelength_gain50_px",
-        "wavelength_gain50_mm", "wavelength_gain90_px", "wavelength_gain90_mm")}
+    # a length of zero (an imported table whose window and subset are unknown) is not known
+    out = {key: (v if v is not None and v > 0 else None) for key, v in (
+        (k, _num(a.get(k))) for k in (
+            "vsg_px", "vsg_mm", "subset_px", "step_px", "strain_window", "wavelength_gain50_px",
+            "wavelength_gain50_mm", "wavelength_gain90_px", "wavelength_gain90_mm"))}
     out["transfer"] = [{"wavelength_px": _num(x), "wavelength_mm": _num(y), "gain": _num(g)}
                        for x, y, g in zip(lam, lam_mm, gain)]
     out["noise_floor"] = {short: (_num(ds[name].attrs.get("noise_floor"))
