@@ -67,11 +67,14 @@ def test_summary_and_report_state_it(result, tmp_path):
     assert "Virtual strain gauge" in html and "41 px (2.05 mm)" in html
     assert "Noise floor (microstrain)" in html
     # an imported table of unknown settings: lengths of zero are reported as unknown
-    table = ds.copy()
+    table = ds.copy(deep=True)
     table["delta_eps_xx"].attrs.update(vsg_px=0.0, vsg_mm=0.0, strain_window=1.0)
+    for key in ("transfer_wavelength_px", "transfer_wavelength_mm", "transfer_gain"):
+        table["delta_eps_xx"].attrs.pop(key, None)
     s_table = report.summarize_run(table)
     report.validate_summary(s_table)
     assert s_table["strain_resolution"]["vsg_mm"] is None
+    assert "not known" in report.render_report(campaign={"name": "c"}, runs=[{"summary": s_table}])
     # a result without correlation settings says so instead of inventing a resolution
     bare = report.summarize_run(ds.drop_vars(["delta_eps_xx"]))
     assert bare["strain_resolution"] is None

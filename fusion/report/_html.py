@@ -221,15 +221,19 @@ def _resolution_html(s) -> str:
         return f"{_num(px)} px" + (f" ({_num(mm)} mm)" if mm is not None else "")
 
     floor = r.get("noise_floor") or {}
+    noise = " / ".join(_num(None if floor.get(k) is None else floor[k] * 1e6)
+                       for k in ("eps_xx", "eps_yy", "gamma_xy")) + " (eps_xx / eps_yy / gamma_xy)"
+    if r.get("vsg_px") is None and r.get("vsg_mm") is None:
+        return (_facts([("Noise floor (microstrain)", noise)])
+                + "<p>The virtual strain gauge and the spatial resolution of these strain maps are not "
+                  "known: the correlation settings that made them were not given.</p>")
     facts = _facts([
         ("Virtual strain gauge", length(r.get("vsg_px"), r.get("vsg_mm"))),
         ("Subset, step, window", f"{_num(r.get('subset_px'))} px, {_num(r.get('step_px'))} px, "
                                  f"{_num(r.get('strain_window'))} points"),
         ("Gain 0.5 at wavelength", length(r.get("wavelength_gain50_px"), r.get("wavelength_gain50_mm"))),
         ("Gain 0.9 above wavelength", length(r.get("wavelength_gain90_px"), r.get("wavelength_gain90_mm"))),
-        ("Noise floor (microstrain)", " / ".join(
-            _num(None if floor.get(k) is None else floor[k] * 1e6) for k in ("eps_xx", "eps_yy", "gamma_xy"))
-         + " (eps_xx / eps_yy / gamma_xy)"),
+        ("Noise floor (microstrain)", noise),
         ("Nearest data to an edge", f"{_num(r.get('nearest_edge_px'))} IR px"
          if r.get("nearest_edge_px") is not None else _num(None)),
     ])
