@@ -98,6 +98,22 @@ def window_covariance(s, usable, half, rho, phi):
     return out
 
 
+def _covariances(s, usable, interior, half, rho, phi):
+    """``window_covariance`` per point; at ``interior`` points (complete windows, all of one
+    order) from one complete window times the window's mean of ``s^2``: exact when ``s`` is
+    uniform there, and ``s`` (a noise level) varies slowly from point to point."""
+    ny, nx = s.shape
+    w = 2 * half + 1
+    edge = usable & ~interior
+    cov = window_covariance(s, edge, half, rho, phi)
+    if interior.any():
+        unit = window_covariance(np.ones((w, w)), np.eye(1, w * w, half * w + half, dtype=np.bool_)[0],
+                                 half, rho, phi)[half * w + half]
+        mean_s2 = ndimage.uniform_filter(s * s, size=w, mode="constant").ravel()
+        cov[interior] = mean_s2[interior, None, None] * unit[None]
+    return cov
+
+
 def _moments(img, half, order):
     """Correlations of ``img`` with every monomial of degree <= 2 order over the window."""
     k = np.arange(-half, half + 1, dtype=np.float64)
@@ -205,6 +221,7 @@ def grid_fit(valid, ug, vg, *, window, order, min_valid, lag_rho, u_std=None, v_
         trace_ainv_a[idx] = m
         inv_store[k] = (idx, inv)
     usable = fit_order > 0
+    interior = usable & complete & (fit_order == order)
     phi = window_basis(h, top)
     variances = np.full((ny * nx, 2, 2), np.nan)
     if u_std is not None and v_std is not None:
@@ -213,7 +230,7 @@ def grid_fit(valid, ug, vg, *, window, order, min_valid, lag_rho, u_std=None, v_
             sd = np.where(valid & np.isfinite(sd), sd, np.nan)
             fill = np.nanmedian(sd) if np.isfinite(sd).any() else 0.0
             s = np.where(valid, np.where(np.isfinite(sd), sd, fill), 0.0)
-            cov = window_covariance(np.ascontiguousarray(s), usable, h, lag_rho, phi)
+            cov = _covariances(np.ascontiguousarray(s), usable, interior, h, lag_rho, phi)
             for d in (0, 1):
                 variances[:, d, comp] = np.einsum("ki,kij,kj->k", beta[:, d], cov, beta[:, d])
             # an edge fit extrapolates toward the edge: where its residual exceeds what the
@@ -235,7 +252,7 @@ def grid_fit(valid, ug, vg, *, window, order, min_valid, lag_rho, u_std=None, v_
                 ratio = np.where(edge & (expected > 0), ssr[:, comp] / (scale * expected), 1.0)
             variances[:, :, comp] *= scale * np.maximum(ratio, 1.0)[:, None]
     else:
-        cov1 = window_covariance(np.ascontiguousarray(w), usable, h, lag_rho, phi)
+        cov1 = _covariances(np.ascontiguousarray(w), usable, interior, h, lag_rho, phi)
         # residual degrees of freedom of correlated errors: E[SSR] = sigma^2 (n - tr(A^-1 M))
         dof = np.zeros(ny * nx)
         for k, (idx, inv) in inv_store.items():
