@@ -54,6 +54,23 @@ def _parser() -> argparse.ArgumentParser:
     pl.add_argument("--laminate", metavar="NAME", help="laminate to plan (default: [plan] laminate or [laminate])")
     pl.add_argument("--overwrite", action="store_true", help="replace an existing plan.nc")
 
+    g = sub.add_parser("gauge", help="correlation settings for a feature size: spatial resolution "
+                                      "and noise floor of each subset, step and strain window")
+    g.add_argument("--radius", type=float, required=True, metavar="PX",
+                   help="feature radius (e.g. a hole's) in visible-camera px")
+    g.add_argument("--noise", type=float, required=True, metavar="GREY",
+                   help="grey-level noise std of each speckle image")
+    g.add_argument("--image", type=Path, help="reference speckle image (PNG or TIFF)")
+    g.add_argument("--contrast", type=float, metavar="GREY",
+                   help="grey-level std of the pattern when no image is given (default 50)")
+    g.add_argument("--speckle", type=float, default=4.0, metavar="PX",
+                   help="speckle size when no image is given (default 4)")
+    g.add_argument("--strain", type=float, default=2000.0, metavar="MICROSTRAIN",
+                   help="strain range to measure (default 2000)")
+    g.add_argument("--target", type=float, default=0.1,
+                   help="noise floor target as a fraction of the strain range (default 0.1)")
+    g.add_argument("--pixel-size", type=float, metavar="MM", help="mm per visible px")
+
     d = sub.add_parser("demo", help="generate the built-in demo campaign and process it")
     d.add_argument("--out", type=Path, default=Path("fusion-demo"), help="output folder (default: ./fusion-demo)")
     d.add_argument("--overwrite", action="store_true", help="recompute runs that exist already")
@@ -106,6 +123,15 @@ def _cmd_plan(args) -> int:
     return 0
 
 
+def _cmd_gauge(args) -> int:
+    from .plan import gauge_command
+
+    print(gauge_command(radius=args.radius, noise=args.noise, image=args.image, contrast=args.contrast,
+                        speckle_size=args.speckle, strain=args.strain * 1e-6, target=args.target,
+                        pixel_size=args.pixel_size))
+    return 0
+
+
 def _cmd_demo(args) -> int:
     from .demo import run_demo
 
@@ -125,7 +151,8 @@ def _cmd_bench(args) -> int:
     return 0
 
 
-_COMMANDS = {"run": _cmd_run, "check": _cmd_check, "plan": _cmd_plan, "demo": _cmd_demo, "bench": _cmd_bench}
+_COMMANDS = {"run": _cmd_run, "check": _cmd_check, "plan": _cmd_plan, "gauge": _cmd_gauge, "demo": _cmd_demo,
+             "bench": _cmd_bench}
 
 
 def main(argv=None) -> int:

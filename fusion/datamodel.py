@@ -59,6 +59,9 @@ def _maps():
         VariableSpec("delta_eps_xx_std", yx, "1", "standard deviation of delta_eps_xx"),
         VariableSpec("delta_eps_yy_std", yx, "1", "standard deviation of delta_eps_yy"),
         VariableSpec("delta_gamma_xy_std", yx, "1", "standard deviation of delta_gamma_xy"),
+        VariableSpec("strain_edge_distance", yx, "pixel",
+                     "distance to the nearest edge of the strain data (hole, mask, edge of the "
+                     "correlated region), IR pixels"),
         VariableSpec("phase_model", yx, "degree", "phase lag of the heat-model surface response"),
         VariableSpec("surface_fraction", yx, "1", "fraction beta of the surface-ply response in measured = beta*surface_ply + (1-beta)*laminate"),
         VariableSpec("source_probability", ("source", "y", "x"), "1", "relative support of each source"),

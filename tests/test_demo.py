@@ -202,7 +202,7 @@ def _digest(out):
     return digest
 
 
-def test_demo_maps_are_unchanged(demo):
+def test_demo_maps_match_their_digest(demo):
     # not a physics check: a regression pin of the demo's maps (a digest), not a reference
     _, out, _ = demo
     now = _digest(out)

@@ -214,6 +214,25 @@ def test_tiff_float_and_errors(tmp_path):
         read_image(tmp_path / "f.tif", max_pixels=100)
 
 
+def test_compressed_16_bit_tiff_written_by_opencv(tmp_path, rng):
+    # Reference library: OpenCV writes 16-bit TIFF with LZW compression by default (cv2.imwrite;
+    # its TIFF writer's default, from memory) and reads it back; tifffile writes the Deflate
+    # and LZW variants. Our reader must return the same grey levels for each.
+    import cv2
+
+    img = rng.integers(0, 65536, (37, 53), dtype=np.uint16)
+    p = tmp_path / "cv.tif"
+    assert cv2.imwrite(str(p), img)
+    with tifffile.TiffFile(p) as tf:
+        assert tf.pages[0].compression != 1          # not uncompressed: the case of the issue
+    np.testing.assert_array_equal(read_image(p), cv2.imread(str(p), cv2.IMREAD_UNCHANGED))
+    np.testing.assert_array_equal(read_image(p), img)
+    for compression in ("deflate", "lzw"):
+        q = tmp_path / f"{compression}.tif"
+        tifffile.imwrite(q, img, compression=compression)
+        np.testing.assert_array_equal(read_image(q), img)
+
+
 def test_pixel_limit_is_checked_before_decoding(tmp_path):
     # A PNG header announcing 100,000 x 100,000 pixels with no data: refused from the
     # header alone (decoding would fail differently).

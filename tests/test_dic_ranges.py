@@ -22,7 +22,7 @@ def _grid(n=40, step=1.0):
     return xx.ravel(), yy.ravel(), xx.shape
 
 
-def _field(load, rng=None, sigma=0.0, n=40, step=1.0, offset=0.0):
+def _field(load, rng=None, sigma=0.0, n=40, step=1.0, offset=0.0, attrs=None):
     x, y, shape = _grid(n, step)
     u = load * (GRAD[0, 0] * x + GRAD[0, 1] * y) + offset
     v = load * (GRAD[1, 0] * x + GRAD[1, 1] * y) - offset
@@ -30,7 +30,7 @@ def _field(load, rng=None, sigma=0.0, n=40, step=1.0, offset=0.0):
         u = u + rng.normal(0, sigma, u.size)
         v = v + rng.normal(0, sigma, v.size)
     return DicField(x, y, u, v, grid_shape=shape, units="mm",
-                    attrs={"subset": 21, "step": 10, "pixel_size": 0.1})
+                    attrs={"subset": 21, "step": 10, "pixel_size": 0.1} if attrs is None else attrs)
 
 
 EXX, EYY, GXY = GRAD[0, 0], GRAD[1, 1], GRAD[0, 1] + GRAD[1, 0]
@@ -61,8 +61,10 @@ def test_two_state_noise_follows_least_squares_theory(rng):
     # and a 5 x 5 plane fit (sum k^2 = 50, spacing 1) gives a slope std of
     # sqrt(2) sigma / sqrt(50) (textbook least squares, [DraperSmith1998]); see
     # test_dic_strain for the tolerance reasoning.
+    # No subset size is given: the points are independent measurements.
     sigma = 2e-4
-    r = ranges_from_states(_field(1.0, rng, sigma), _field(9.0, rng, sigma))
+    white = {"step": 10, "pixel_size": 0.1}
+    r = ranges_from_states(_field(1.0, rng, sigma, attrs=white), _field(9.0, rng, sigma, attrs=white))
     theory = np.sqrt(2) * sigma / np.sqrt(50.0)
     x, y = r.x, r.y
     interior = r.valid & (x >= 2) & (x <= 37) & (y >= 2) & (y <= 37)
@@ -82,8 +84,8 @@ def test_reporting_attributes_from_a_correlated_pair():
     r = ranges_from_states(correlate(ref, ref).to_field(pixel_size=0.02),
                            res.to_field(pixel_size=0.02), window=5)
     a = r.attrs
-    assert (a["subset"], a["step"], a["strain_window"]) == (21, 10, 5)
-    assert a["vsg_px"] == 61 and a["vsg_mm"] == pytest.approx(61 * 0.02)
+    assert (a["subset"], a["step"], a["strain_window"]) == (25, 3, 5)   # correlate's defaults
+    assert a["vsg_px"] == 37 and a["vsg_mm"] == pytest.approx(37 * 0.02)
     assert all(np.isfinite(a["noise_floor"])) and "two states" in a["method"]
     # y up in the specimen frame: eps_yy keeps its sign, the imposed -500 microstrain
     assert np.nanmean(r.eyy) == pytest.approx(-5e-4, abs=30e-6)

@@ -156,9 +156,10 @@ def test_kirsch_strain_away_from_the_hole(kirsch_field):
 
 def test_masked_fit_equals_a_direct_least_squares_solve(kirsch_field):
     # Independent implementation: numpy.linalg.lstsq on the valid points of each
-    # window, including windows cut by the hole (asymmetric, partial).
+    # window, including windows cut by the hole or the grid's border (asymmetric,
+    # partial), where a plane fit takes the quadratic terms as well.
     field, s = kirsch_field
-    for order, nterms in ((1, 3), (2, 6)):
+    for order in (1, 2):
         exx, eyy, gxy = strain_from_field(field, window=5, order=order)
         ny, nx = field.grid_shape
         ug, vg, ok = field.grid("u"), field.grid("v"), field.grid("valid")
@@ -168,6 +169,7 @@ def test_masked_fit_equals_a_direct_least_squares_solve(kirsch_field):
             cols = slice(max(j - 2, 0), j + 3)
             ii, jj = np.mgrid[rows, cols]
             sel = ok[rows, cols]
+            nterms = 6 if (order == 2 or sel.size < 25 or not sel.all()) else 3
             dx = (jj - j)[sel] * s
             dy = -(ii - i)[sel] * s
             cols_ = [np.ones_like(dx), dx, dy, dx * dx, dx * dy, dy * dy][:nterms]

@@ -11,8 +11,8 @@ import skimage.transform as skt
 import xarray as xr
 from scipy.interpolate import RegularGridInterpolator
 
-from fusion.register import (RegistrationWarning, Transform2D, fit_transform, map_displacement,
-                             refine_with_signal, resample_to_grid)
+from fusion.register import (RegistrationWarning, Transform2D, edge_distance_map, fit_transform,
+                             map_displacement, refine_with_signal, resample_to_grid)
 
 SHAPE = (256, 320)  # IR rows, cols
 # mm (x right, y up) -> IR (col, row): ~4.5 px/mm, rows flipped, mild perspective
@@ -41,8 +41,8 @@ def test_public_api():
     import fusion.register
 
     assert sorted(fusion.register.__all__) == [
-        "CameraModel", "RegistrationWarning", "Transform2D", "find_fiducials", "fit_camera",
-        "fit_transform", "map_displacement", "match_fiducials", "refine_with_signal",
+        "CameraModel", "RegistrationWarning", "Transform2D", "edge_distance_map", "find_fiducials",
+        "fit_camera", "fit_transform", "map_displacement", "match_fiducials", "refine_with_signal",
         "resample_to_grid"]
 
 
@@ -275,6 +275,22 @@ def test_hole_and_edge_margin(regular):
     assert not inner[in_rect & (edge_dist < m - 0.2)].any()
     assert inner[(rad > 6.0 + 1.5 + m + 0.2) & (edge_dist > m + 0.2)].all()
     assert np.isnan(maps[0][~inside]).all()
+
+
+def test_edge_distance_map_against_the_exact_distance_to_a_hole():
+    # independent computation (plane geometry): a disc hole of radius 9.3 px centred off the pixel lattice: the distance of a pixel
+    # centre to its edge is |centre - c| - R (plane geometry); the map (distance transform
+    # less half a pixel) is good to half a pixel; the image border is not an edge
+    rows, cols = np.mgrid[0:60, 0:70]
+    rad = np.hypot(rows - 30.4, cols - 33.7)
+    inside = rad > 9.3
+    d = edge_distance_map(inside)
+    assert d.dtype == np.float32 and np.isnan(d[~inside]).all()
+    near = inside & (rad < 25)
+    assert np.max(np.abs(d[near] - (rad[near] - 9.3))) <= 0.5 + 1e-6
+    assert d[0, 0] == pytest.approx(rad[0, 0] - 9.3, abs=0.5)
+    with pytest.raises(ValueError, match="2-D"):
+        edge_distance_map(np.ones(5, bool))
 
 
 def test_resample_errors():

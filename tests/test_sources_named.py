@@ -42,6 +42,7 @@ PHYSICS_MODULES = frozenset({
     "test_lockin.py", "test_signals.py", "test_motion.py",                      # thermal side
     "test_dic_correlate.py", "test_dic_strain.py", "test_dic_ranges.py",        # correlation side
     "test_dic_speckle.py", "test_dic_api.py",
+    "test_dic_noise.py", "test_dic_edges.py", "test_dic_resolution.py", "test_dic_settings.py",
     "test_register.py", "test_camera.py", "test_fiducials.py",                  # registration
     "test_diagnose.py", "test_sweep.py", "test_plan.py",                        # diagnosis, sweep, plan
     "test_demo.py", "test_end_to_end.py",                                       # whole runs
@@ -66,6 +67,7 @@ OTHER_MODULES = {
     "test_campaign_dask.py": "dask.distributed scheduling",
     "test_memory_budget.py": "memory use of the streaming passes",
     "test_import_graph.py": "the import structure of the package",
+    "test_report_resolution.py": "resolution attributes through result.nc, summary.json and the report",
 }
 
 LIBRARIES = r"numpy|scipy|scikit-image|skimage|opencv|cv2"

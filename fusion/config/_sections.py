@@ -105,10 +105,11 @@ class DicSpec:
                      default="engineering")
     columns: dict = key(s.mapping_of_strings, "Map our column names (x, y, z, u, v, exx, eyy, gxy, "
                         "valid) to the file's header names.")
-    subset: int = key(s.integer(low=7, high=301), "Subset size in px (images).", default=21)
-    step: int = key(s.integer(low=1, high=200), "Grid step in px (images).", default=7)
-    strain_window: int = key(s.integer(low=3, high=51), "Points per side of the strain fit window.",
-                             default=5)
+    subset: int = key(s.integer(low=7, high=301), "Subset size in px (images); `fusion gauge` "
+                      "shows what each choice resolves.", default=25)
+    step: int = key(s.integer(low=1, high=200), "Grid step in px (images).", default=3)
+    strain_window: int = key(s.integer(low=3, high=51), "Points per side of the strain fit window "
+                             "(defaults: a hole of 60 px radius resolved at gain 0.9).", default=7)
     strain_order: int = key(s.integer(low=1, high=2), "Polynomial order of the strain fit.", default=1)
     pixel_size: float = key(s.quantity("mm", positive=True), "Size of a visible-camera pixel on the "
                             "specimen (images; turns px into mm).", unit="mm")

@@ -12,14 +12,19 @@ from numba import njit
 from . import _icgn as K
 from ._field import DicField
 from ._seed import global_shift, integer_search
+from ._subset_noise import translation_std
 
-__all__ = ["CorrelationResult", "correlate", "REASON_CODES"]
+__all__ = ["CorrelationResult", "correlate", "REASON_CODES", "DEFAULT_SUBSET", "DEFAULT_STEP",
+           "DEFAULT_WINDOW"]
 
 REASON_CODES = K.REASON_CODES
 
 _PROPAGATIONS = ("reliability", "seeded")
 _TODO, _GOOD, _FAILED, _EXCLUDED = 0, 1, 2, 3
 _SEED_ZNCC = 0.9  # least ZNCC of an accepted seed (or min_zncc when higher)
+#: Defaults of subset (px), step (px) and strain window (points), shared with the config and
+#: chosen by :func:`fusion.dic.default_setting`.
+DEFAULT_SUBSET, DEFAULT_STEP, DEFAULT_WINDOW = 25, 3, 7
 
 
 @dataclass
@@ -51,6 +56,12 @@ class CorrelationResult:
     attrs : dict
         ``subset``, ``step`` (px), ``method``, ``propagation``, ``tolerance``,
         ``max_iterations``, ``min_zncc``, ``image_shape``, ``global_shift``.
+    u_std, v_std : (ny, nx) ndarray
+        Standard deviations of u and v from image noise (px), estimated per
+        point from the correlation residual (see Notes of :func:`correlate`);
+        NaN where ``reason != 0``. Neighbouring points whose subsets overlap
+        have correlated errors (:func:`fusion.dic.strain_from_field` accounts
+        for it).
     """
 
     rows: np.ndarray
@@ -68,6 +79,8 @@ class CorrelationResult:
     sssig_x: np.ndarray
     sssig_y: np.ndarray
     attrs: dict = field(default_factory=dict)
+    u_std: np.ndarray | None = None
+    v_std: np.ndarray | None = None
 
     @property
     def valid(self) -> np.ndarray:
@@ -87,8 +100,9 @@ class CorrelationResult:
         DicField
             Grid points in row-major order (first row at the top): ``x = col *
             s``, ``y = -row * s``, ``u = u_img * s``, ``v = -v_img * s`` with
-            ``s`` the pixel size (1 for px). Attributes carry ``subset``,
-            ``step`` (px) and ``pixel_size`` (mm/px or None).
+            ``s`` the pixel size (1 for px), and their noise ``u_std``,
+            ``v_std`` (same units). Attributes carry ``subset``, ``step`` (px)
+            and ``pixel_size`` (mm/px or None).
         """
         if pixel_size is None:
             scale, units = 1.0, "px"
@@ -105,7 +119,9 @@ class CorrelationResult:
             x=self.cols.ravel() * scale, y=-self.rows.ravel() * scale,
             u=self.u.ravel() * scale, v=-self.v.ravel() * scale,
             valid=self.valid.ravel(), grid_shape=self.rows.shape, units=units,
-            attrs=attrs, zncc=self.zncc.ravel())
+            attrs=attrs, zncc=self.zncc.ravel(),
+            u_std=None if self.u_std is None else self.u_std.ravel() * scale,
+            v_std=None if self.v_std is None else self.v_std.ravel() * scale)
 
 
 def _as_image(name, a):
@@ -209,6 +225,7 @@ class _Solver:
         self.iters = np.zeros(shape, dtype=np.int32)
         self.reason = np.full(shape, K.UNREACHED, dtype=np.int8)
         self.sssig = np.full(shape + (2,), np.nan)
+        self.noise = np.full(shape + (4,), np.nan)
         self.status = np.full(shape, _TODO, dtype=np.int8)
         outside = ~mask[rows, cols]
         self.status[outside] = _EXCLUDED
@@ -225,7 +242,7 @@ class _Solver:
         o = self.opts
         r = self.rows.ravel()[flat].astype(np.int64)
         c = self.cols.ravel()[flat].astype(np.int64)
-        p, z, it, reason, ss = K.icgn_batch(
+        p, z, it, reason, ss, noise = K.icgn_batch(
             self.ref, self.gx, self.gy, self.coef, self.mask, r, c,
             np.ascontiguousarray(p0, dtype=np.float64), self.half, o["max_iterations"],
             o["tolerance"], o["min_zncc"], o["min_fill"])
@@ -236,6 +253,7 @@ class _Solver:
         self.iters[ii, jj] = it
         self.reason[ii, jj] = reason
         self.sssig[ii, jj] = ss
+        self.noise[ii, jj] = noise
         good = reason == K.OK
         self.status[ii, jj] = np.where(good, _GOOD, _FAILED)
         return good
@@ -310,7 +328,8 @@ def _seed_candidates(status, count):
     return picks[todo]
 
 
-def correlate(reference, deformed, *, subset=21, step=10, roi=None, seed_points=None,
+def correlate(reference, deformed, *, subset=DEFAULT_SUBSET, step=DEFAULT_STEP, roi=None,
+              seed_points=None,
               max_iterations=50, tolerance=1e-4, min_zncc=0.8, propagation="reliability",
               search=None, min_fill=0.6):
     """Displacements between two speckle images by subset correlation.
@@ -320,9 +339,12 @@ def correlate(reference, deformed, *, subset=21, step=10, roi=None, seed_points=
     reference, deformed : (H, W) array_like
         Grey images (any integer or float dtype), same shape.
     subset : int
-        Subset side in pixels (odd, at least 7).
+        Subset side in pixels (odd, at least 7). Default 25, as the config's.
     step : int
-        Grid spacing in pixels.
+        Grid spacing in pixels. Default 3, as the config's: with the config's
+        strain window of 7 points this resolves a hole of 60 px radius with a
+        gain of 0.9 at typical image noise, and puts points within 6 px of
+        every edge (:func:`fusion.dic.default_setting`).
     roi : (row0, col0, row1, col1) or (H, W) bool ndarray, optional
         Rectangle (rows row0..row1-1, columns col0..col1-1) or mask of the
         region of interest. Subset centres lie on a grid over its bounding box
@@ -382,6 +404,15 @@ def correlate(reference, deformed, *, subset=21, step=10, roi=None, seed_points=
     8   a seed found no match (integer search or refined ZNCC too low)
     ==  ==============================================================
 
+    Noise: each point's ``u_std`` and ``v_std`` come from the residual of the
+    criterion at the solution (an estimate of the grey-level noise, taken as
+    equal in both images, corrected for the smoothing of the deformed image's
+    noise by interpolation) through the least-squares covariance of the six
+    shape parameters (:func:`fusion.dic._subset_noise.translation_std`); for
+    translation alone this is ``sqrt(2) sigma / sqrt(SSSIG)`` (Pan et al.
+    2008). Misfit of the shape function (strain varying within a subset) adds
+    to the residual and so to the estimate.
+
     Seeds: the integer search accepts a peak ZNCC of at least ``min_zncc / 2``
     (a loose gate); a seed is kept when IC-GN converges with a ZNCC of at least
     ``max(min_zncc, 0.9)``, since every point it guides inherits its errors.
@@ -396,8 +427,9 @@ def correlate(reference, deformed, *, subset=21, step=10, roi=None, seed_points=
     Mechanics 53 (2013) 1277-1289.
     B. Pan, "Reliability-guided digital image correlation for image
     deformation measurement", Applied Optics 48 (2009) 1535-1542.
-    B. Pan et al., "Study on subset size selection in digital image
-    correlation for speckle patterns", Optics Express 16 (2008) 7037-7048.
+    B. Pan, H. Xie, Z. Wang, K. Qian, Z. Wang, "Study on subset size
+    selection in digital image correlation for speckle patterns", Optics
+    Express 16(10) (2008) 7037-7048.
     """
     ref = _as_image("reference", reference)
     dfm = _as_image("deformed", deformed)
@@ -483,8 +515,11 @@ def correlate(reference, deformed, *, subset=21, step=10, roi=None, seed_points=
                  method="IC-GN, first-order shape function, bicubic B-spline interpolation, "
                         "zero-normalised criterion")
     converged = np.isin(solver.reason, (K.OK, K.LOW_ZNCC))
+    nz = solver.noise
+    u_std, v_std = translation_std(np.where(good_mask, solver.zncc, np.nan), nz[..., 2], nz[..., 3],
+                                   nz[..., 0], nz[..., 1], p[..., 0], p[..., 3])
     return CorrelationResult(
         rows=rows, cols=cols, u=p[..., 0], v=p[..., 3], dudx=p[..., 1], dudy=p[..., 2],
         dvdx=p[..., 4], dvdy=p[..., 5], zncc=solver.zncc, iterations=solver.iters,
         converged=converged, reason=solver.reason, sssig_x=solver.sssig[..., 0],
-        sssig_y=solver.sssig[..., 1], attrs=attrs)
+        sssig_y=solver.sssig[..., 1], attrs=attrs, u_std=u_std, v_std=v_std)

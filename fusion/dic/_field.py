@@ -60,6 +60,10 @@ class DicField:
         ``pixel_size`` in mm per pixel, ``source``...).
     zncc : (N,) ndarray, optional
         Zero-normalised correlation coefficient per point, when known.
+    u_std, v_std : (N,) ndarray, optional
+        Standard deviations of u and v from image noise, in ``units``, when
+        known (from :func:`fusion.dic.correlate`); the strain fit then
+        propagates them instead of estimating the noise from its residuals.
     """
 
     x: np.ndarray
@@ -75,6 +79,8 @@ class DicField:
     units: str = "mm"
     attrs: dict = field(default_factory=dict)
     zncc: np.ndarray | None = None
+    u_std: np.ndarray | None = None
+    v_std: np.ndarray | None = None
 
     def __post_init__(self):
         self.x = _vector("x", self.x, None)
@@ -82,7 +88,7 @@ class DicField:
         self.y = _vector("y", self.y, n)
         self.u = _vector("u", self.u, n)
         self.v = _vector("v", self.v, n)
-        for name in ("exx", "eyy", "gxy", "z", "zncc"):
+        for name in ("exx", "eyy", "gxy", "z", "zncc", "u_std", "v_std"):
             value = getattr(self, name)
             if value is not None:
                 setattr(self, name, _vector(name, value, n))
@@ -132,9 +138,18 @@ class StrainRanges:
         Reporting quantities of the Good Practices Guide and provenance:
         ``subset`` and ``step`` (px, ``None`` when unknown), ``strain_window``
         (points), ``vsg_px``, ``vsg_mm``, ``noise_floor`` (median standard
-        deviation of eps_xx, eps_yy, gamma_xy, as a 3-tuple), ``method``.
+        deviation of eps_xx, eps_yy, gamma_xy, as a 3-tuple), ``method``;
+        the modelled spatial resolution (``transfer_wavelength_px``,
+        ``transfer_gain``, ``wavelength_gain50_px``, ``wavelength_gain90_px``
+        and their ``_mm`` forms, see :func:`fusion.dic.strain_transfer`);
+        ``noise_model`` and ``edge_fit`` (how the standard deviations and the
+        fits near edges were made).
     exx_quadrature, eyy_quadrature, gxy_quadrature : (N,) ndarray, optional
         Quadrature ranges (only from a lock-in on a strain time series).
+    edge_distance : (N,) ndarray, optional
+        Distance of each point to the nearest edge of the valid data (a hole,
+        a mask, the border of the measured region), in ``units``; NaN where
+        not valid.
     """
 
     x: np.ndarray
@@ -152,6 +167,7 @@ class StrainRanges:
     exx_quadrature: np.ndarray | None = None
     eyy_quadrature: np.ndarray | None = None
     gxy_quadrature: np.ndarray | None = None
+    edge_distance: np.ndarray | None = None
 
     def __post_init__(self):
         self.x = _vector("x", self.x, None)
@@ -162,7 +178,7 @@ class StrainRanges:
         for name in ("exx_std", "eyy_std", "gxy_std"):
             a = np.asarray(getattr(self, name), dtype=np.float64)
             setattr(self, name, _vector(name, np.broadcast_to(a, (n,)).copy(), n))
-        for name in ("exx_quadrature", "eyy_quadrature", "gxy_quadrature"):
+        for name in ("exx_quadrature", "eyy_quadrature", "gxy_quadrature", "edge_distance"):
             value = getattr(self, name)
             if value is not None:
                 setattr(self, name, _vector(name, value, n))
@@ -176,6 +192,39 @@ class StrainRanges:
     def size(self) -> int:
         """Number of points N."""
         return self.x.shape[0]
+
+    def map_attrs(self, component: int) -> dict:
+        """Metrology attributes of one strain map (0: eps_xx, 1: eps_yy, 2: gamma_xy).
+
+        Returns
+        -------
+        dict
+            netCDF-ready: ``subset_px``, ``step_px``, ``strain_window``, ``vsg_px``,
+            ``vsg_mm``, ``transfer_wavelength_px`` (array) with ``transfer_gain``,
+            ``wavelength_gain50_px``, ``wavelength_gain90_px`` (and ``_mm`` forms),
+            ``noise_floor`` (this component's, 1), ``noise_model``, ``edge_fit``; keys
+            whose value is unknown are left out.
+        """
+        if component not in (0, 1, 2):
+            raise ValueError(f"component: expected 0, 1 or 2, got {component!r}")
+        a = self.attrs
+        out = {"subset_px": a.get("subset"), "step_px": a.get("step"),
+               "strain_window": a.get("strain_window"), "vsg_px": a.get("vsg_px"),
+               "vsg_mm": a.get("vsg_mm"), "wavelength_gain50_px": a.get("wavelength_gain50_px"),
+               "wavelength_gain90_px": a.get("wavelength_gain90_px"),
+               "wavelength_gain50_mm": a.get("wavelength_gain50_mm"),
+               "wavelength_gain90_mm": a.get("wavelength_gain90_mm"),
+               "transfer_model": a.get("transfer_model"), "noise_model": a.get("noise_model"),
+               "edge_fit": a.get("edge_fit")}
+        for key in ("transfer_wavelength_px", "transfer_wavelength_mm", "transfer_gain"):
+            if a.get(key) is not None:
+                out[key] = np.asarray(a[key], dtype=np.float64)
+        floor = a.get("noise_floor")
+        if floor is not None:
+            out["noise_floor"] = float(floor[component])
+        return {k: (float(v) if isinstance(v, (int, float, np.integer, np.floating))
+                    and not isinstance(v, bool) else v)
+                for k, v in out.items() if v is not None}
 
     def grid(self, name: str) -> np.ndarray:
         """The named per-point array reshaped to ``grid_shape`` (ValueError when scattered)."""

@@ -148,11 +148,14 @@ _MONOMIAL = np.array([[0, 1, 2], [1, 3, 4], [2, 4, 5]])
 
 @njit(cache=True, fastmath=_FAST)
 def _refine_one(ref, gx, gy, coef, mask, r, c, p, half, max_iter, tol, min_fill, out_p,
-                xi, eta, fz, fxs, fys, hess):
+                xi, eta, fz, fxs, fys, hess, out_noise):
     """IC-GN on one subset; returns (reason, zncc, iterations, sssig_x, sssig_y).
 
     ``xi, eta, fz, fxs, fys`` are work arrays of (2 half + 1)^2 values and
-    ``hess`` a 6 x 6 work array, reused from subset to subset.
+    ``hess`` a 6 x 6 work array, reused from subset to subset. ``out_noise``
+    receives the diagonal elements (u, u) and (v, v) of the inverse Hessian,
+    the sum of squared grey-level deviations of the reference subset and its
+    pixel count, for the noise estimate of the translation.
     """
     nmax = (2 * half + 1) * (2 * half + 1)
     n = 0
@@ -169,6 +172,8 @@ def _refine_one(ref, gx, gy, coef, mask, r, c, p, half, max_iter, tol, min_fill,
                 n += 1
     for k in range(6):
         out_p[k] = np.nan
+    for k in range(4):
+        out_noise[k] = np.nan
     if n < min_fill * nmax or n < 12:
         return OUTSIDE_ROI, np.nan, 0, np.nan, np.nan
     fm = fsum / n
@@ -242,6 +247,10 @@ def _refine_one(ref, gx, gy, coef, mask, r, c, p, half, max_iter, tol, min_fill,
     hinv, ok = _cholesky_inverse(hess, 6)
     if df <= 1e-9 * n or not ok:
         return LOW_CONTRAST, np.nan, 0, sx, sy
+    out_noise[0] = hinv[0, 0]
+    out_noise[1] = hinv[3, 3]
+    out_noise[2] = ff
+    out_noise[3] = n
     jf = np.array([j0, j1, j2, j3, j4, j5])
     jsum = np.array([s0, s1, s2, s3, s4, s5])
     u, ux, uy, v, vx, vy = p[0], p[1], p[2], p[3], p[4], p[5]
@@ -372,7 +381,9 @@ def _batch(ref, gx, gy, coef, mask, rows, cols, p0, half, max_iter, tol, min_znc
     Returns
     -------
     p : (K, 6) float64, zncc : (K,), iterations : (K,) int32, reason : (K,) int8,
-    sssig : (K, 2) float64 (sums of squared gradients along columns and rows)
+    sssig : (K, 2) float64 (sums of squared gradients along columns and rows),
+    noise : (K, 4) float64 (inverse-Hessian elements (u, u) and (v, v), sum of
+    squared grey-level deviations of the reference subset, its pixel count)
     """
     k_total = rows.size
     p = np.empty((k_total, 6))
@@ -380,6 +391,7 @@ def _batch(ref, gx, gy, coef, mask, rows, cols, p0, half, max_iter, tol, min_znc
     iters = np.zeros(k_total, dtype=np.int32)
     reason = np.zeros(k_total, dtype=np.int8)
     sssig = np.empty((k_total, 2))
+    noise = np.empty((k_total, 4))
     nmax = (2 * half + 1) * (2 * half + 1)
     # blocks of points share one work space, so the allocations are per block
     n_blocks = min(k_total, 256)
@@ -393,7 +405,7 @@ def _batch(ref, gx, gy, coef, mask, rows, cols, p0, half, max_iter, tol, min_znc
         for k in range(blk, k_total, n_blocks):
             res, z, it, sx, sy = _refine_one(ref, gx, gy, coef, mask, rows[k], cols[k], p0[k],
                                              half, max_iter, tol, min_fill, p[k],
-                                             xi, eta, fz, fxs, fys, hess)
+                                             xi, eta, fz, fxs, fys, hess, noise[k])
             if res == OK and not z >= min_zncc:
                 res = LOW_ZNCC
             reason[k] = res
@@ -401,7 +413,7 @@ def _batch(ref, gx, gy, coef, mask, rows, cols, p0, half, max_iter, tol, min_znc
             iters[k] = it
             sssig[k, 0] = sx
             sssig[k, 1] = sy
-    return p, zncc, iters, reason, sssig
+    return p, zncc, iters, reason, sssig, noise
 
 
 _batch_parallel = njit(cache=True, parallel=True)(_batch)

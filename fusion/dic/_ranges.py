@@ -8,7 +8,8 @@ from numbers import Real
 import numpy as np
 
 from ._field import DicField, StrainRanges
-from ._strain import strain_fit, vsg_attrs
+from ._resolution import resolution_attrs
+from ._strain import data_edge_distance, strain_fit, vsg_attrs
 
 __all__ = ["ranges_from_states", "ranges_from_series", "ranges_from_time_series",
            "ranges_from_strain_table"]
@@ -44,13 +45,23 @@ def _noise_floor(stds, valid):
     return tuple(out)
 
 
-def _result(field, window, ranges, stds, valid, method, quadrature=None, extra=None):
+def _result(field, window, ranges, stds, valid, method, quadrature=None, extra=None, details=None):
     valid = valid & np.all(np.isfinite(ranges), axis=0)
     ranges = np.where(valid, ranges, np.nan)
     stds = np.where(valid, stds, np.nan)
     attrs = vsg_attrs(field, window)
     attrs.update(noise_floor=_noise_floor(stds, valid), method=method, units_strain="1",
                  pixel_size=field.attrs.get("pixel_size"))
+    if attrs.get("step"):
+        attrs.update(resolution_attrs(subset=attrs.get("subset") or 0, step=float(attrs["step"]),
+                                      window=int(window), pixel_size=attrs.get("pixel_size")))
+    if details is not None:
+        attrs["noise_model"] = details["noise_model"]
+        order = details["fit_order"]
+        attrs["edge_fit_points"] = int(np.count_nonzero(valid & (order > details["order"])))
+        attrs["edge_fit"] = ("where the strain window is cut by a hole, a mask or the edge of the data, "
+                             "the fit keeps to the valid points and adds the quadratic terms, so its "
+                             "slope is the derivative at the point; its standard deviation is larger")
     attrs.update(extra or {})
     q = {}
     if quadrature is not None:
@@ -59,7 +70,18 @@ def _result(field, window, ranges, stds, valid, method, quadrature=None, extra=N
                  gxy_quadrature=quadrature[2])
     return StrainRanges(x=field.x, y=field.y, units=field.units, exx=ranges[0], eyy=ranges[1],
                         gxy=ranges[2], exx_std=stds[0], eyy_std=stds[1], gxy_std=stds[2],
-                        valid=valid, grid_shape=field.grid_shape, attrs=attrs, **q)
+                        valid=valid, grid_shape=field.grid_shape, attrs=attrs,
+                        edge_distance=data_edge_distance(field, valid), **q)
+
+
+def _difference_noise(field_min, field_max):
+    """Noise of max minus min: from the fields that carry it, as independent errors."""
+    parts = [f for f in (field_min, field_max) if f.u_std is not None and f.v_std is not None]
+    if not parts:
+        return None, None
+    u = np.sqrt(sum(np.asarray(f.u_std, dtype=np.float64) ** 2 for f in parts))
+    v = np.sqrt(sum(np.asarray(f.v_std, dtype=np.float64) ** 2 for f in parts))
+    return u, v
 
 
 def ranges_from_states(field_min, field_max, *, window=5, order=1, kind="small", min_valid=0.5):
@@ -81,9 +103,18 @@ def ranges_from_states(field_min, field_max, *, window=5, order=1, kind="small",
     Notes
     -----
     Small strain is linear in the displacement, so the range is the strain of
-    the displacement difference, and its standard deviation comes from the
-    residuals of the local fits of that difference (white-noise least-squares
-    covariance; an upper bound where the strain varies within the window).
+    the displacement difference. Its standard deviation is the image noise
+    propagated through the local fit (:func:`fusion.dic.strain_from_field`):
+    the displacement noise of each point, and the correlation of neighbours
+    whose subsets overlap (from the ``subset`` and ``step`` attributes).
+    The displacement noise is the fields' own ``u_std``/``v_std`` where they
+    carry it (from :func:`fusion.dic.correlate`; the two fields' errors are
+    taken as independent, which overstates the noise by up to sqrt(2) when
+    both were correlated against one reference image: correlate the maximum
+    against the minimum instead), otherwise it is estimated from the fit
+    residuals, which then also hold any displacement curvature the fit does
+    not follow. It describes noise only: the smoothing of the strain by the
+    subset and the window is stated by the spatial-resolution attributes.
     Green-Lagrange ranges subtract the two strains and add their variances.
     """
     _check_field("field_min", field_min)
@@ -91,16 +122,21 @@ def ranges_from_states(field_min, field_max, *, window=5, order=1, kind="small",
     _same_points("field_max", field_min, field_max)
     valid = field_min.valid & field_max.valid
     if kind == "small":
+        u_std, v_std = _difference_noise(field_min, field_max)
         diff = DicField(x=field_max.x, y=field_max.y, u=field_max.u - field_min.u,
                         v=field_max.v - field_min.v, valid=valid, grid_shape=field_max.grid_shape,
-                        units=field_max.units, attrs=field_max.attrs)
-        ranges, stds = strain_fit(diff, window=window, order=order, kind=kind, min_valid=min_valid)
+                        units=field_max.units, attrs=field_max.attrs, u_std=u_std, v_std=v_std)
+        ranges, stds, details = strain_fit(diff, window=window, order=order, kind=kind,
+                                           min_valid=min_valid)
     else:
-        e1, s1 = strain_fit(field_max, window=window, order=order, kind=kind, min_valid=min_valid)
-        e0, s0 = strain_fit(field_min, window=window, order=order, kind=kind, min_valid=min_valid)
+        e1, s1, details = strain_fit(field_max, window=window, order=order, kind=kind,
+                                     min_valid=min_valid)
+        e0, s0, _ = strain_fit(field_min, window=window, order=order, kind=kind, min_valid=min_valid)
         ranges, stds = e1 - e0, np.hypot(s1, s0)
+    details["order"] = order
     return _result(field_max, window, ranges, stds, valid,
-                   f"two states (max minus min load), {kind} strain, order-{order} fit")
+                   f"two states (max minus min load), {kind} strain, order-{order} fit",
+                   details=details)
 
 
 def _state_strains(fields, window, order, kind, min_valid):

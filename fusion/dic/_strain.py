@@ -6,9 +6,9 @@ import math
 from numbers import Integral, Real
 
 import numpy as np
-from scipy import ndimage
 
 from ._field import DicField
+from ._gridfit import edge_distance_grid, exponents, grid_fit, lag_correlation
 
 __all__ = ["strain_from_field", "vsg_size", "strain_fit", "field_spacing", "vsg_attrs"]
 
@@ -60,11 +60,6 @@ def _check_options(window, order, kind, min_valid):
         raise ValueError(f"kind: expected one of {_KINDS!r}, got {kind!r}")
     if isinstance(min_valid, bool) or not isinstance(min_valid, Real) or not 0 < min_valid <= 1:
         raise ValueError(f"min_valid: expected a fraction in (0, 1], got {min_valid!r}")
-
-
-def _exponents(order):
-    """Monomial exponents (p, q) of x^p y^q of a polynomial of the given order."""
-    return [(p, d - p) for d in range(order + 1) for p in range(d, -1, -1)]
 
 
 def field_spacing(field: DicField):
@@ -137,42 +132,19 @@ def _solve(a_mat, rhs, quad, n, m, usable):
 
 def _grid_fit(field, window, order, min_valid, dx, dy, uu, vv):
     ny, nx = field.grid_shape
-    h = window // 2
-    w = (field.valid & np.isfinite(uu) & np.isfinite(vv)).reshape(ny, nx).astype(np.float64)
-    ug = np.where(w > 0, uu.reshape(ny, nx), 0.0)
-    vg = np.where(w > 0, vv.reshape(ny, nx), 0.0)
-    # kernel coordinates: column offset k (x grows right), row offset l grows down so y = -l
-    kk, ll = np.meshgrid(np.arange(-h, h + 1), np.arange(-h, h + 1))
-    yy = -ll
-    exps = _exponents(order)
-    m = len(exps)
-
-    def corr(img, p, q):
-        return ndimage.correlate(img, (kk ** p * yy ** q).astype(np.float64), mode="constant")
-
-    moments = {}
-    for p in range(2 * order + 1):
-        for q in range(2 * order + 1 - p):
-            moments[p, q] = corr(w, p, q).ravel()
-    a_mat = np.empty((ny * nx, m, m))
-    for i, (pi, qi) in enumerate(exps):
-        for j, (pj, qj) in enumerate(exps):
-            a_mat[:, i, j] = moments[pi + pj, qi + qj]
-    rhs = np.empty((ny * nx, m, 2))
-    for i, (pi, qi) in enumerate(exps):
-        rhs[:, i, 0] = corr(w * ug, pi, qi).ravel()
-        rhs[:, i, 1] = corr(w * vg, pi, qi).ravel()
-    box = np.ones((window, window))
-    quad = np.column_stack([ndimage.correlate(w * ug * ug, box, mode="constant").ravel(),
-                            ndimage.correlate(w * vg * vg, box, mode="constant").ravel()])
-    n = moments[0, 0]
-    usable = (w.ravel() > 0) & (n >= max(min_valid * window * window, m + 2) - 1e-9)
-    coef, s2, cvar = _solve(a_mat, rhs, quad, n, m, usable)
+    valid = (field.valid & np.isfinite(uu) & np.isfinite(vv)).reshape(ny, nx)
+    known = field.u_std is not None and field.v_std is not None
+    rho = lag_correlation(window // 2, field.attrs.get("subset"), field.attrs.get("step"))
+    coef, var, fit_order = grid_fit(
+        valid, uu.reshape(ny, nx), vv.reshape(ny, nx), window=window, order=order,
+        min_valid=min_valid, lag_rho=rho,
+        u_std=field.u_std.reshape(ny, nx) if known else None,
+        v_std=field.v_std.reshape(ny, nx) if known else None)
     # coefficients are per grid step; divide by the spacing for derivatives
     scale = np.array([dx, dy])
-    grads = coef[:, 1:3, :] / scale[None, :, None]
-    gvar = cvar[:, 1:3] / (scale[None, :] ** 2)
-    return grads, s2, gvar
+    grads = coef / scale[None, :, None]
+    gvar = var / (scale[None, :, None] ** 2)
+    return grads, gvar, fit_order
 
 
 def _scattered_fit(field, window, order, min_valid, spacing, uu, vv):
@@ -180,14 +152,14 @@ def _scattered_fit(field, window, order, min_valid, spacing, uu, vv):
 
     ok = field.valid & np.isfinite(uu) & np.isfinite(vv) & np.isfinite(field.x) & np.isfinite(field.y)
     npts = field.size
-    exps = _exponents(order)
+    exps = exponents(order)
     m = len(exps)
     grads = np.full((npts, 2, 2), np.nan)
-    s2 = np.full((npts, 2), np.nan)
-    gvar = np.full((npts, 2), np.nan)
+    var = np.full((npts, 2, 2), np.nan)
+    fit_order = np.zeros(npts, np.int8)
     src = np.flatnonzero(ok)
     if src.size < m + 2:
-        return grads, s2, gvar
+        return grads, var, fit_order
     # a disc with the area of the square window holds about window^2 points
     radius = window * spacing / math.sqrt(math.pi)
     tree = cKDTree(np.column_stack([field.x[src], field.y[src]]))
@@ -213,20 +185,24 @@ def _scattered_fit(field, window, order, min_valid, spacing, uu, vv):
         quad = np.einsum("knc,knc->kc", uv, uv)
         coef, s2c, cvar = _solve(a_mat, rhs, quad, counts.astype(np.float64), m, counts >= need)
         grads[centre] = coef[:, 1:3, :] / spacing
-        s2[centre] = s2c
-        gvar[centre] = cvar[:, 1:3] / spacing ** 2
-    return grads, s2, gvar
+        # white noise: variance of slope d of component c is cvar[d] s2[c]
+        var[centre] = cvar[:, 1:3, None] * s2c[:, None, :] / spacing ** 2
+        fit_order[centre] = np.where(np.isfinite(s2c[:, 0]), order, 0)
+    return grads, var, fit_order
 
 
 def strain_fit(field, *, window=5, order=1, kind="small", min_valid=0.5):
-    """Strains and their fit standard deviations; see :func:`strain_from_field`.
+    """Strains, their standard deviations and fit details; see :func:`strain_from_field`.
 
     Returns
     -------
     strains : (3, N) ndarray
         eps_xx, eps_yy, gamma_xy (1).
     stds : (3, N) ndarray
-        Their standard deviations from the local fit residuals (1).
+        Their standard deviations (1).
+    details : dict
+        ``fit_order`` (N,) int8 (0 where no fit), ``edge_distance`` (N,) distance to
+        the nearest edge of the valid data (field units), ``noise_model`` (str).
     """
     if not isinstance(field, DicField):
         raise TypeError(f"field: expected a DicField, got {type(field).__name__}")
@@ -244,10 +220,13 @@ def strain_fit(field, *, window=5, order=1, kind="small", min_valid=0.5):
         uu = field.u - (base[0, 0] + base[0, 1] * (field.x - xm) + base[0, 2] * (field.y - ym))
         vv = field.v - (base[1, 0] + base[1, 1] * (field.x - xm) + base[1, 2] * (field.y - ym))
     dx, dy = field_spacing(field)
-    if field.grid_shape is not None and _regular(field, dx, dy):
-        grads, s2, gvar = _grid_fit(field, window, order, min_valid, dx, dy, uu, vv)
+    gridded = field.grid_shape is not None and _regular(field, dx, dy)
+    if gridded:
+        grads, var, fit_order = _grid_fit(field, window, order, min_valid, dx, dy, uu, vv)
     else:
-        grads, s2, gvar = _scattered_fit(field, window, order, min_valid, math.sqrt(dx * dy), uu, vv)
+        grads, var, fit_order = _scattered_fit(field, window, order, min_valid, math.sqrt(dx * dy),
+                                               uu, vv)
+    edge = data_edge_distance(field, ok)
     # grads[:, d, c]: derivative along d (0 = x, 1 = y) of component c (0 = u, 1 = v)
     ux = grads[:, 0, 0] + base[0, 1]
     uy = grads[:, 1, 0] + base[0, 2]
@@ -260,10 +239,66 @@ def strain_fit(field, *, window=5, order=1, kind="small", min_valid=0.5):
         eyy = vy + 0.5 * (uy * uy + vy * vy)
         gxy = uy + vx + ux * uy + vx * vy
     # first-order variances; u and v noise taken as independent
-    sxx = np.sqrt(s2[:, 0] * gvar[:, 0])
-    syy = np.sqrt(s2[:, 1] * gvar[:, 1])
-    sxy = np.sqrt(s2[:, 0] * gvar[:, 1] + s2[:, 1] * gvar[:, 0])
-    return np.vstack([exx, eyy, gxy]), np.vstack([sxx, syy, sxy])
+    sxx = np.sqrt(var[:, 0, 0])
+    syy = np.sqrt(var[:, 1, 1])
+    sxy = np.sqrt(var[:, 1, 0] + var[:, 0, 1])
+    details = {"fit_order": fit_order, "edge_distance": edge,
+               "noise_model": _noise_model(field, gridded)}
+    return np.vstack([exx, eyy, gxy]), np.vstack([sxx, syy, sxy]), details
+
+
+def data_edge_distance(field, valid):
+    """Distance of each point to the nearest edge of the points marked ``valid`` (field units)."""
+    valid = np.asarray(valid, dtype=bool)
+    try:
+        dx, dy = field_spacing(field)
+    except ValueError:
+        return np.full(field.size, np.nan)
+    if field.grid_shape is not None and _regular(field, dx, dy):
+        return edge_distance_grid(valid.reshape(field.grid_shape), dx, dy).ravel()
+    return _scattered_edge_distance(field, valid, math.sqrt(dx * dy))
+
+
+def _noise_model(field, gridded):
+    """One sentence: where the displacement noise and its correlation come from."""
+    known = field.u_std is not None and field.v_std is not None
+    subset, step = field.attrs.get("subset"), field.attrs.get("step")
+    source = ("displacement noise from the correlation residual of each point" if known
+              else "displacement noise estimated from the strain-fit residuals")
+    if gridded and subset and step:
+        corr = (f"neighbours correlated by the overlap of their subsets (subset {subset:g} px, "
+                f"step {step:g} px)")
+    elif gridded:
+        corr = "neighbours taken as uncorrelated (subset and step unknown)"
+    else:
+        corr = "scattered points taken as uncorrelated"
+    return f"{source}; {corr}"
+
+
+def _scattered_edge_distance(field, ok, spacing):
+    """Distance to the nearest invalid point or to the convex hull of the valid points, less
+    half a spacing; a concave edge of scattered data is seen only where points mark it invalid."""
+    from scipy.spatial import ConvexHull, QhullError, cKDTree
+
+    out = np.full(field.size, np.nan)
+    pts = np.column_stack([field.x, field.y])
+    good = ok & np.all(np.isfinite(pts), axis=1)
+    if good.sum() < 3:
+        return out
+    d = np.full(good.sum(), np.inf)
+    bad = ~ok & np.all(np.isfinite(pts), axis=1)
+    if bad.any():
+        d = cKDTree(pts[bad]).query(pts[good])[0] - 0.5 * spacing
+    try:
+        hull = ConvexHull(pts[good])
+        # facet equations n . x + c <= 0 inside: distance to the nearest facet
+        eq = hull.equations
+        d_hull = -(pts[good] @ eq[:, :2].T + eq[:, 2]).max(axis=1) + 0.5 * spacing
+        d = np.minimum(d, d_hull)
+    except QhullError:
+        pass
+    out[good] = np.maximum(d, 0.0)
+    return out
 
 
 def strain_from_field(field, *, window=5, order=1, kind="small", min_valid=0.5, return_std=False):
@@ -287,7 +322,8 @@ def strain_from_field(field, *, window=5, order=1, kind="small", min_valid=0.5, 
     min_valid : float
         Fraction of the window's points that must be valid; the centre must
         be valid too. Elsewhere the strain is NaN, so a hole widens by at
-        most half a window.
+        most half a window (with the default 0.5, hardly at all: a point on
+        a straight edge keeps more than half its window).
     return_std : bool
         Also return the standard deviations of the three strains.
 
@@ -296,25 +332,47 @@ def strain_from_field(field, *, window=5, order=1, kind="small", min_valid=0.5, 
     exx, eyy, gxy : (N,) ndarray
         Strains in the specimen frame (1); gxy is the engineering shear.
     exx_std, eyy_std, gxy_std : (N,) ndarray
-        Only with ``return_std``: first-order standard deviations from the
-        local fit residuals (1).
+        Only with ``return_std``: standard deviations of the strains from the
+        displacement noise (1); see Notes.
 
     Notes
     -----
     On a grid the normal equations of every window are assembled with a few
-    correlations of the validity mask and of the masked displacements, so
-    holes and edges need no special case. The fit residual includes any
-    displacement curvature the polynomial cannot follow, so the standard
-    deviation is an upper bound where strain varies within the window. The
-    virtual strain gauge size is :func:`vsg_size`.
+    correlations of the validity mask and of the masked displacements. Where
+    a point's window is complete the fit has the order asked for; where a
+    hole, a mask or the edge of the data cuts it (window >= 5), the fit keeps
+    to the valid points and takes the quadratic terms as well, so its slope
+    is the derivative at the point (a plane fit to one side would return the
+    strain at the centroid of the remaining points, farther from the edge).
+
+    Standard deviation: the covariance of the displacement errors is
+    propagated through each point's least-squares slope. The errors' standard
+    deviations are the field's ``u_std``/``v_std`` (from
+    :func:`fusion.dic.correlate`: Pan et al. 2008) or, without them, are
+    estimated from the fit residuals pooled over the window's neighbourhood.
+    Neighbours whose subsets overlap (``subset`` and ``step`` in the field's
+    attributes) err alike: their correlation is the shared fraction of the
+    subsets' area (:func:`fusion.dic._subset_noise.overlap_correlation`);
+    ignoring it understates the strain noise two- to fourfold at steps
+    below half the subset. Where the displacements scatter more than their
+    stated noise explains (the pooled residual of the complete windows), the
+    variances are scaled by that ratio, and an edge fit's by its own residual
+    ratio as well (its extrapolation toward the edge meets the field's
+    curvature). The std describes noise; the smoothing of the strain by the
+    subset and the window is its spatial resolution
+    (:func:`fusion.dic.strain_transfer`). Scattered points are taken as
+    uncorrelated. The virtual strain gauge size is :func:`vsg_size`.
 
     References
     ----------
     Jones & Iadicola (eds.), *A Good Practices Guide for Digital Image
-    Correlation*, iDICs 2018, doi:10.32720/idics/gpg.ed1 (strain calculation
-    and the virtual strain gauge).
+    Correlation*, iDICs 2018, doi:10.32720/idics/gpg.ed1 (strain calculation,
+    the virtual strain gauge, the noise floor).
+    B. Pan, H. Xie, Z. Wang, K. Qian, Z. Wang, "Study on subset size selection
+    in digital image correlation for speckle patterns", Optics Express 16(10)
+    (2008) 7037-7048 (displacement noise).
     """
-    strains, stds = strain_fit(field, window=window, order=order, kind=kind, min_valid=min_valid)
+    strains, stds, _ = strain_fit(field, window=window, order=order, kind=kind, min_valid=min_valid)
     if return_std:
         return (*strains, *stds)
     return tuple(strains)

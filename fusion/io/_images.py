@@ -88,7 +88,8 @@ def read_image(path, *, max_pixels=100_000_000):
     Parameters
     ----------
     path : str or os.PathLike
-        A PNG (8 or 16 bit) or TIFF (8/16-bit integer or float) file.
+        A PNG (8 or 16 bit) or TIFF (8/16-bit integer or float; uncompressed, LZW,
+        Deflate and the other codecs of ``imagecodecs``) file.
     max_pixels : int
         Refuse images with more pixels than this, checked from the file header
         before decoding.

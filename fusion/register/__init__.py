@@ -25,6 +25,8 @@ Resampling
 ----------
 resample_to_grid
     Values at correlation points onto every IR pixel centre, with a validity mask.
+edge_distance_map
+    Distance of every pixel of that mask to the nearest edge of the data.
 
 Only positions move in registration: strain components stay in the specimen frame.
 
@@ -38,11 +40,12 @@ laboratory's procedures, the applicable test standards and qualified engineers.
 from ._camera import CameraModel, fit_camera
 from ._fiducials import find_fiducials, match_fiducials
 from ._refine import refine_with_signal
-from ._resample import resample_to_grid
+from ._resample import edge_distance_map, resample_to_grid
 from ._transform import RegistrationWarning, Transform2D, fit_transform, map_displacement
 
 __all__ = [
-    "CameraModel", "RegistrationWarning", "Transform2D", "find_fiducials", "fit_camera",
+    "CameraModel", "RegistrationWarning", "Transform2D", "edge_distance_map", "find_fiducials",
+    "fit_camera",
     "fit_transform", "map_displacement", "match_fiducials", "refine_with_signal",
     "resample_to_grid",
 ]

@@ -209,6 +209,43 @@ def _facts(pairs) -> str:
     return '<dl class="facts">' + "".join(f"<div><dt>{_e(k)}</dt><dd>{v}</dd></div>" for k, v in pairs) + "</dl>"
 
 
+def _resolution_html(s) -> str:
+    """Spatial resolution and noise floor of the strain maps (iDICs reporting indicators)."""
+    r = s.get("strain_resolution")
+    if not r:
+        return "<p>No spatial resolution is known for these strain maps (no correlation settings given).</p>"
+
+    def length(px, mm):
+        if px is None:
+            return _num(None)
+        return f"{_num(px)} px" + (f" ({_num(mm)} mm)" if mm is not None else "")
+
+    floor = r.get("noise_floor") or {}
+    noise = " / ".join(_num(None if floor.get(k) is None else floor[k] * 1e6)
+                       for k in ("eps_xx", "eps_yy", "gamma_xy")) + " (eps_xx / eps_yy / gamma_xy)"
+    if r.get("vsg_px") is None and r.get("vsg_mm") is None:
+        return (_facts([("Noise floor (microstrain)", noise)])
+                + "<p>The virtual strain gauge and the spatial resolution of these strain maps are not "
+                  "known: the correlation settings that made them were not given.</p>")
+    facts = _facts([
+        ("Virtual strain gauge", length(r.get("vsg_px"), r.get("vsg_mm"))),
+        ("Subset, step, window", f"{_num(r.get('subset_px'))} px, {_num(r.get('step_px'))} px, "
+                                 f"{_num(r.get('strain_window'))} points"),
+        ("Gain 0.5 at wavelength", length(r.get("wavelength_gain50_px"), r.get("wavelength_gain50_mm"))),
+        ("Gain 0.9 above wavelength", length(r.get("wavelength_gain90_px"), r.get("wavelength_gain90_mm"))),
+        ("Noise floor (microstrain)", noise),
+        ("Nearest data to an edge", f"{_num(r.get('nearest_edge_px'))} IR px"
+         if r.get("nearest_edge_px") is not None else _num(None)),
+    ])
+    rows = [(_num(t.get("wavelength_px")), [_cell(t.get("wavelength_mm")), _cell(t.get("gain"))])
+            for t in r.get("transfer") or []]
+    table = _table("Modelled gain of the strain maps on sinusoidal fields (box average over the subset, then "
+                   "the slope fit over the window)", ["Wavelength (px)", "Wavelength (mm)", "Gain"], rows,
+                   label="modelled strain transfer function")
+    notes = " ".join(_e(t) for t in (r.get("noise_model"), r.get("edge_fit")) if t)
+    return f"{facts}{table}" + (f"<p>{notes}.</p>" if notes else "")
+
+
 def _run_section(run, slug, max_width) -> str:
     s = run["summary"]
     warnings = _normalise_warnings(list(s.get("warnings") or []) + list(run.get("warnings") or []))
@@ -233,6 +270,7 @@ def _run_section(run, slug, max_width) -> str:
         f"<h3>Source of the signal</h3>{_fractions_table(s)}"
         f"<h3>Measured and predicted dT/T0</h3>{_ratios_table(s)}"
         f"<h3>Regions</h3>{_regions_table(regions, s.get('run'))}"
+        f"<h3>Strain maps: spatial resolution and noise floor</h3>{_resolution_html(s)}"
         f"<h3>Warnings</h3>{_warnings_html(warnings)}"
         f"<h3>Figures</h3>{figures or _NONE_FIGURES}"
         "</section>")

@@ -14,6 +14,7 @@ import numpy as np
 from .. import __version__
 from ..io import atomic_write_text
 from ._figures import evaluated_sources
+from ._resolution import strain_resolution
 from ._style import attr_float, category_label, frequency_text, pixel_size_mm, source_categories
 
 __all__ = [
@@ -328,7 +329,9 @@ def summarize_run(ds, *, regions=None, warnings=None, meta=None, registration_li
         Matches :func:`summary_schema`: ``verdict``, ``dominant``,
         ``valid_fraction``, ``source_fractions`` (of the valid area),
         ``measured`` and ``predicted`` statistics (dimensionless dT/T0),
-        ``frequency_hz``, ``registration_rms_px``, ``warnings``...
+        ``frequency_hz``, ``registration_rms_px``, ``warnings``, and
+        ``strain_resolution`` (VSG, modelled gains, noise floor of the strain maps; see
+        :func:`fusion.report._resolution.strain_resolution`)...
     """
     if "ratio_measured" not in ds.data_vars:
         raise ValueError(f"the result has no 'ratio_measured' map; present: {sorted(ds.data_vars)}")
@@ -368,6 +371,7 @@ def summarize_run(ds, *, regions=None, warnings=None, meta=None, registration_li
         "snr_median": snr_median,
         "registration_rms_px": rms,
         "regions": _jsonable(list(regions or [])),
+        "strain_resolution": strain_resolution(ds),
         "warnings": _normalise_warnings(found + _normalise_warnings(warnings)),
         "provenance": {"config_sha256": str(sha) if sha else None,
                        "version": str(ds.attrs.get("version") or __version__),

@@ -76,7 +76,7 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
                                                        progress)
 
     strain = np.moveaxis(smaps[:3], 0, -1).astype(np.float32)          # (Y, X, 3)
-    strain_std = np.moveaxis(smaps[3:], 0, -1).astype(np.float32)
+    strain_std = np.moveaxis(smaps[3:6], 0, -1).astype(np.float32)
     measured, measured_std, snr, lag, lag_std = _measured(thermal)
     valid = (t_valid & inside & np.all(np.isfinite(strain), axis=-1) & np.isfinite(measured)
              & np.isfinite(measured_std) & (snr >= dg.min_snr))
@@ -106,11 +106,15 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
                     distinguish=dg.distinguish)
     table = _flat_regions(region_table(measured, diag, pred, regions=regions, valid=valid))
 
-    maps = _result_maps(thermal, measured, measured_std, snr, lag, strain, strain_std, pred, pstd, plag,
-                        diag, valid)
+    maps = _result_maps(thermal, measured, measured_std, snr, lag, strain, strain_std, smaps[6], pred, pstd,
+                        plag, diag, valid)
     meta = _meta(run, lam, frequency, reg_report, t_info, ranges, calibration, pinfo, valid)
     attrs = _attrs(cfg, run, meta, reg_report, ranges, pred, calibration)
     ds = result_dataset(maps, attrs=attrs, sources=tuple(pred))
+    # each strain map states its spatial resolution and noise floor (and so does its std)
+    for k, name in enumerate(("delta_eps_xx", "delta_eps_yy", "delta_gamma_xy")):
+        for var in (name, f"{name}_std"):
+            ds[var].attrs.update(ranges.map_attrs(k))
     fig_inputs = {"region_mask": inside, "ply_profile": _ply_profile(lam, strain, valid),
                   "reference_image": _reference_on_ir(run, transform, ir_shape)}
     return RunResult(ds, table, warnings, meta, fig_inputs)
@@ -171,15 +175,15 @@ def _calibrate(spec, regions, valid, measured, measured_std, pred, pstd):
     return measured, measured_std, info
 
 
-def _result_maps(thermal, measured, measured_std, snr, lag, strain, strain_std, pred, pstd, plag, diag,
-                 valid):
+def _result_maps(thermal, measured, measured_std, snr, lag, strain, strain_std, edge_distance, pred, pstd, plag,
+                 diag, valid):
     """The variables of result.nc, NaN outside the valid area."""
     maps = {k: v for k, v in thermal.items() if k in ("T0", "delta_T", "delta_T_std", "delta_T_quadrature",
                                                       "phase", "motion_amplitude")}
     maps.update(ratio_measured=measured, ratio_measured_std=measured_std, snr=snr,
                 delta_eps_xx=strain[..., 0], delta_eps_yy=strain[..., 1], delta_gamma_xy=strain[..., 2],
                 delta_eps_xx_std=strain_std[..., 0], delta_eps_yy_std=strain_std[..., 1],
-                delta_gamma_xy_std=strain_std[..., 2])
+                delta_gamma_xy_std=strain_std[..., 2], strain_edge_distance=edge_distance)
     if lag is not None:
         maps["phase_lag_measured"] = lag
     for s in pred:

@@ -9,8 +9,8 @@ import numpy as np
 from ..errors import ConfigError, InputError
 from ..io import read_image
 from ..mechanics import source_coefficients
-from ..register import (RegistrationWarning, find_fiducials, fit_camera, fit_transform, match_fiducials,
-                        refine_with_signal, resample_to_grid)
+from ..register import (RegistrationWarning, edge_distance_map, find_fiducials, fit_camera, fit_transform,
+                        match_fiducials, refine_with_signal, resample_to_grid)
 from ._files import need_file
 
 __all__ = ["registration_side", "refine_registration"]
@@ -87,7 +87,8 @@ def _visible_px_to_dic(pts, shape, dic):
 
 
 def registration_side(run, reg, ranges, ir_shape, T0, *, transform=None):
-    """Strain ranges and their noise on every IR pixel, and the registration report.
+    """Strain ranges, their noise and the distance to the data's edge (IR px) on every IR pixel,
+    as 7 maps, and the registration report.
 
     ``transform`` replaces the fit (used after a signal-based refinement).
     """
@@ -109,12 +110,13 @@ def registration_side(run, reg, ranges, ir_shape, T0, *, transform=None):
     n = len(pts)
     values = np.column_stack([_arr(getattr(ranges, k), n) for k in
                               ("exx", "eyy", "gxy", "exx_std", "eyy_std", "gxy_std")])
-    vsg = ranges.attrs.get("vsg_mm" if ranges.units == "mm" else "vsg_px")
-    margin = 0.5 * float(vsg) * float(scale) if (vsg and scale and np.isfinite(vsg)) else 0.0
+    # no margin: the strain fits keep to the valid data up to its edges; the distance to the
+    # edge goes with the maps as their last channel
     maps, inside = resample_to_grid(ir, values, ir_shape, grid_shape=ranges.grid_shape,
-                                      valid=np.asarray(ranges.valid, bool), edge_margin=margin)
+                                    valid=np.asarray(ranges.valid, bool))
+    maps = np.concatenate([maps, edge_distance_map(inside)[None]])
     report.update(rms=float(rms) if rms is not None else float("nan"),
-                  max_error=float(mx) if mx is not None else float("nan"), edge_margin_px=margin)
+                  max_error=float(mx) if mx is not None else float("nan"))
     if scale and ranges.units == "mm":
         report["pixel_size_mm"] = 1.0 / float(scale)
     warnings = list(getattr(transform, "warnings", []) or [])

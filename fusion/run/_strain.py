@@ -78,7 +78,10 @@ def strain_side(run, *, load_range=None):
 
 
 def _zero_field(field):
-    return dataclasses.replace(field, u=np.zeros_like(field.u), v=np.zeros_like(field.v))
+    # the reference state: no displacement and no noise of its own (the correlation's noise
+    # is carried by the other field)
+    return dataclasses.replace(field, u=np.zeros_like(field.u), v=np.zeros_like(field.v),
+                               u_std=None, v_std=None)
 
 
 def _scale_ranges(r, load_range, loads):
