@@ -10,6 +10,16 @@ input_file
     An input path checked to be a readable regular file (named in the message).
 open_frames, FrameStack
     Infrared frame stacks (.npy, raw, TIFF, HDF5, NetCDF), lazy and memory-mapped.
+open_sequence, SequenceStack, list_sequence, list_images, SequenceFiles, is_sequence
+    Sequences of per-frame files (a folder or glob pattern of TIFF, PNG, .npy or CSV/TXT
+    grids; text grids converted once into fusion's cache, see text_grid_cache), ordered by
+    the numbers in their names.
+read_sequence_times, read_load_log
+    Frame times of a sequence, and the load at each speckle image, from their tables.
+text_grid_cache
+    The folder of converted text-grid stacks.
+file_identity
+    (path, size, modification time) of a file: what changes while it is written.
 read_load_signal, LoadSignal, read_frame_times
     Load signals (CSV) and frame timestamps.
 read_thermal_maps
@@ -21,15 +31,20 @@ read_dic_field, read_image
 from ._atomic import atomic_path, atomic_write_bytes, atomic_write_text, safe_child, sha256_file
 from ._dic import read_dic_field
 from ._images import read_image
+from ._logs import read_load_log, read_sequence_times
 from ._frames import FrameStack, open_frames
 from ._guard import input_file
 from ._maps import read_thermal_maps
 from ._netcdf import read_netcdf, write_netcdf
+from ._sequences import SequenceFiles, SequenceStack, file_identity, is_sequence, list_images, list_sequence, open_sequence
 from ._signals import LoadSignal, read_frame_times, read_load_signal
+from ._textgrids import cache_folder as text_grid_cache
 
 __all__ = [
     "atomic_path", "atomic_write_bytes", "atomic_write_text", "safe_child", "sha256_file", "input_file",
     "read_netcdf", "write_netcdf",
     "open_frames", "FrameStack", "read_load_signal", "LoadSignal", "read_frame_times", "read_thermal_maps",
     "read_dic_field", "read_image",
+    "open_sequence", "SequenceStack", "SequenceFiles", "list_sequence", "list_images", "is_sequence",
+    "read_sequence_times", "read_load_log", "text_grid_cache", "file_identity",
 ]

@@ -3,8 +3,9 @@
 from __future__ import annotations
 
 from ..errors import InputError
-from ..io import open_frames, read_dic_field, read_frame_times, read_image, read_load_signal, read_thermal_maps
+from ..io import read_dic_field, read_image, read_load_signal, read_thermal_maps
 from ._files import need_file
+from ._inputs import frame_times, open_thermal_frames, speckle_images
 
 __all__ = ["check_run_inputs"]
 
@@ -13,10 +14,12 @@ def check_run_inputs(cfg, run, *, key) -> str:
     """Open every input of a run far enough to check it; return a one-line description."""
     t, d = run.thermal, run.dic
     parts = []
+    sig = None
     if t.frames is not None:
-        fr = open_frames(need_file(t.frames, f"{key}.thermal.frames"), dtype=t.dtype, shape=t.shape,
-                         byte_order=t.byte_order, dataset=t.dataset, header_bytes=t.header_bytes)
-        parts.append(f"{fr.shape[0]} frames of {fr.shape[1]}x{fr.shape[2]} {fr.dtype}")
+        fr = open_thermal_frames(t, key=f"{key}.thermal")
+        seq = getattr(fr, "sequence", None)
+        where = f" in {len(seq)} {seq.kind} files" if seq is not None else ""
+        parts.append(f"{fr.shape[0]} frames of {fr.shape[1]}x{fr.shape[2]} {fr.dtype}{where}")
     else:
         maps = read_thermal_maps(need_file(t.maps, f"{key}.thermal.maps"))
         parts.append(f"maps {maps['T0'].shape[0]}x{maps['T0'].shape[1]}")
@@ -24,10 +27,9 @@ def check_run_inputs(cfg, run, *, key) -> str:
         sig = read_load_signal(need_file(t.load, f"{key}.thermal.load"), time_column=t.time_column,
                                load_column=t.load_column)
         parts.append(f"load signal of {sig.times.size} samples")
-    if t.times is not None:
-        # read, not only found: a damaged times file should fail here, not in the run
-        read_frame_times(need_file(t.times, f"{key}.thermal.times"),
-                         n_frames=fr.shape[0] if t.frames is not None else None)
+    if t.frames is not None:
+        # read, not only found: damaged or mismatched frame times should fail here, not in the run
+        frame_times(t, fr, sig)
     if d.strain_ranges is not None:
         f = read_dic_field(need_file(d.strain_ranges, f"{key}.dic.strain_ranges"), columns=d.columns,
                            coordinates=d.coordinates, y_axis=d.effective_y_axis, shear=d.shear)
@@ -39,10 +41,14 @@ def check_run_inputs(cfg, run, *, key) -> str:
         if getattr(d, name):
             parts.append(f"{len(getattr(d, name))} displacement fields of {f.x.size} points")
     if d.images is not None:
-        shapes = {read_image(need_file(p, f"{key}.dic.images[{i}]")).shape for i, p in enumerate(d.images)}
-        if len(shapes) != 1:
-            raise InputError(d.images[0], f"the speckle images differ in size: {sorted(shapes)}")
-        parts.append(f"{len(d.images)} speckle images of {shapes.pop()}")
+        images = speckle_images(d)
+        first = read_image(need_file(images.paths[0], f"{key}.dic.images")).shape
+        for p in images.paths[1:]:
+            shape = read_image(need_file(p, f"{key}.dic.images")).shape
+            if shape != first:
+                raise InputError(p, f"is a {shape[0]}x{shape[1]} image, the reference {images.paths[0].name} "
+                                 f"{first[0]}x{first[1]}: every speckle image must have one size")
+        parts.append(f"{len(images.paths)} speckle images of {first}")
     if d.reference_image is not None:
         read_image(need_file(d.reference_image, f"{key}.dic.reference_image"))
     return ", ".join(parts)

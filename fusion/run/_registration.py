@@ -12,6 +12,7 @@ from ..mechanics import source_coefficients
 from ..register import (RegistrationWarning, edge_distance_map, find_fiducials, fit_camera, fit_transform,
                         match_fiducials, refine_with_signal, resample_to_grid)
 from ._files import need_file
+from ._inputs import reference_image_path
 
 __all__ = ["registration_side", "refine_registration"]
 
@@ -28,7 +29,7 @@ def _fit_registration(reg, ir_shape, T0, run):
         cam = fit_camera(pts, np.asarray(reg.ir_points, float), ir_shape, distortion=True)
         return None, cam
     if method == "fiducials":
-        ref = run.dic.reference_image or (run.dic.images[0] if run.dic.images else None)
+        ref = reference_image_path(run.dic)
         if ref is None:
             raise ConfigError("dic.reference_image", "registration by fiducials needs the visible "
                               "reference image (dic.reference_image or dic.images)")

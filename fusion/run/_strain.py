@@ -10,6 +10,7 @@ from ..dic import correlate, ranges_from_series, ranges_from_states, ranges_from
 from ..errors import InputError
 from ..io import read_dic_field, read_image
 from ._files import need_file
+from ._inputs import speckle_images
 
 __all__ = ["strain_side"]
 
@@ -43,7 +44,13 @@ def strain_side(run, *, load_range=None):
     if spec.series is not None:
         fields = [_read_field(p, spec, f"dic.series[{i}]") for i, p in enumerate(spec.series)]
     else:
-        imgs = [read_image(need_file(p, f"dic.images[{i}]")) for i, p in enumerate(spec.images)]
+        images = speckle_images(spec)
+        loads, paths = images.loads, images.paths
+        imgs = [read_image(need_file(p, "dic.images")) for p in paths]
+        for p, img in zip(paths[1:], imgs[1:]):
+            if img.shape != imgs[0].shape:
+                raise InputError(p, f"is a {img.shape[0]}x{img.shape[1]} image, the reference {paths[0].name} "
+                                 f"{imgs[0].shape[0]}x{imgs[0].shape[1]}: every speckle image must have one size")
         roi = tuple(spec.roi) if spec.roi is not None else None
         if spec.mask is not None:
             m = read_image(need_file(spec.mask, "dic.mask")) > 0
@@ -59,10 +66,10 @@ def strain_side(run, *, load_range=None):
             try:
                 res = correlate(imgs[0], img, subset=spec.subset, step=spec.step, roi=roi)
             except ValueError as e:
-                raise InputError(spec.images[i], f"correlation: {e}") from e
+                raise InputError(paths[i], f"correlation: {e}") from e
             ok = np.asarray(res.converged).mean() if np.size(res.converged) else 0.0
             if ok < 0.5:
-                raise InputError(spec.images[i], f"correlation with the reference converged at only "
+                raise InputError(paths[i], f"correlation with the reference converged at only "
                                  f"{100 * ok:.0f} % of the points; check the images, subset and roi")
             fields.append(res.to_field(pixel_size=spec.pixel_size))
         if len(fields) == 1:

@@ -7,10 +7,11 @@ import math
 import numpy as np
 
 from ..errors import ConfigError, InputError
-from ..io import open_frames, read_frame_times, read_load_signal, read_thermal_maps
+from ..io import read_load_signal, read_thermal_maps
 from ..thermal import estimate_frequency, load_reference, lockin, motion_compensate
 from ..register import resample_to_grid
 from ._files import need_file
+from ._inputs import frame_times, open_thermal_frames
 
 __all__ = ["thermal_side", "load_range", "motion_field"]
 
@@ -22,17 +23,6 @@ def load_range(sig, frequency):
         return float(load_reference(sig.times, sig.load, f).range)
     except ValueError as e:
         raise InputError(sig.path, f"cannot find the load cycle in the load signal ({e})") from e
-
-
-def _frame_times(spec, n_frames, load_sig):
-    if spec.times is not None:
-        return read_frame_times(need_file(spec.times, "thermal.times"), n_frames=n_frames)
-    if spec.frame_rate is not None:
-        return None
-    if load_sig is not None and load_sig.times.size == n_frames:
-        return load_sig.times
-    raise ConfigError("thermal.frame_rate", "frame times unknown: give frame_rate, times, or a load "
-                      f"file with one sample per frame ({n_frames} frames)")
 
 
 def thermal_side(run, *, budget, motion=None, progress=False):
@@ -58,14 +48,13 @@ def thermal_side(run, *, budget, motion=None, progress=False):
         valid = np.isfinite(T0) & np.isfinite(dT)
         return out, valid, {"frequency": run.frequency, "source": "maps", "warnings": []}, None
 
-    path = need_file(spec.frames, "thermal.frames")
-    frames = open_frames(path, dtype=spec.dtype, shape=spec.shape, byte_order=spec.byte_order,
-                         dataset=spec.dataset, header_bytes=spec.header_bytes)
+    path = spec.frames
+    frames = open_thermal_frames(spec, progress=progress)
     load_sig = None
     if spec.load is not None:
         load_sig = read_load_signal(need_file(spec.load, "thermal.load"), time_column=spec.time_column,
                                     load_column=spec.load_column)
-    times = _frame_times(spec, frames.shape[0], load_sig)
+    times = frame_times(spec, frames, load_sig)
     gain, offset = (spec.gain, spec.offset) if spec.values == "counts" else (1.0, 0.0)
     src = frames
     if motion is not None:
