@@ -56,6 +56,8 @@ OTHER_MODULES = {
     "test_hostile_readers.py": "broken and hostile input files",
     "test_hostile_pipeline.py": "failures inside a campaign: exit codes, nothing half-written",
     "test_frames_io.py": "frame-stack readers",
+    "test_sequences.py": "frame and image sequences: readers, order, cache, load logs; one run compared "
+                         "across formats (its lock-in amplitude against the test's own forward model)",
     "test_dic_io.py": "correlation-field readers and their sign conventions",
     "test_cli.py": "argv and exit codes",
     "test_summary.py": "summary.json contents and schema",

@@ -140,7 +140,7 @@ def _candidates(source: Path, suffixes, exclude):
             continue   # vanished since listed, or a dangling link
         if stat.S_ISREG(mode):
             out.append(p)
-    return out
+    return sorted(out)
 
 
 def _pick_kind(source, paths, suffixes, what):
