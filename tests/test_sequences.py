@@ -552,3 +552,22 @@ def test_read_load_log_in_order(tmp_path):
     loads, times = read_load_log(tmp_path / "log.txt", seq)
     np.testing.assert_array_equal(loads, [2, 4, 6])
     np.testing.assert_array_equal(times, [0, 1, 2])
+
+
+@pytest.mark.parametrize("kind", ["tif", "npy", "png", "csv"])
+def test_random_bytes_pipes_and_folders_in_a_sequence(tmp_path, rng, kind):
+    """Hostile files among the frames: random bytes are refused naming the file; a named pipe
+    and a sub-folder with a frame's name are not frames (never opened, so nothing blocks)."""
+    d = tmp_path / "ir"
+    d.mkdir()
+    data = (rng.random((3, 6, 5)) * 1000).astype(np.uint16)
+    for i, f in enumerate(data):
+        p = d / f"f{i}.{kind}"
+        {"tif": lambda: tifffile.imwrite(p, f), "npy": lambda: np.save(p, f),
+         "png": lambda: cv2.imwrite(str(p), f), "csv": lambda: np.savetxt(p, f, delimiter=",", fmt="%d")}[kind]()
+    os.mkfifo(d / f"f7.{kind}")
+    (d / f"f8.{kind}").mkdir()
+    np.testing.assert_array_equal(open_sequence(d)[:], data)
+    (d / f"f3.{kind}").write_bytes(rng.integers(0, 256, 4000, dtype=np.uint8).tobytes())
+    with pytest.raises(InputError, match=rf"f3\.{kind}: "):
+        open_sequence(d)[:]
