@@ -37,11 +37,11 @@ def check_field_points(field, path):
     xy = np.column_stack([field.x[ok], field.y[ok]])
     sv = np.linalg.svd(xy - xy.mean(axis=0), compute_uv=False)
     if sv[0] == 0 or sv[1] <= 1e-9 * sv[0]:
-        shape = field.grid_shape
-        if shape is not None and 1 in shape:
-            what = "row" if shape[0] == 1 else "column"
-            raise InputError(path, f"holds a single {what} of {n} points; a strain field needs points "
-                             "spread over an area (several rows and columns)")
+        for k, what in ((1, "row"), (0, "column")):
+            if np.ptp(xy[:, k]) == 0:
+                raise InputError(path, f"holds a single {what} of {n} points (all at {'xy'[k]} = "
+                                 f"{xy[0, k]:g}); a strain field needs points spread over an area (several "
+                                 "rows and columns)")
         i, j = np.argmin(xy[:, 0] + xy[:, 1]), np.argmax(xy[:, 0] + xy[:, 1])
         raise InputError(path, f"its {n} valid points lie on one line, from ({xy[i, 0]:g}, {xy[i, 1]:g}) to "
                          f"({xy[j, 0]:g}, {xy[j, 1]:g}); a strain field needs points spread over an area")

@@ -179,6 +179,9 @@ def check_frames(path, spec, frames):
             fix = (f"a header read as a frame? check header_bytes (one frame is {frame_bytes} bytes) and "
                    "the frame count in shape" if raw else
                    "remove it if the camera recorded it, or check how the file was written")
+        elif kind == "swapped":
+            fix = ("rows and columns look swapped: check shape = [frames, rows, cols]" if raw else
+                   "the frames are not stored as (frame, row, col): check the file")
         else:
             fix = ("the row length is wrong: check shape (rows and columns swapped?), header_bytes and "
                    "byte_order" if raw else "the frames are not stored as (frame, row, col): check the file")

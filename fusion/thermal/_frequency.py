@@ -61,15 +61,43 @@ def _polish(t, v, f):
     return f, coef, v - _jacobian(t, f) @ coef
 
 
+#: Periodogram ordinates either side of the frequency averaged for the residual noise there.
+_BAND = 20
+
+
+def _colour(t, r, f):
+    """How much more residual noise sits near ``f`` than white noise of the same variance would put.
+
+    The larger of two estimates, and never below one (residuals should not make the
+    estimate look better than white noise would): the residual periodogram averaged over
+    :data:`_BAND` ordinates either side of ``f`` (the two next to it left out, where the
+    fit took its share), and the spectral density at ``f`` of an AR(1) series with the
+    residuals' lag-one autocorrelation, over that of white noise.
+    """
+    rr = float(r @ r)
+    n = r.size
+    if rr <= 0 or n < 8:
+        return 1.0
+    span = float(t[-1] - t[0])
+    k = np.concatenate([np.arange(-_BAND, -1), np.arange(2, _BAND + 1)])
+    freqs = np.abs(f + k / span)
+    # one ordinate at a time: a long load record times 38 frequencies would be a large array
+    band = float(np.mean([abs(np.exp(-2j * math.pi * fk * t) @ r) ** 2 for fk in freqs])) / rr
+    rho = min(max(float(r[1:] @ r[:-1]) / rr, -0.98), 0.98)
+    w0 = 2.0 * math.pi * f * span / (n - 1)
+    ar1 = (1.0 - rho * rho) / (1.0 - 2.0 * rho * math.cos(w0) + rho * rho)
+    return max(1.0, band, ar1)
+
+
 def _frequency_std(t, v, f):
     """Standard uncertainty of ``f`` (Hz) and the polished f.
 
     Linearised least squares: ``s^2 (J^T J)^-1`` for the frequency, with J the Jacobian of
     the model (mean, drift, fundamental and second harmonic, frequency) and s^2 the
     residual variance; for white noise this is the Cramér-Rao bound. Residuals correlated
-    from sample to sample (a wandering frequency, an unmodelled slow drift) carry fewer
-    independent samples: the variance is widened by (1 + rho) / (1 - rho) with rho their
-    lag-one autocorrelation (the effective sample size of an AR(1) series).
+    from sample to sample (a wandering frequency, an unmodelled slow drift) may put more of
+    their variance near the frequency than white noise would: the variance is widened by
+    that excess (:func:`_colour`).
     """
     f, coef, r = _polish(t, v, f)
     J = _jacobian(t, f, coef)
@@ -80,11 +108,7 @@ def _frequency_std(t, v, f):
     Js = J / scale
     cov = np.linalg.pinv(Js.T @ Js)
     var = s2 * cov[-1, -1] / scale[-1] ** 2
-    rho = 0.0
-    rr = float(r @ r)
-    if rr > 0:
-        rho = min(max(float(r[1:] @ r[:-1]) / rr, 0.0), 0.98)
-    var *= (1.0 + rho) / (1.0 - rho)
+    var *= _colour(t, r, f)
     # a noise-free signal still carries the rounding of its samples (1e-12 of the
     # frequency is far below any effect on a lock-in)
     return f, max(math.sqrt(max(var, 0.0)), 1e-12 * f)
@@ -120,8 +144,9 @@ def estimate_frequency(times, values, *, return_std=False):
     harmonic (a distorted load), and its uncertainty is the linearised least-squares
     one, ``s^2 (J^T J)^-1``; for white noise that is the Cramér-Rao bound
     ``var f = 12 / ((2 pi)^2 eta N (N^2 - 1))`` in cycles per sample, with
-    ``eta = A^2 / (2 sigma^2)``. Residuals correlated in time widen it by
-    ``(1 + rho) / (1 - rho)`` (rho: their lag-one autocorrelation). A signal sampled
+    ``eta = A^2 / (2 sigma^2)``. Residuals with more noise near the frequency than white
+    noise of their variance (their periodogram there, or an AR(1) model of them) widen it
+    by that ratio; it never narrows. A signal sampled
     below twice its frequency returns its alias (:func:`alias_frequency`): give the
     frequency explicitly then.
 
@@ -131,8 +156,8 @@ def estimate_frequency(times, values, *, return_std=False):
        discrete-time observations", IEEE Trans. Inf. Theory 20(5), 591-598, 1974.
     .. [2] S. M. Kay, *Fundamentals of Statistical Signal Processing: Estimation Theory*,
        Prentice Hall, 1993, Example 3.14 (the bound) and ch. 8 (nonlinear least squares).
-    .. [3] C. S. Bretherton et al., "The effective number of spatial degrees of freedom
-       of a time-varying field", J. Climate 12, 1990-2009, 1999 (AR(1) effective size).
+    .. [3] G. E. P. Box, G. M. Jenkins, G. C. Reinsel, *Time Series Analysis: Forecasting
+       and Control*, 4th ed., Wiley, 2008, sec. 3.2 (spectrum of an AR(1) process).
 
     Examples
     --------

@@ -20,7 +20,7 @@ from numba import njit
 
 from . import _kernels
 from ._frequency import estimate_frequency
-from ._sanity import clip_levels, sample_frames
+from ._sanity import CLIP_SAMPLE_FRAMES, clip_levels, sample_frames
 
 log = logging.getLogger(__name__)
 
@@ -433,7 +433,7 @@ def lockin(frames, *, frequency=None, times=None, frame_rate=None, load=None, lo
     clip_high = clip_low = None
     if clipping == "detect":
         _frames_dtype(frames)
-        clip_high, clip_low = clip_levels(sample_frames(frames)[1])
+        clip_high, clip_low = clip_levels(sample_frames(frames, CLIP_SAMPLE_FRAMES)[1])
         if clip_high is not None and saturation is not None and clip_high >= saturation:
             clip_high = None  # the saturation threshold masks those pixels already
     if chunk_frames is not None and not _kernels.is_dask(frames) and int(chunk_frames) < 1:
