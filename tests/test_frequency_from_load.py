@@ -119,12 +119,14 @@ def test_a_mistyped_frequency_is_replaced_by_the_load_signals(tmp_path, rng):
     # truth dT / T0 of the forward model; 0.5 %: ~30 times the noise of a median of 1600 pixels
     assert ratio == pytest.approx(-0.2 / T0, rel=5e-3)
     assert any("2.02 Hz (config) differs" in w and "load signal's frequency is used" in w for w in res.warnings)
+    assert res.meta["thermal"]["frequency_source"] == "load signal"
 
 
 def test_a_frequency_that_agrees_is_kept(tmp_path, rng):
     cfg = _run(tmp_path, rng, run='frequency = "2 Hz"')
     dT, info = _median_dT(cfg)
     assert info["frequency"] == 2.0 and not any("differs" in w for w in info["warnings"])
+    assert info["frequency_source"] == "config" and 0 < info["frequency_std"] < 1e-3
     assert dT == pytest.approx(-0.2, rel=5e-3)
 
 

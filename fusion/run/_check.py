@@ -39,7 +39,7 @@ def check_run_inputs(cfg, run, *, key) -> str:
     load_span = None
     if t.load is not None:
         need_file(t.load, f"{key}.thermal.load")
-        sig, frequency, _ = load_and_frequency(run, frames=fr)
+        sig, frequency, _, _ = load_and_frequency(run, frames=fr)
         load_span = load_range(sig, frequency)
         parts.append(f"load signal of {sig.times.size} samples at {frequency:.6g} Hz")
     if d.loads is not None and load_span is not None:

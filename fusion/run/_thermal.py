@@ -97,12 +97,6 @@ def _resolve_frequency(configured, sig, frame_t, frame_rate):
     uncertainty, checked against the configured value and used where they disagree.
     """
     notes = []
-    try:
-        est, std = estimate_frequency(sig.times, sig.load, return_std=True)
-    except ValueError as e:
-        raise InputError(sig.path, f"cannot find the load cycle in the load signal ({e})") from e
-    t = sig.times
-    load_rate = (t.size - 1) / float(t[-1] - t[0])
     if frame_t is not None:
         share, (a0, a1), (b0, b1) = _coverage(sig, frame_t)
         where = f"{b0:.6g}..{b1:.6g} s against the frames' {a0:.6g}..{a1:.6g} s"
@@ -113,6 +107,16 @@ def _resolve_frequency(configured, sig, frame_t, frame_rate):
         if share < LOAD_COVERAGE_WARN:
             notes.append(f"the load signal covers only {share:.0%} of the frames' record ({where}): the "
                          "reference phase is extrapolated over the rest, where the load was not recorded")
+    try:
+        est, std = estimate_frequency(sig.times, sig.load, return_std=True)
+    except ValueError as e:
+        if configured is None:
+            raise InputError(sig.path, f"cannot find the load cycle in the load signal ({e})") from e
+        notes.append(f"the load signal's frequency cannot be estimated ({e}): frequency = {configured:g} Hz "
+                     "is used unchecked")
+        return float(configured), None, notes
+    t = sig.times
+    load_rate = (t.size - 1) / float(t[-1] - t[0])
     own_clock = frame_rate is None or load_rate >= LOAD_CLOCK_FACTOR * frame_rate
     if configured is None:
         if not own_clock:
@@ -140,27 +144,30 @@ def _resolve_frequency(configured, sig, frame_t, frame_rate):
 
 
 def load_and_frequency(run, *, frames=None):
-    """The load signal of a run (None without one), its loading frequency (Hz) and notes.
+    """The load signal of a run (None without one), its loading frequency (Hz), notes and provenance.
 
     With frames the frame clock is read too: it decides whether the load can tell the
-    frequency on its own and how much of the record the load covers.
+    frequency on its own and how much of the record the load covers. The provenance is a
+    dict: ``frequency_source`` ("config" or "load signal") and ``frequency_std`` (Hz, the
+    load signal's estimate; None without one).
     """
     spec = run.thermal
     if spec.load is None:
-        return None, run.frequency, []
+        return None, run.frequency, [], {"frequency_source": "config", "frequency_std": None}
     sig = _read_load(spec)
     frame_t = rate = None
     if spec.frames is not None:
         if frames is None:
             _, frames = _open(spec)
         _, frame_t, rate = _clock(spec, frames.shape[0], sig)
-    f, _, notes = _resolve_frequency(run.frequency, sig, frame_t, rate)
-    return sig, f, notes
+    f, std, notes = _resolve_frequency(run.frequency, sig, frame_t, rate)
+    source = "config" if run.frequency is not None and f == run.frequency else "load signal"
+    return sig, f, notes, {"frequency_source": source, "frequency_std": std}
 
 
 def run_load_range(run):
     """Peak-to-peak load range of a run's load signal at its resolved frequency, or None without one."""
-    sig, f, _ = load_and_frequency(run)
+    sig, f, _, _ = load_and_frequency(run)
     return None if sig is None else load_range(sig, f)
 
 
@@ -262,7 +269,7 @@ def thermal_side(run, *, budget, motion=None, progress=False):
 
     path, frames = _open(spec)
     check_frames(path, spec, frames)
-    load_sig, frequency, notes = load_and_frequency(run, frames=frames)
+    load_sig, frequency, notes, provenance = load_and_frequency(run, frames=frames)
     times = _frame_times(spec, frames.shape[0], load_sig)
     gain, offset = (spec.gain, spec.offset) if spec.values == "counts" else (1.0, 0.0)
     src = frames
@@ -290,7 +297,7 @@ def thermal_side(run, *, budget, motion=None, progress=False):
     check_ratio(np.asarray(res.delta_T)[ok], np.asarray(res.T0)[ok], where=path,
                 fix="check gain and offset")
     maps = res.to_maps()
-    info = {"frequency": float(res.frequency), "source": "lock-in", "n_frames": int(res.n_frames),
+    info = {"frequency": float(res.frequency), **provenance, "source": "lock-in", "n_frames": int(res.n_frames),
             "bad_pixels": dict(res.bad_pixels), "warnings": notes + list(res.warnings),
             # |C2| debiased for noise (E|C2|^2 = 2 std^2 for pure noise), over |C|: a warning of
             # dissipative heating should not fire on a noisy but clean run
