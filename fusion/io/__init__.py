@@ -22,10 +22,13 @@ file_identity
     (path, size, modification time) of a file: what changes while it is written.
 read_load_signal, LoadSignal, read_frame_times
     Load signals (CSV) and frame timestamps.
-read_thermal_maps
-    Precomputed T0 / delta_T / phase maps (NetCDF, TIFF, CSV).
+read_thermal_maps, MAP_QUANTITIES
+    Precomputed T0 / delta_T / phase maps (NetCDF, TIFF, CSV) and the quantities they may hold.
 read_dic_field, read_image
     Exported correlation fields (CSV, NetCDF, HDF5, MATLAB) and speckle images (PNG, TIFF).
+PLAUSIBLE, STRAIN_UNITS, check_strain_ranges, check_temperatures, check_ratio, check_load_ranges
+    The plausible magnitude of every physical input, and the checks that stop a run on a
+    likely unit slip with one sentence naming the file, the key and the unit.
 """
 
 from ._atomic import atomic_path, atomic_write_bytes, atomic_write_text, safe_child, sha256_file
@@ -34,8 +37,10 @@ from ._images import read_image
 from ._logs import read_load_log, read_sequence_times
 from ._frames import FrameStack, open_frames
 from ._guard import input_file
-from ._maps import read_thermal_maps
+from ._maps import MAP_QUANTITIES, read_thermal_maps
 from ._netcdf import read_netcdf, write_netcdf
+from ._plausible import (PLAUSIBLE, STRAIN_UNITS, check_load_ranges, check_ratio, check_strain_ranges,
+                         check_temperatures)
 from ._sequences import SequenceFiles, SequenceStack, file_identity, is_sequence, list_images, list_sequence, open_sequence
 from ._signals import LoadSignal, read_frame_times, read_load_signal
 from ._textgrids import cache_folder as text_grid_cache
@@ -44,7 +49,9 @@ __all__ = [
     "atomic_path", "atomic_write_bytes", "atomic_write_text", "safe_child", "sha256_file", "input_file",
     "read_netcdf", "write_netcdf",
     "open_frames", "FrameStack", "read_load_signal", "LoadSignal", "read_frame_times", "read_thermal_maps",
+    "MAP_QUANTITIES",
     "read_dic_field", "read_image",
+    "PLAUSIBLE", "STRAIN_UNITS", "check_strain_ranges", "check_temperatures", "check_ratio", "check_load_ranges",
     "open_sequence", "SequenceStack", "SequenceFiles", "list_sequence", "list_images", "is_sequence",
     "read_sequence_times", "read_load_log", "text_grid_cache", "file_identity",
 ]
