@@ -67,6 +67,7 @@ OTHER_MODULES = {
     "test_report_figures.py": "figures and their file formats",
     "test_report_browser.py": "the report in a headless browser",
     "test_resume.py": "skip, resume and overwrite of runs",
+    "test_watch.py": "fusion watch: completion, settling, config reloads, kill and restart, memory",
     "test_workers.py": "local worker processes",
     "test_campaign_dask.py": "dask.distributed scheduling",
     "test_memory_budget.py": "memory use of the streaming passes",

@@ -19,6 +19,9 @@ run_stamp
     The hash of everything that determines a run's result.
 campaign_lock, LOCK_NAME
     The exclusive lock of an output folder.
+watch_campaign, refresh_products
+    ``fusion watch``: each run processed as soon as its inputs are complete; the campaign
+    products rebuilt from the result folders on disk.
 """
 
 from ._campaign import check_campaign, run_campaign
@@ -26,6 +29,8 @@ from ._folders import LOCK_NAME, campaign_lock
 from ._outcome import CampaignOutcome, RunOutcome
 from ._process import process_run
 from ._provenance import run_stamp
+from ._watch import refresh_products, watch_campaign
 
 __all__ = ["CampaignOutcome", "LOCK_NAME", "RunOutcome", "campaign_lock", "check_campaign", "process_run",
-           "run_campaign", "run_stamp"]
+           "refresh_products", "run_campaign", "run_stamp",
+           "watch_campaign"]

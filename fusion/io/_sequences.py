@@ -118,29 +118,32 @@ def file_identity(path):
 
 # ------------------------------------------------------------------------------ listing
 def _candidates(source: Path, suffixes, exclude):
-    """Regular, non-hidden files of the folder or pattern with a known suffix."""
+    """Regular, non-hidden files of the folder or pattern with a known suffix, sorted by name."""
+    skip = {os.path.normcase(os.path.abspath(p)) for p in exclude if p is not None}
+
+    def wanted(name, path):
+        return (not name.startswith(".") and os.path.splitext(name)[1].lower() in suffixes
+                and (not skip or os.path.normcase(os.path.abspath(path)) not in skip))
+
     if source.is_dir():
         try:
-            entries = list(os.scandir(source))
+            with os.scandir(source) as it:
+                # DirEntry.is_file follows links and mostly needs no system call
+                found = [e.path for e in it if wanted(e.name, e.path) and e.is_file()]
         except OSError as e:
             raise InputError(source, f"cannot list the folder ({e.strerror or e})") from e
-        paths = [Path(e.path) for e in entries if not e.name.startswith(".")]
-    elif source.parent.is_dir():
-        paths = [p for p in source.parent.glob(source.name) if not p.name.startswith(".")]
     else:
-        paths = [Path(p) for p in glob.glob(str(source))]
-    skip = {os.path.normcase(os.path.abspath(p)) for p in exclude if p is not None}
-    out = []
-    for p in paths:
-        if os.path.normcase(os.path.abspath(p)) in skip or p.suffix.lower() not in suffixes:
-            continue
-        try:
-            mode = p.stat().st_mode
-        except OSError:
-            continue   # vanished since listed, or a dangling link
-        if stat.S_ISREG(mode):
-            out.append(p)
-    return sorted(out)
+        pattern = glob.escape(str(source.parent)) + os.sep + source.name if source.parent.is_dir() else str(source)
+        found = [p for p in glob.glob(pattern) if wanted(os.path.basename(p), p)]
+        found = [p for p in found if _regular(p)]
+    return [Path(p) for p in sorted(found, key=os.path.basename)]
+
+
+def _regular(path):
+    try:
+        return stat.S_ISREG(os.stat(path).st_mode)
+    except OSError:
+        return False        # vanished since listed, or a dangling link
 
 
 def _pick_kind(source, paths, suffixes, what):

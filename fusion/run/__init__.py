@@ -14,11 +14,15 @@ check_run_inputs
     Every input of a run opened far enough to know it can be read (``fusion check``).
 input_files
     The files a run reads.
+input_state, InputState
+    Whether every input of a run is there (sequences complete) and the identity of its
+    files now (``fusion watch``).
 """
 
 from ._check import check_run_inputs
 from ._compose import RunResult, compute_run
 from ._files import input_files
+from ._inputs import InputState, input_state
 from ._write import write_run
 
-__all__ = ["RunResult", "check_run_inputs", "compute_run", "input_files", "write_run"]
+__all__ = ["InputState", "RunResult", "check_run_inputs", "compute_run", "input_files", "input_state", "write_run"]
