@@ -92,10 +92,13 @@ def _process_and_refresh(config_path, run_name, out, overwrite, failures):
     removes its unfinished folder.
     """
     signal.signal(signal.SIGINT, signal.default_int_handler)
-    outcome = process_run(config_path, run_name, out, overwrite=overwrite)
-    if outcome.status == "failed":
-        failures = {**failures, run_name: outcome.error}
-    report, error = refresh_products(config_path, out, failures)
+    try:
+        outcome = process_run(config_path, run_name, out, overwrite=overwrite)
+        if outcome.status == "failed":
+            failures = {**failures, run_name: outcome.error}
+        report, error = refresh_products(config_path, out, failures)
+    finally:
+        signal.signal(signal.SIGINT, signal.SIG_IGN)
     return outcome, report, error
 
 
@@ -207,13 +210,12 @@ def _age(signature) -> float:
 
 
 def _stop_child(executor, future, out, grace=30.0):
-    """Let the run in progress end through its own clean-up (SIGINT), then remove what it left."""
+    """End the run in progress through its own clean-up (SIGINT), then remove what it left."""
     procs = list((getattr(executor, "_processes", None) or {}).values())
-    deadline = time.monotonic() + 2.0
-    while not future.done() and time.monotonic() < deadline:   # Ctrl-C reached the child too
-        time.sleep(0.05)
+    # Ctrl-C reaches the child too, SIGTERM only the watcher; a second SIGINT that cuts the
+    # child's own clean-up short is made good by removing the leftovers below
     for p in procs:
-        if p.is_alive():
+        if p.is_alive() and not future.done():
             with contextlib.suppress(OSError):
                 os.kill(p.pid, signal.SIGINT)
     for p in procs:
