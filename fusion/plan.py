@@ -186,7 +186,7 @@ def _nearest_source(value, ds) -> str:
     i = int(np.argmin(rel))
     if rel[i] <= float(ds.attrs["tolerance"]):
         return _words(names[i])
-    return f"between sources (nearest: {_words(names[i])}, {100 * rel[i]:.0f} % away)"
+    return f"between sources (nearest: {_words(names[i])}, {100 * rel[i]:.2g} % away)"
 
 
 def _band_line(name, band, strict, f, tol) -> str:
@@ -207,7 +207,11 @@ def _band_line(name, band, strict, f, tol) -> str:
     text = f"{_words(name)}: the in-phase part of the response stays {within} {span(band)}"
     if not math.isfinite(strict[0]):
         return text + ", but the phase lag is not small there."
-    return text + f"; with a small phase lag as well {span(strict)}."
+    again = span(strict)
+    for said in ("(the lowest frequency tried)", "(the highest frequency tried)"):
+        if said in text:            # said once is enough
+            again = again.replace(" " + said, "")
+    return text + f"; with a small phase lag as well {again}."
 
 
 def plan_table(ds) -> str:

@@ -232,6 +232,7 @@ def test_header_names_the_operator_and_the_bands_are_sentences():
     assert ("Specimen S1: Recommended loading frequencies from 8.2 Hz to above 400 Hz (the highest frequency "
             "tried); there the heat model stays within 2 % of the adiabatic dT/T0 of the surface ply, with a "
             "small phase lag; the run at 5 Hz lies below the band; the run at 50 Hz lies inside the band.") in page.text
+    assert "limits of the rig" in page.text and "test standard" in page.text     # the band is the model's word
     # without sweeps the section says why it is empty, and the operator line is left out
     html = report.render_report(campaign={"name": "C"}, runs=[{"summary": s, "figures": {}}])
     assert "No specimen was tested at two or more frequencies." in parse(html).text

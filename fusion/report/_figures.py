@@ -87,9 +87,10 @@ def _decorate_axes(ax, ds):
     x0, y0, h = 0.05 * nx, 0.93 * ny, max(0.012 * ny, 0.6)
     ax.add_patch(Rectangle((x0 - 0.5, y0 - h / 2), length_px, h, facecolor="black",
                            edgecolor="white", linewidth=0.8, gid="scalebar", zorder=5))
-    ax.text(x0 - 0.5 + length_px / 2, y0 - h, f"{length:g} {unit}", ha="center", va="bottom",
-            fontsize=7, gid="scalebar_label", zorder=5,
-            bbox={"facecolor": "white", "edgecolor": "none", "alpha": 0.8, "pad": 1.0})
+    # the label sits a few points above the bar whatever the size of the panel
+    ax.annotate(f"{length:g} {unit}", (x0 - 0.5 + length_px / 2, y0 - h / 2), xytext=(0, 2.5),
+                textcoords="offset points", ha="center", va="bottom", fontsize=7, gid="scalebar_label",
+                zorder=5, bbox={"facecolor": "white", "edgecolor": "none", "alpha": 0.8, "pad": 1.0})
 
 
 def no_data_handle():

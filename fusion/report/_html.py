@@ -30,6 +30,11 @@ CAUTIONS = (
     "Defer to qualified engineers for any decision about the safety or fitness for service of a structure.",
 )
 
+#: Beside every recommended band: it is the heat model's statement only.
+BAND_CAUTION = ("A recommended band says where the fitted heat model stays near one source; the loading "
+                "frequency must also respect the limits of the rig and of the specimen (self-heating under "
+                "fast cycling) and the applicable test standard.")
+
 _NONE_FIGURES = '<p class="none">No figures for this run.</p>'
 _NONE_CAMPAIGN = '<p class="none">No campaign figures (a sweep needs runs at two or more frequencies).</p>'
 
@@ -394,8 +399,8 @@ def render_report(*, campaign: dict, runs: list, campaign_figures=None, failures
     header_text = f'<p class="description">{_e(description)}</p>' if description else ""
     sweeps = campaign.get("sweeps") or {}
     sweep_html = ("".join(f'<p class="band"><strong>Specimen {_e(sp)}:</strong> {_e(_band_text(sw))}</p>'
-                          for sp, sw in sweeps.items())
-                  or '<p class="none">No specimen was tested at two or more frequencies.</p>')
+                          for sp, sw in sweeps.items()) + f"<p>{_e(BAND_CAUTION)}</p>"
+                  if sweeps else '<p class="none">No specimen was tested at two or more frequencies.</p>')
     body_runs = "".join(_run_section(r, slug, max_image_width) for r, slug in zip(runs, slugs))
     return (
         "<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n"
