@@ -490,9 +490,9 @@ def test_load_log_that_does_not_match_the_images(tmp_path):
 
 
 def test_image_folder_config_needs_loads(tmp_path):
-    with pytest.raises(ConfigError, match=r"run\[0\]\.dic\.load_log: an image folder or pattern needs its loads"):
+    with pytest.raises(ConfigError, match=r"run 'r'\.dic\.load_log: an image folder or pattern needs its loads"):
         _images_config(tmp_path, 'images = "vis"')
-    with pytest.raises(ConfigError, match=r"run\[0\]\.dic\.load_log: applies to images given as a folder"):
+    with pytest.raises(ConfigError, match=r"run 'r'\.dic\.load_log: applies to images given as a folder"):
         _images_config(tmp_path, 'images = ["a.png", "b.png"]\nloads = [1, 2]\nload_log = "l.csv"')
 
 

@@ -73,6 +73,7 @@ OTHER_MODULES = {
     "test_memory_budget.py": "memory use of the streaming passes",
     "test_import_graph.py": "the import structure of the package",
     "test_report_resolution.py": "resolution attributes through result.nc, summary.json and the report",
+    "test_campaign_products.py": "frequency.nc, the band sentences and the report of a small campaign",
 }
 
 LIBRARIES = r"numpy|scipy|scikit-image|skimage|opencv|cv2"
