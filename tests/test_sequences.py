@@ -15,7 +15,7 @@ import pytest
 import tifffile
 import xarray as xr
 
-from fusion.campaign import run_campaign
+from fusion.campaign import check_campaign, run_campaign
 from fusion.config import load_config
 from fusion.dic import speckle_image
 from fusion.errors import ConfigError, InputError
@@ -109,6 +109,9 @@ strain_ranges = "strain.csv"
     cfg.write_text(text)
     outcome = run_campaign(cfg, out=tmp_path / "out")
     assert outcome.ok, outcome.describe()
+    lines = check_campaign(cfg)
+    assert f"{FRAMES} frames of {ROWS}x{COLS} float32 in {FRAMES} tiff files" in lines[2], lines
+    assert f"{FRAMES} frames of {ROWS}x{COLS} float32 in {FRAMES} text files" in lines[3], lines
     results = {n: xr.open_dataset(tmp_path / "out" / n / "result.nc") for n in ("npy", "tif", "csv")}
     try:
         ref = results["npy"]
