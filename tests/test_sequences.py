@@ -261,6 +261,13 @@ def test_text_grid_element_type_keeps_every_digit(tmp_path, rng):
     counts = rng.integers(0, 60000, (3, 4, 5))
     _write_grids(tmp_path / "counts", counts, delimiter=",", header=False, fmt="%d")
     assert open_sequence(tmp_path / "counts").dtype == np.uint16
+    signed = rng.integers(-100, 30000, (3, 4, 5))
+    signed[0] = -5                    # the first grid fits int16; a later one needs more
+    signed[2, 0, 0] = 40000
+    _write_grids(tmp_path / "signed", signed, delimiter=",", header=False, fmt="%d")
+    st = open_sequence(tmp_path / "signed")
+    assert st.dtype == np.float32
+    np.testing.assert_array_equal(st[:], signed)
     fine = 295 + rng.random((3, 4, 5))
     _write_grids(tmp_path / "fine", fine, delimiter=",", header=False, fmt="%.12f")
     st = open_sequence(tmp_path / "fine")

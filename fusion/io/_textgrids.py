@@ -137,6 +137,7 @@ class _DtypeChoice:
     def __init__(self):
         self.index = 0
         self.decimals = 0
+        self.lo, self.hi = np.inf, -np.inf      # range of the whole-number grids seen so far
 
     @property
     def dtype(self):
@@ -154,10 +155,11 @@ class _DtypeChoice:
         finite = np.isfinite(grid)
         whole = finite.all() and np.array_equal(grid, np.round(grid))
         if whole:
-            lo, hi = float(grid.min()), float(grid.max())
-            if lo >= 0 and hi <= 65535:
+            # the range of every grid so far: one frame's values may fit where the stack's do not
+            self.lo, self.hi = min(self.lo, float(grid.min())), max(self.hi, float(grid.max()))
+            if self.lo >= 0 and self.hi <= 65535:
                 return max(self.index, 0)
-            if lo >= -32768 and hi <= 32767:
+            if self.lo >= -32768 and self.hi <= 32767:
                 return max(self.index, 1)
         if self.index <= 2:
             v = grid[finite]
