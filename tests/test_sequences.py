@@ -382,7 +382,7 @@ def test_count_and_mixed_kinds(tmp_path, rng):
     np.save(tmp_path / "ir" / "frame_0009.npy", np.zeros((2, 2)))
     with pytest.raises(InputError, match=r"ir: holds frame files of several kinds \(1 npy, 1 text, 5 tiff\)"):
         open_sequence(tmp_path / "ir")
-    with pytest.raises(InputError, match=r"nothing-\*\.tif: holds no frame files"):
+    with pytest.raises(InputError, match=r"nothing-\*\.tif: matches no frame files"):
         open_sequence(tmp_path / "ir" / "nothing-*.tif")
 
 

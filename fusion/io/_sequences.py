@@ -152,7 +152,9 @@ def _pick_kind(source, paths, suffixes, what):
         kinds.setdefault(suffixes[p.suffix.lower()], []).append(p)
     if not kinds:
         hint = ", ".join(sorted(suffixes))
-        raise InputError(source, f"holds no {what} files (expected names ending in {hint})")
+        where = "is a folder with" if source.is_dir() else "matches"
+        raise InputError(source, f"{where} no {what} files (expected one {what} stack file, or {what} "
+                         f"files with numbered names ending in {hint})")
     if len(kinds) > 1:
         binary = [k for k in kinds if k in _BINARY]
         if len(binary) == 1:
