@@ -287,6 +287,8 @@ def test_text_grids_converted_once_and_reused(tmp_path, rng, caplog, monkeypatch
     a changed file is converted again; a copy of the folder (new times, same content) reuses it."""
     frames = _frames(rng, n=30)
     _write_grids(tmp_path / "g", frames)
+    # the command line's handler (set up by other tests' main()) keeps fusion's records to itself
+    monkeypatch.setattr(logging.getLogger("fusion"), "propagate", True)
     with caplog.at_level(logging.INFO, logger="fusion"):
         st = open_sequence(tmp_path / "g", progress=True)
     assert "converting 30 text grids" in caplog.text and "30/30 text grids converted (100 %)" in caplog.text
