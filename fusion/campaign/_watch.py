@@ -63,7 +63,7 @@ def refresh_products(config_path, out, failures=None):
             elif run.name in (failures or {}):
                 outcomes.append(RunOutcome(run.name, "failed", error=failures[run.name]))
         check_campaign_targets(out)
-        _, report = write_campaign(cfg, out, outcomes, overwrite=True)
+        report = write_campaign(cfg, out, outcomes, overwrite=True)[1]
         return report, None
     except FusionError as e:
         return None, str(e)
@@ -240,6 +240,10 @@ def _in_child(config_path, name, out, overwrite, failures):
             return future.result()
         except cf.process.BrokenProcessPool as e:
             return RunOutcome(name, "failed", error=f"the run's process ended unexpectedly ({e})"), None, None
+        except Exception as e:  # a bug in the child: keep watching, say so plainly
+            log.debug("run %s crashed", name, exc_info=True)
+            return RunOutcome(name, "failed", error=f"internal error ({type(e).__name__}: {e}); rerun with "
+                              "--debug and report it"), None, None
         except KeyboardInterrupt:
             _stop_child(executor, future, out)
             raise
