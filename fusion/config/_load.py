@@ -166,8 +166,9 @@ def _validate(doc: dict, text: str, path: Path | None, *, base: Path | None = No
                               f"{sorted(k for k in laminates if k != 'default')}", source=ctx.source)
         if run.registration is None and top.registration is None:
             raise ConfigError(f"run[{i}].registration", "no [registration] for this run and none at "
-                              "the top level (use method = \"identity\" if the grids coincide)",
-                              source=ctx.source)
+                              "the top level (use method = \"identity\" if the correlation data are "
+                              "already on the IR pixel grid)", source=ctx.source)
+        _check_registration(run, i, top.registration, ctx)
         runs.append(run)
 
     diagnosis = top.diagnosis or DiagnosisSpec()
@@ -187,6 +188,37 @@ def _validate(doc: dict, text: str, path: Path | None, *, base: Path | None = No
                   laminates=laminates, runs=tuple(runs), registration=top.registration,
                   diagnosis=diagnosis, compute=top.compute or ComputeSpec(),
                   output=top.output or OutputSpec(), plan=plan, material_sources=material_sources)
+
+
+def _check_registration(run, i, top_registration, ctx):
+    """The registration of a run against the coordinates of its correlation data."""
+    reg = run.registration or top_registration
+    rk = f"run[{i}].registration" if run.registration is not None else "registration"
+    d = run.dic
+    images = d.images is not None
+    if reg.method == "identity" and not images:
+        if d.coordinates != "px":
+            raise ConfigError(f"run[{i}].dic.coordinates", f"method 'identity' takes the file's x, y as IR "
+                              f"pixels [col, row], but the file is in {d.coordinates!r}; set coordinates = "
+                              "\"px\" if it is on the IR pixel grid, else register it with control points "
+                              "(method 'similarity', 'affine' or 'homography')", source=ctx.source)
+        if d.effective_y_axis == "up" and not reg.ir_mirrored:
+            raise ConfigError(f"run[{i}].dic.y_axis", "method 'identity' takes the file's y as the IR row, "
+                              "which counts down, but y_axis = \"up\": that would mirror the field; set "
+                              "y_axis = \"down\" if y counts image rows (or ir_mirrored = true if the IR "
+                              "image really is mirrored)", source=ctx.source)
+    if reg.method == "camera" and images:
+        raise ConfigError(f"{rk}.method", "method 'camera' needs 3D correlation points (x, y, z); images "
+                          "correlated here give 2D fields: use 'homography'", source=ctx.source)
+    if reg.dic_points_units is not None:
+        if images and reg.dic_points_units == "mm" and d.pixel_size is None:
+            raise ConfigError(f"{rk}.dic_points_units", "'mm' on images means [col, row] times "
+                              "dic.pixel_size, which is not given; give pixel_size or the points in "
+                              "px", source=ctx.source)
+        if not images and reg.dic_points_units != d.coordinates:
+            raise ConfigError(f"{rk}.dic_points_units", f"is {reg.dic_points_units!r} but the correlation "
+                              f"file of run {run.name!r} is in {d.coordinates!r} (dic.coordinates); control "
+                              "points are written in the file's own coordinates", source=ctx.source)
 
 
 def _table(value, k, ctx) -> dict:

@@ -130,6 +130,8 @@ def list_of(item, *, min_len=0, max_len=None):
             raise _err(k, f"expected a list of {n} entries, got {len(value)}", ctx)
         return tuple(item(v, f"{k}[{i}]", ctx) for i, v in enumerate(value))
     parse.type_name = f"list of {getattr(item, 'type_name', 'values')}"
+    if getattr(item, "schema", None) is not None:
+        parse.schema = item.schema      # a list of tables: the reference documents their keys
     return parse
 
 
