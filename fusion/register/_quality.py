@@ -6,16 +6,15 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
+from scipy.stats import f as f_dist
 
 from ._camera import fit_camera
 from ._transform import _as_points, fit_transform, min_points, n_parameters
 
 __all__ = ["FitAssessment", "assess_fit", "handedness"]
 
-#: A point is called an outlier when the others place it farther off than this many standard
-#: deviations of their own scatter (and farther than the configured error limit): a good point
-#: lands that far with a probability of a few in a million (Rayleigh tail exp(-k^2 / 2)).
-OUTLIER_SIGMAS = 5.0
+#: Family-wise false-alarm probability of the outlier test over all points of a fit.
+OUTLIER_ALPHA = 0.05
 
 # parameters of a camera fit with distortion: pose 6, distortion 4, and the focal length
 # (coplanar points) or focal lengths and principal point (non-coplanar)
@@ -43,11 +42,14 @@ class FitAssessment:
     worst : int or None
         Index (into the points given) of the largest leave-one-out error.
     scatter : float or None
-        Standard deviation per coordinate of the other points about their own fit once the
-        worst point is left out, IR px; ``None`` without enough points for it (n_min + 2).
+        Standard deviation per coordinate of the points about the fit, IR px (of the others
+        when the worst point is an outlier); ``None`` without enough points (n_min + 2).
     outlier : bool
-        The worst point is off by more than the limit and by more than ``OUTLIER_SIGMAS``
-        times ``scatter``.
+        The worst point is off by more than the limit and farther than the scatter of the
+        others allows (the test of :func:`assess_fit`).
+    p_value : float or None
+        Probability that a point as far off as the worst one arises from the scatter of the
+        others alone, for one point (before the correction for testing every point).
     rms_without_worst : float or None
         RMS of the fit without the worst point, IR px.
     """
@@ -62,6 +64,7 @@ class FitAssessment:
     scatter: float | None = None
     outlier: bool = False
     rms_without_worst: float | None = None
+    p_value: float | None = None
     index: np.ndarray = field(default_factory=lambda: np.zeros(0, np.intp))
 
     def to_dict(self) -> dict:
@@ -70,23 +73,61 @@ class FitAssessment:
             None if not np.isfinite(v) else float(v) for v in self.leave_one_out]
         return {"n_points": self.n_points, "n_min": self.n_min, "exact": self.exact, "rms": self.rms,
                 "leave_one_out_px": loo, "worst_point": self.worst, "scatter_px": self.scatter,
-                "outlier": self.outlier, "rms_without_worst": self.rms_without_worst}
+                "outlier": self.outlier, "rms_without_worst": self.rms_without_worst,
+                "p_value": self.p_value}
+
+
+def _free(method, m):
+    """The free parameters of a fitted plane matrix, and the matrix they make."""
+    if method == "homography":
+        return (m / m[2, 2]).ravel()[:8], lambda v: np.append(v, 1.0).reshape(3, 3)
+    if method == "affine":
+        return m[:2].ravel(), lambda v: np.vstack([v.reshape(2, 3), [0.0, 0.0, 1.0]])
+    o = 1.0 if np.linalg.det(m[:2, :2]) > 0 else -1.0       # similarity, proper or reflected
+    return (np.array([m[0, 0], m[1, 0], m[0, 2], m[1, 2]]),
+            lambda v: np.array([[v[0], -o * v[1], v[2]], [v[1], o * v[0], v[3]], [0.0, 0.0, 1.0]]))
+
+
+def _apply_m(m, pts):
+    h = pts @ m[:2, :2].T + m[:2, 2]
+    w = pts @ m[2, :2] + m[2, 2]
+    return h / w[:, None]
+
+
+def _prediction_cov(method, m, src_rest, src_i):
+    """(2, 2) covariance of the fit's prediction at src_i in units of the point variance: the
+    least-squares fit linearised at its solution, g (J^T J)^-1 g^T."""
+    v, make = _free(method, m)
+    h = 1e-6 * np.maximum(np.abs(v), 1e-3)
+    jac_rest = np.empty((2 * len(src_rest), v.size))
+    jac_i = np.empty((2, v.size))
+    for k in range(v.size):
+        dv = np.zeros_like(v)
+        dv[k] = h[k]
+        mp, mm = make(v + dv), make(v - dv)
+        jac_rest[:, k] = ((_apply_m(mp, src_rest) - _apply_m(mm, src_rest)) / (2 * h[k])).ravel()
+        jac_i[:, k] = ((_apply_m(mp, src_i) - _apply_m(mm, src_i)) / (2 * h[k])).ravel()
+    return jac_i @ np.linalg.pinv(jac_rest.T @ jac_rest) @ jac_i.T
 
 
 def _plane_fit(method):
     def fit(src, dst):
-        return fit_transform(src, dst, method=method, warn_limit=None).apply
+        return fit_transform(src, dst, method=method, warn_limit=None)
     return fit
 
 
 def _camera_fit(image_shape, distortion):
     def fit(src, dst):
-        return fit_camera(src, dst, image_shape, distortion=distortion).project
+        return fit_camera(src, dst, image_shape, distortion=distortion)
     return fit
 
 
+def _predict(model, pts):
+    return model.project(pts) if hasattr(model, "project") else model.apply(pts)
+
+
 def _rms(fit, src, dst):
-    r = np.linalg.norm(fit(src, dst)(src) - dst, axis=1)
+    r = np.linalg.norm(_predict(fit(src, dst), src) - dst, axis=1)
     return float(np.sqrt(np.mean(r ** 2))), r
 
 
@@ -123,16 +164,20 @@ def assess_fit(src_points, dst_points, *, method, limit, inliers=None, image_sha
     more, every point is predicted from a fit to all the others (leave-one-out
     cross-validation), which unlike the fit's own residual is not shrunk by the point pulling
     the model towards itself. The point predicted worst is an outlier when it is off by more
-    than ``limit`` and by more than ``OUTLIER_SIGMAS`` standard deviations of the scatter of
-    the remaining points about their own fit; this needs two points more than the model's
-    minimum (with one more, the leave-one-out errors are reported but a single bad point
-    cannot be told from the others).
+    than ``limit`` and when its externally studentised miss (the miss over the scatter of the
+    other points about their own fit, allowing for the uncertainty of their prediction at
+    that point, the fit linearised at its solution) exceeds the F(2, dof) quantile at
+    ``OUTLIER_ALPHA / n``: a good set is called bad with a probability of at most about
+    ``OUTLIER_ALPHA``. This needs two points more than the model's minimum (with one more the
+    leave-one-out errors are reported, but a single bad point cannot be told from the others).
+    For the camera model the leave-one-out errors are reported without an outlier test.
 
     References
     ----------
     Stone, M., "Cross-validatory choice and assessment of statistical predictions",
-    J. R. Stat. Soc. B 36(2), 111-147 (1974). Hartley & Zisserman, *Multiple View Geometry in
-    Computer Vision*, 2nd ed., CUP 2004, ch. 5 (residual and estimation error).
+    J. R. Stat. Soc. B 36(2), 111-147 (1974). Cook, R. D. and Weisberg, S., *Residuals and
+    Influence in Regression*, Chapman & Hall 1982, sec. 2.2 (deleted residuals, Bonferroni).
+    Hartley & Zisserman, *Multiple View Geometry in Computer Vision*, 2nd ed., CUP 2004, ch. 5.
     """
     camera = method == "camera"
     src = _as_points(src_points, "src_points", ndim=3 if camera else 2)
@@ -159,30 +204,42 @@ def assess_fit(src_points, dst_points, *, method, limit, inliers=None, image_sha
     out = FitAssessment(method, n, n_min, exact, index=index)
     if exact or n < n_min:
         return out
-    out.rms, _ = _rms(fit, src, dst)
+    out.rms, r_all = _rms(fit, src, dst)
     loo = np.full(n, np.nan)
+    models = [None] * n
     if n - 1 >= n_min:
         for i in range(n):
             rest = np.arange(n) != i
             try:
-                loo[i] = float(np.linalg.norm(fit(src[rest], dst[rest])(src[i:i + 1])[0] - dst[i]))
+                models[i] = fit(src[rest], dst[rest])
             except ValueError:   # the others are degenerate without this point
                 continue
+            loo[i] = float(np.linalg.norm(_predict(models[i], src[i:i + 1])[0] - dst[i]))
     out.leave_one_out = loo
     if not np.isfinite(loo).any():
         return out
     worst = int(np.nanargmax(loo))
     out.worst = int(index[worst])
     dof = 2 * (n - 1) - n_par
-    if dof > 0:
-        rest = np.arange(n) != worst
-        try:
-            rms_rest, r = _rms(fit, src[rest], dst[rest])
-        except ValueError:
-            return out
-        out.rms_without_worst = rms_rest
-        out.scatter = float(np.sqrt(np.sum(r ** 2) / dof))
-        out.outlier = bool(loo[worst] > max(float(limit), OUTLIER_SIGMAS * out.scatter))
+    if dof <= 0:
+        return out
+    rest = np.arange(n) != worst
+    rms_rest, r = _rms(fit, src[rest], dst[rest])
+    out.rms_without_worst = rms_rest
+    s_rest = float(np.sqrt(np.sum(r ** 2) / dof))
+    out.scatter = float(np.sqrt(np.sum(r_all ** 2) / (2 * n - n_par)))
+    if camera:
+        return out                       # leave-one-out errors reported, no outlier test
+    # the deleted-residual test: the worst point's miss d, weighed by the spread of the others'
+    # prediction there, against the others' own scatter, is F(2, dof) distributed for a good
+    # point; testing all n points at once asks for alpha / n (Bonferroni)
+    d = _predict(models[worst], src[worst:worst + 1])[0] - dst[worst]
+    cov = np.eye(2) + _prediction_cov(method, models[worst].matrix, src[rest], src[worst:worst + 1])
+    stat = float(d @ np.linalg.solve(cov, d)) / (2.0 * max(s_rest, 1e-12) ** 2)
+    out.p_value = float(f_dist.sf(stat, 2, dof))
+    out.outlier = bool(loo[worst] > float(limit) and out.p_value < OUTLIER_ALPHA / n)
+    if out.outlier:
+        out.scatter = s_rest
     return out
 
 
