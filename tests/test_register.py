@@ -42,7 +42,7 @@ def test_public_api():
 
     assert sorted(fusion.register.__all__) == [
         "CameraModel", "FOOTPRINT_FAIL", "FOOTPRINT_WARN", "FitAssessment", "RegistrationWarning",
-        "Transform2D", "assess_fit", "disk_mask", "find_fiducials", "fit_camera", "fit_transform",
+        "Transform2D", "assess_fit", "check_handedness", "disk_mask", "find_fiducials", "fit_camera", "fit_transform",
         "footprint_share", "handedness", "map_displacement", "match_fiducials", "min_points",
         "refine_with_signal", "resample_to_grid", "shape_contains", "shape_mask", "warp_support_ok"]
 

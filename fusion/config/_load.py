@@ -9,11 +9,14 @@ import tomllib
 from dataclasses import dataclass
 from pathlib import Path
 
+import numpy as np
+
 from ..errors import ConfigError
 from ..mechanics import (
     IsotropicMaterial, Laminate, LayupError, MaterialError, OrthotropicMaterial, Ply,
     SurfaceLayer, parse_layup,
 )
+from ..register import check_handedness, fit_transform
 from . import _schema as s
 from ._schema import Context
 from ._sections import (CampaignSpec, ComputeSpec, DiagnosisSpec, IsotropicSpec, LaminateSpec, LayerRef,
@@ -219,6 +222,28 @@ def _check_registration(run, i, top_registration, ctx):
             raise ConfigError(f"{rk}.dic_points_units", f"is {reg.dic_points_units!r} but the correlation "
                               f"file of run {run.name!r} is in {d.coordinates!r} (dic.coordinates); control "
                               "points are written in the file's own coordinates", source=ctx.source)
+    if reg.method in ("similarity", "affine", "homography") and reg.dic_points is not None:
+        _check_points(reg, rk, d, ctx)
+
+
+def _check_points(reg, rk, dic, ctx):
+    """Control points that a plane transform cannot fit, or that mirror the field, are refused
+    here, before any data is read (the run checks again on its data)."""
+    pts = np.asarray([p[:2] for p in reg.dic_points], float)
+    if any(len(p) != 2 for p in reg.dic_points):
+        raise ConfigError(f"{rk}.dic_points", f"method {reg.method!r} needs [x, y] points; [x, y, z] "
+                          "points are for method 'camera'", source=ctx.source)
+    m = dic.to_specimen(reg.dic_points_units)
+    src = pts * np.diag(m)[:2]
+    try:
+        t = fit_transform(src, np.asarray(reg.ir_points, float), method=reg.method,
+                          ransac_threshold=reg.ransac_threshold, warn_limit=None)
+    except ValueError as e:
+        raise ConfigError(f"{rk}.dic_points", str(e), source=ctx.source) from e
+    try:
+        check_handedness(t.jacobian(src[t.inliers]), mirrored=reg.ir_mirrored, method=reg.method)
+    except ValueError as e:
+        raise ConfigError(f"{rk}.ir_points", str(e), source=ctx.source) from e
 
 
 def _table(value, k, ctx) -> dict:

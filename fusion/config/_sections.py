@@ -5,6 +5,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 from pathlib import Path
 
+import numpy as np
+
 from ..errors import ConfigError
 from . import _schema as s
 from ._schema import key
@@ -133,6 +135,20 @@ class DicSpec:
     @property
     def effective_y_axis(self) -> str:
         return self.y_axis or ("up" if self.coordinates == "mm" else "down")
+
+    def to_specimen(self, points_units=None) -> np.ndarray:
+        """(3, 3) matrix from the coordinates the config uses for these data (control points,
+        exclusions with frame = "dic") to the specimen frame the data are held in (x right,
+        y up; mm or px).
+
+        Files: their own x, y, y negated when the file's y points down. Images: the reference
+        image's (col, row) px, or with ``points_units = "mm"`` (col, row) x pixel size; rows
+        count down, and the data are in mm when ``pixel_size`` is given.
+        """
+        if self.images is None:
+            return np.diag([1.0, -1.0 if self.effective_y_axis == "down" else 1.0, 1.0])
+        k = 1.0 if (points_units == "mm" or self.pixel_size is None) else float(self.pixel_size)
+        return np.diag([k, -k, 1.0])
 
 
 @dataclass(frozen=True)

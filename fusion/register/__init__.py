@@ -19,8 +19,9 @@ Trust in a registration
 assess_fit, FitAssessment
     Its error where control points can tell it: "exact fit" (not estimable) at the minimum
     number of points, else the RMS, a leave-one-out error per point and the outlier among them.
-handedness
-    Whether a mapping keeps or reverses orientation (the sign of its Jacobian determinant).
+handedness, check_handedness
+    Whether a mapping keeps or reverses orientation (the sign of its Jacobian determinant), and
+    the refusal of a registration that keeps it (control points typed as (row, col)).
 
 Control points and refinement
 -----------------------------
@@ -59,14 +60,14 @@ from ._camera import CameraModel, fit_camera
 from ._fiducials import find_fiducials, match_fiducials
 from ._masks import (FOOTPRINT_FAIL, FOOTPRINT_WARN, disk_mask, footprint_share, shape_contains, shape_mask,
                      warp_support_ok)
-from ._quality import FitAssessment, assess_fit, handedness
+from ._quality import FitAssessment, assess_fit, check_handedness, handedness
 from ._refine import refine_with_signal
 from ._resample import resample_to_grid
 from ._transform import RegistrationWarning, Transform2D, fit_transform, map_displacement, min_points
 
 __all__ = [
     "CameraModel", "FOOTPRINT_FAIL", "FOOTPRINT_WARN", "FitAssessment", "RegistrationWarning", "Transform2D",
-    "assess_fit", "disk_mask", "find_fiducials", "fit_camera", "fit_transform", "footprint_share",
+    "assess_fit", "check_handedness", "disk_mask", "find_fiducials", "fit_camera", "fit_transform", "footprint_share",
     "handedness", "map_displacement", "match_fiducials", "min_points", "refine_with_signal",
     "resample_to_grid", "shape_contains", "shape_mask", "warp_support_ok",
 ]

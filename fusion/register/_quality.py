@@ -11,7 +11,7 @@ from scipy.stats import f as f_dist
 from ._camera import fit_camera
 from ._transform import _as_points, fit_transform, min_points, n_parameters
 
-__all__ = ["FitAssessment", "assess_fit", "handedness"]
+__all__ = ["FitAssessment", "assess_fit", "handedness", "check_handedness"]
 
 #: Family-wise false-alarm probability of the outlier test over all points of a fit.
 OUTLIER_ALPHA = 0.05
@@ -268,3 +268,38 @@ def handedness(jacobians) -> int:
     if np.all(det < 0):
         return -1
     return 0
+
+
+def check_handedness(jacobians, *, mirrored=False, method="transform"):
+    """Refuse a registration of the wrong orientation, as :class:`ValueError`.
+
+    Parameters
+    ----------
+    jacobians : (N, 2, 2) array_like
+        d(col, row)/d(x, y) of the registration at points of the correlation data, x, y in
+        the specimen frame (x right, y up).
+    mirrored : bool
+        The IR image is a mirror image of the visible camera's view.
+    method : str
+        Named in the message.
+
+    Notes
+    -----
+    Seen as rows-down pixels, a y-up frame is reversed: a registration of the specimen frame
+    must reverse orientation (keep it when the IR image is mirrored). Control points typed as
+    (row, col) give the opposite, a mirrored field that no fit can tell from a good one by its
+    residuals.
+    """
+    got = handedness(jacobians)
+    if got == (1 if mirrored else -1):
+        return
+    if got == 0:
+        raise ValueError(f"the fitted {method} folds over the correlation data (its orientation changes "
+                         "sign inside them): control points far off, or too close together for the area "
+                         "they must cover")
+    how = ("but the IR image is mirrored (ir_mirrored = true), so it must keep it" if mirrored else
+           "but a y-up field seen as rows-down IR pixels must reverse it")
+    raise ValueError(f"the control points mirror the field: (row, col) swapped? The fitted {method} "
+                     f"keeps the orientation of the correlation data, {how}; check that ir_points are "
+                     "[col, row] and dic_points are in the data's own coordinates (dic.y_axis)"
+                     + ("" if mirrored else ", or set ir_mirrored = true if the IR image is mirrored"))

@@ -21,7 +21,7 @@ from ..errors import ConfigError, InputError
 from ..io import read_dic_field, read_image
 from ..mechanics import source_coefficients
 from ..register import (FOOTPRINT_FAIL, FOOTPRINT_WARN, RegistrationWarning, Transform2D, assess_fit, disk_mask,
-                        find_fiducials, fit_camera, fit_transform, footprint_share, handedness, match_fiducials,
+                        check_handedness, find_fiducials, fit_camera, fit_transform, footprint_share, match_fiducials,
                         refine_with_signal, resample_to_grid, shape_contains, shape_mask, warp_support_ok)
 from ._files import need_file
 
@@ -58,19 +58,9 @@ class Registered:
 
 # --------------------------------------------------------------------------- coordinates
 def file_to_specimen(run, reg) -> np.ndarray:
-    """(3, 3) matrix from the coordinates the config uses for the correlation data to the
-    specimen frame the data are held in (mm or px, x right, y up).
-
-    Files: their own x, y, y negated when the file's y points down. Images: the reference
-    image's (col, row) px, or with ``dic_points_units = "mm"`` (col, row) x pixel size; rows
-    count down, and the data are in mm when ``dic.pixel_size`` is given.
-    """
-    d = run.dic
-    if d.images is None:
-        sy = -1.0 if d.effective_y_axis == "down" else 1.0
-        return np.diag([1.0, sy, 1.0])
-    k = 1.0 if (reg.dic_points_units == "mm" or d.pixel_size is None) else float(d.pixel_size)
-    return np.diag([k, -k, 1.0])
+    """(3, 3) matrix from the coordinates the config uses for the run's correlation data to the
+    specimen frame the data are held in (see ``DicSpec.to_specimen``)."""
+    return run.dic.to_specimen(reg.dic_points_units)
 
 
 def _apply(m, pts):
@@ -189,25 +179,13 @@ def _fit_fiducials(reg, T0, run, F):
 
 def _check_orientation(reg, jac, method):
     """Refuse a mapping of the wrong handedness (the signature of (row, col) swapped points)."""
-    expected = 1 if reg.ir_mirrored else -1
-    got = handedness(jac)
-    if got == expected:
-        return
-    if got == 0:
-        raise ConfigError(_points_key(reg), f"the fitted {method} folds over the correlation data (its "
-                          "orientation changes sign inside them): control points far off, or too close "
-                          "together for the area they must cover")
-    if method == "identity":
-        raise ConfigError("dic.y_axis", "method 'identity' would mirror the field: the file's y must "
-                          "count IR rows (y_axis = \"down\")")
-    mirrored = "the IR image is mirrored (ir_mirrored = true), " if reg.ir_mirrored else ""
-    raise ConfigError(_points_key(reg), f"the control points mirror the field: (row, col) swapped? The "
-                      f"fitted {method} keeps the orientation of the correlation data, but {mirrored}"
-                      f"{'so it must' if mirrored else 'a y-up field seen as rows-down IR pixels must'}"
-                      f"{'' if mirrored else ' reverse it'}; check that ir_points are [col, row] and "
-                      "dic_points are in the data's own coordinates (dic.y_axis)"
-                      + ("" if reg.ir_mirrored else ", or set ir_mirrored = true if the IR image is "
-                         "mirrored"))
+    try:
+        check_handedness(jac, mirrored=reg.ir_mirrored, method=method)
+    except ValueError as e:
+        if method == "identity":
+            raise ConfigError("dic.y_axis", "method 'identity' would mirror the field: the file's y must "
+                              "count IR rows (y_axis = \"down\")") from e
+        raise ConfigError(_points_key(reg), str(e)) from e
 
 
 def _camera_jacobian(cam, pts3, h):
