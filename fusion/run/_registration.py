@@ -13,14 +13,13 @@ signature of swapped (row, col) points and is refused.
 from __future__ import annotations
 
 import dataclasses
-import warnings as _warnings
 
 import numpy as np
 
 from ..errors import ConfigError, InputError
 from ..io import read_dic_field, read_image
 from ..mechanics import source_coefficients
-from ..register import (FOOTPRINT_FAIL, FOOTPRINT_WARN, RegistrationWarning, Transform2D, assess_fit, disk_mask,
+from ..register import (FOOTPRINT_FAIL, FOOTPRINT_WARN, Transform2D, assess_fit, disk_mask,
                         check_handedness, find_fiducials, fit_camera, fit_transform, footprint_share, match_fiducials,
                         refine_with_signal, resample_to_grid, shape_contains, shape_mask, warp_support_ok)
 from ._files import need_file
@@ -104,13 +103,6 @@ def _points_key(reg):
 
 
 # --------------------------------------------------------------------------- the fit
-def _quiet(fn, *args, **kw):
-    # the registration's quality is judged here, once, with codes (see _quality_warnings)
-    with _warnings.catch_warnings():
-        _warnings.simplefilter("ignore", RegistrationWarning)
-        return fn(*args, **kw)
-
-
 def _fit(reg, ir_shape, T0, run, F):
     """(transform or None, camera or None, (src, dst, inliers) or None, markers)."""
     no_markers = (np.zeros((0, 2)), np.zeros(0))
@@ -118,7 +110,7 @@ def _fit(reg, ir_shape, T0, run, F):
         t = Transform2D(np.linalg.inv(F), "identity")
         return t, None, None, no_markers
     if reg.method == "fiducials":
-        return _fit_fiducials(reg, T0, run, F)
+        return _fit_fiducials(reg, T0, run)
     src = _control_points(reg, run, F)
     dst = np.asarray(reg.ir_points, float)
     markers = ((dst, np.full(len(dst), float(reg.marker_radius))) if reg.marker_radius is not None
@@ -130,14 +122,13 @@ def _fit(reg, ir_shape, T0, run, F):
             raise ConfigError("registration.dic_points", str(e)) from e
         return None, cam, (src, dst, None), markers
     try:
-        t = _quiet(fit_transform, src, dst, method=reg.method, ransac_threshold=reg.ransac_threshold,
-                   warn_limit=None)
+        t = fit_transform(src, dst, method=reg.method, ransac_threshold=reg.ransac_threshold, warn_limit=None)
     except ValueError as e:
         raise ConfigError("registration.dic_points", str(e)) from e
     return t, None, (src, dst, t.inliers), markers
 
 
-def _fit_fiducials(reg, T0, run, F):
+def _fit_fiducials(reg, T0, run):
     ref = run.dic.reference_image or (run.dic.images[0] if run.dic.images else None)
     if ref is None:
         raise ConfigError("dic.reference_image", "registration by fiducials needs the visible "
@@ -161,7 +152,7 @@ def _fit_fiducials(reg, T0, run, F):
         raise ConfigError("registration.method", "method 'fiducials' with a correlation file needs the "
                           "file in the reference image's pixels (coordinates = \"px\", y down); "
                           "otherwise give dic_points and ir_points")
-    src = _apply(F, vis_pts)
+    src = _apply(run.dic.to_specimen("px"), vis_pts)     # found in px, whatever dic_points_units says
     try:
         # the specimen frame is y-up and the IR image rows-down: an orientation flip
         si, di = match_fiducials(src, ir_pts, method="homography", reflection=not reg.ir_mirrored,
@@ -170,8 +161,8 @@ def _fit_fiducials(reg, T0, run, F):
         raise ConfigError("registration.fiducials", f"cannot match the markers of the two "
                           f"cameras: {e}") from e
     try:
-        t = _quiet(fit_transform, src[si], ir_pts[di], method="homography",
-                   ransac_threshold=reg.ransac_threshold, warn_limit=None)
+        t = fit_transform(src[si], ir_pts[di], method="homography", ransac_threshold=reg.ransac_threshold,
+                          warn_limit=None)
     except ValueError as e:
         raise ConfigError("registration.fiducials", str(e)) from e
     return t, None, (src[si], ir_pts[di], t.inliers), (ir_pts, ir_radii)
