@@ -69,11 +69,11 @@ def test_control_points_in_the_data_own_coordinates(tmp_path, kind, method):
     assert not [w for w in result.warnings if isinstance(w, dict) and w["code"] != "registration_exact_fit"]
 
 
-@pytest.mark.parametrize("units", ["px", "mm"])
-def test_image_control_points_are_reference_image_col_row(tmp_path, units):
+@pytest.mark.parametrize("method, units", [(m, "px") for m in TABLE_METHODS] + [("homography", "mm")])
+def test_image_control_points_are_reference_image_col_row(tmp_path, method, units):
     # the failure reported: points in the reference image's (col, row) gave an empty overlap
     dic = rc.images(tmp_path)
-    reg = rc.control("images", "homography")
+    reg = rc.control("images", method)
     if units == "mm":
         dic["pixel_size"] = f"{rc.PS} mm"
         reg["dic_points"] = (np.asarray(reg["dic_points"]) * rc.PS).tolist()
@@ -95,11 +95,19 @@ def _identity_table(folder, kind):
         exx, eyy, gxy = rc.strain(x, y)
         rc._csv(folder / "strain.csv", ["x", "y", "exx", "eyy", "gxy"], [col, row, exx, eyy, -gxy])
         dic = {"strain_ranges": "strain.csv", "coordinates": "px"}
-    else:
+    elif kind == "states":
         u, v = rc.displacement(x, y)
         rc._csv(folder / "d_min.csv", ["x", "y", "u", "v"], [col, row, 0 * u, 0 * v])
         rc._csv(folder / "d_max.csv", ["x", "y", "u", "v"], [col, row, 2.0 * u, -2.0 * v])
         dic = {"states": ["d_min.csv", "d_max.csv"], "coordinates": "px"}
+    else:
+        u, v = rc.displacement(x, y)
+        loads = [1.0, 3.0, 5.0]
+        for k, load in enumerate(loads):
+            f = (load - 3.0) / 4.0                    # the range over 4 kN is the field
+            rc._csv(folder / f"s{k}.csv", ["x", "y", "u", "v"], [col, row, 2.0 * f * u, -2.0 * f * v])
+        dic = {"series": [f"s{k}.csv" for k in range(3)], "coordinates": "px",
+               "loads": [f"{v} kN" for v in loads]}
     return dic, rc.ir_positions(m=t_id)
 
 
@@ -115,8 +123,9 @@ def test_identity_on_pixel_data_covers_the_grid_with_the_right_shear_sign(tmp_pa
     _check(result, case, mat, angle, strain_tol=1e-9, min_valid=valid.size)
 
 
-def test_identity_on_displacement_states(tmp_path):
-    dic, pos = _identity_table(tmp_path, "states")
+@pytest.mark.parametrize("kind", ["states", "series"])
+def test_identity_on_displacement_fields(tmp_path, kind):
+    dic, pos = _identity_table(tmp_path, kind)
     case = rc.Case(tmp_path, rc.IR_SHAPE, pos, {"method": "identity"}, dic)
     result, mat, angle = _run(case)
     _check(result, case, mat, angle, strain_tol=1e-6, min_valid=1500)
