@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from . import _schema as s
+from . import _schema
 from ._sections import (CampaignSpec, ComputeSpec, DiagnosisSpec, IsotropicSpec, LaminateSpec,
                         OrthotropicSpec, OutputSpec, PlanSpec, RegistrationSpec, RunSpec, TopLevel)
 
@@ -10,16 +10,16 @@ from ._sections import (CampaignSpec, ComputeSpec, DiagnosisSpec, IsotropicSpec,
 def markdown_reference() -> str:
     """The key reference of the config, as Markdown (for configs/README.md)."""
     parts = [
-        s.markdown_reference(TopLevel, "top level", title="top level"),
-        s.markdown_reference(CampaignSpec, "campaign"),
-        s.markdown_reference(OrthotropicSpec, "materials.NAME", title="materials.NAME (orthotropic ply)"),
-        s.markdown_reference(IsotropicSpec, "materials.NAME", title="materials.NAME (isotropic)"),
-        s.markdown_reference(LaminateSpec, "laminate", title="laminate and laminates.NAME"),
-        s.markdown_reference(RunSpec, "run", title="[[run]]"),
-        s.markdown_reference(RegistrationSpec, "registration"),
-        s.markdown_reference(DiagnosisSpec, "diagnosis"),
-        s.markdown_reference(ComputeSpec, "compute"),
-        s.markdown_reference(OutputSpec, "output"),
-        s.markdown_reference(PlanSpec, "plan"),
+        _schema.markdown_reference(TopLevel, "top level", title="top level"),
+        _schema.markdown_reference(CampaignSpec, "campaign"),
+        _schema.markdown_reference(OrthotropicSpec, "materials.NAME", title="materials.NAME (orthotropic ply)"),
+        _schema.markdown_reference(IsotropicSpec, "materials.NAME", title="materials.NAME (isotropic)"),
+        _schema.markdown_reference(LaminateSpec, "laminate", title="laminate and laminates.NAME"),
+        _schema.markdown_reference(RunSpec, "run", title="[[run]]"),
+        _schema.markdown_reference(RegistrationSpec, "registration"),
+        _schema.markdown_reference(DiagnosisSpec, "diagnosis"),
+        _schema.markdown_reference(ComputeSpec, "compute"),
+        _schema.markdown_reference(OutputSpec, "output"),
+        _schema.markdown_reference(PlanSpec, "plan"),
     ]
     return "\n".join(parts)

@@ -6,6 +6,10 @@ write_netcdf, read_netcdf
     Results through xarray, written atomically.
 atomic_path, atomic_write_text, atomic_write_bytes, sha256_file, safe_child
     Safe output helpers.
+temp_name, parse_temp_name, make_temp_folder, this_host
+    Names of fusion's own temporary entries (host and process id inside).
+content_digest
+    A fast hash of a file's content (change detection).
 input_file
     An input path checked to be a readable regular file (named in the message).
 open_frames, FrameStack
@@ -18,7 +22,8 @@ read_dic_field, read_image
     Exported correlation fields (CSV, NetCDF, HDF5, MATLAB) and speckle images (PNG, TIFF).
 """
 
-from ._atomic import atomic_path, atomic_write_bytes, atomic_write_text, safe_child, sha256_file
+from ._atomic import (atomic_path, atomic_write_bytes, atomic_write_text, content_digest, make_temp_folder,
+                      parse_temp_name, safe_child, sha256_file, temp_name, this_host)
 from ._dic import read_dic_field
 from ._images import read_image
 from ._frames import FrameStack, open_frames
@@ -29,6 +34,7 @@ from ._signals import LoadSignal, read_frame_times, read_load_signal
 
 __all__ = [
     "atomic_path", "atomic_write_bytes", "atomic_write_text", "safe_child", "sha256_file", "input_file",
+    "temp_name", "parse_temp_name", "make_temp_folder", "this_host", "content_digest",
     "read_netcdf", "write_netcdf",
     "open_frames", "FrameStack", "read_load_signal", "LoadSignal", "read_frame_times", "read_thermal_maps",
     "read_dic_field", "read_image",

@@ -20,7 +20,7 @@ def _read_field(path, dic, key):
                           y_axis=dic.effective_y_axis, shear=dic.shear)
 
 
-def strain_side(run, *, load_range=None):
+def strain_side(run, *, load_range=None, progress=False):
     """Strain ranges of a run on its correlation grid, with the displacement range when known.
 
     Returns
@@ -57,7 +57,7 @@ def strain_side(run, *, load_range=None):
         fields = []
         for i, img in enumerate(imgs[1:], 1):
             try:
-                res = correlate(imgs[0], img, subset=spec.subset, step=spec.step, roi=roi)
+                res = correlate(imgs[0], img, subset=spec.subset, step=spec.step, roi=roi, progress=progress)
             except ValueError as e:
                 raise InputError(spec.images[i], f"correlation: {e}") from e
             ok = np.asarray(res.converged).mean() if np.size(res.converged) else 0.0
