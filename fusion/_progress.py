@@ -31,13 +31,13 @@ class Progress:
     stream : file, optional
         Where to write (default ``sys.stderr``).
     leave : bool
-        Keep the finished bar on the terminal (the campaign's) or erase it (a step's).
+        Keep the finished bar on the terminal (default) or erase it.
     lines : bool
         Away from a terminal, write a line at every quarter (False: the caller writes
         its own lines, as the campaign does one per finished run).
     """
 
-    def __init__(self, total, *, desc: str, unit: str, enabled: bool = True, stream=None, leave: bool = False,
+    def __init__(self, total, *, desc: str, unit: str, enabled: bool = True, stream=None, leave: bool = True,
                  lines: bool = True):
         self.stream = stream if stream is not None else sys.stderr
         self.total = max(int(total), 0)

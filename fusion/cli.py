@@ -164,27 +164,8 @@ def main(argv=None) -> int:
 
 
 def entry() -> None:  # pragma: no cover - exits the process
-    """The console script: :func:`main`, then a quick exit.
-
-    Once the command is done and its output flushed, the interpreter's own teardown
-    (freeing every module of numba, LLVM, matplotlib, xarray, ...) takes about a
-    second and does nothing the user needs. So the exit handlers run (logging,
-    multiprocessing, temporary files) and the process ends with ``os._exit``. When a
-    thread other than daemons is still running, the normal exit waits for it instead.
-    """
-    import atexit
-    import os
-    import threading
-
-    code = main()
-    sys.stdout.flush()
-    sys.stderr.flush()
-    if any(t.is_alive() and not t.daemon for t in threading.enumerate() if t is not threading.main_thread()):
-        sys.exit(code)
-    atexit._run_exitfuncs()
-    sys.stdout.flush()
-    sys.stderr.flush()
-    os._exit(code)
+    """The console script: :func:`main`, its return value as the exit code."""
+    sys.exit(main())
 
 
 if __name__ == "__main__":  # pragma: no cover

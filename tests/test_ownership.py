@@ -15,7 +15,6 @@ import sys
 import textwrap
 from pathlib import Path
 
-import numpy as np
 import pytest
 
 from fusion.campaign import (LOCK_NAME, campaign_lock, foreign_message, is_marked_folder, mark_folder,
@@ -353,3 +352,78 @@ def test_file_size_limit_while_writing_the_campaign_files_is_one_line(tmp_path, 
 
 def test_foreign_message_names_the_rule():
     assert "never replaces or removes what it did not make" in foreign_message("is a folder")
+
+
+# ------------------------------------------------------------------------ the demo's folder
+def test_demo_refuses_a_folder_of_the_user(tmp_path):
+    from fusion.demo import generate
+
+    folder = tmp_path / "my_data"
+    folder.mkdir()
+    (folder / "thesis.tex").write_text("precious")
+    (folder / "demo.toml").write_text("# my own config")
+    before = _tree(folder)
+    with pytest.raises(InputError, match=r"my_data: is not empty and is not a demo folder fusion made"):
+        generate(folder)
+    with pytest.raises(InputError, match="never replaces or removes"):
+        generate(folder, force=True)
+    assert _tree(folder) == before
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["my_data"]      # nothing left beside it
+
+
+def test_demo_folder_it_made_is_reused_as_it_is(tmp_path):
+    from fusion.demo import generate
+
+    folder = tmp_path / "demo"
+    folder.mkdir()
+    (folder / "demo.toml").write_text("# made before")
+    (folder / "truth.json").write_text("{}")
+    mark_folder(folder, "demo")
+    before = _tree(folder)
+    assert generate(folder) == folder / "demo.toml"
+    assert _tree(folder) == before
+
+
+_KILL = textwrap.dedent("""
+    import os, signal, sys
+    import fusion.campaign._folders as folders
+    from fusion.cli import main
+    cfg, out, k = sys.argv[1], sys.argv[2], int(sys.argv[3])
+    real = folders.publish_steps
+
+    def steps_then_kill(tmp, folder, name):
+        steps, aside = real(tmp, folder, name)
+        if name != "R0":
+            return steps, aside
+
+        def kill():
+            os.kill(os.getpid(), signal.SIGKILL)     # as `kill -9`: nothing of ours runs after it
+        wrapped = list(steps[:k]) + [("kill", kill)] + list(steps[k:])
+        return wrapped, aside
+
+    folders.publish_steps = steps_then_kill
+    sys.exit(main(["-q", "run", cfg, "--out", out, "--overwrite", "--workers", "1"]))
+""")
+
+
+@pytest.mark.slow
+def test_overwrite_killed_at_every_publish_step_then_the_next_run(tmp_path, rng):
+    import signal
+
+    import xarray as xr
+
+    cfg = _campaign(tmp_path, rng, (-0.1,))
+    for k in range(4):          # before the first step, between each pair, after the last
+        out = tmp_path / f"out{k}"
+        assert run_campaign(cfg, out=out, workers=1).ok
+        (out / "notes.txt").write_text("user notes")
+        r = subprocess.run([sys.executable, "-c", _KILL, str(cfg), str(out), str(k)], cwd=ROOT,
+                           capture_output=True, text=True, timeout=300)
+        assert r.returncode == -signal.SIGKILL, (k, r.returncode, r.stderr[-2000:])
+        again = run_campaign(cfg, out=out, workers=1)
+        assert again.ok and again.runs[0].status == "skipped", (k, again.describe())
+        assert is_marked_folder(out / "R0", "R0")
+        with xr.open_dataset(out / "R0" / "result.nc") as ds:
+            assert ds["delta_T"].shape == (40, 48)
+        assert not [p.name for p in out.iterdir() if parse_temp_name(p.name)], k
+        assert (out / "notes.txt").read_text() == "user notes"

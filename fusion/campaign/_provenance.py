@@ -71,8 +71,9 @@ class DigestCache:
         if os.path.lexists(path):
             try:
                 st = os.lstat(path)
-                ours = stat.S_ISREG(st.st_mode) and json.loads(path.read_text(encoding="utf-8")).get("made_by") == "fusion"
-            except (OSError, ValueError, AttributeError):
+                doc = json.loads(path.read_text(encoding="utf-8")) if stat.S_ISREG(st.st_mode) else None
+                ours = isinstance(doc, dict) and doc.get("made_by") == "fusion"
+            except (OSError, ValueError):
                 ours = False
             if not ours:
                 log.warning("%s is not fusion's digest cache; left as it is (inputs are hashed again next time)",
