@@ -20,17 +20,21 @@ LINUX = sys.platform.startswith("linux")
 
 
 def _inside_worker():
-    return {"pid": os.getpid(), "ppid": os.getppid()}
+    return {"pid": os.getpid(), "ppid": os.getppid(), "blas_threads": os.environ.get("OPENBLAS_NUM_THREADS")}
 
 
-def test_local_workers_are_fresh_processes_of_this_one():
-    pool = _schedule._process_pool(1)
-    try:
-        got = pool.submit(_inside_worker).result(timeout=120)
-    finally:
-        pool.shutdown(wait=True)
+def test_local_workers_are_fresh_processes_with_one_native_thread():
+    before = {k: os.environ.get(k) for k in _schedule._THREAD_ENV}
+    with _schedule._one_native_thread():
+        pool = _schedule._process_pool(1)
+        try:
+            got = pool.submit(_inside_worker).result(timeout=120)
+        finally:
+            pool.shutdown(wait=True)
     # spawned by this process (a child), never a fork of its threads and open files
     assert got["ppid"] == os.getpid() and got["pid"] != os.getpid()
+    assert got["blas_threads"] == "1"           # two workers on two cores must not start four
+    assert {k: os.environ.get(k) for k in _schedule._THREAD_ENV} == before    # this process's as it was
 
 
 def _session_processes(sid):

@@ -32,6 +32,7 @@ long steps), else one log line per finished run (:class:`fusion._progress.Progre
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import logging
 import math
@@ -344,6 +345,29 @@ def _preload_products():
             log.debug("preloading %s failed", name, exc_info=True)
 
 
+#: Native thread pools limited to one thread in the worker processes (their numba and OpenCV
+#: threads are set per run): two workers on two cores must not start four BLAS threads.
+_THREAD_ENV = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "BLIS_NUM_THREADS",
+               "NUMEXPR_NUM_THREADS", "VECLIB_MAXIMUM_THREADS")
+
+
+@contextlib.contextmanager
+def _one_native_thread():
+    """While the pool lives: workers start with one thread per native pool (they inherit the
+    environment when spawned); this process's own environment is restored afterwards."""
+    saved = {k: os.environ.get(k) for k in _THREAD_ENV}
+    try:
+        for k in _THREAD_ENV:
+            os.environ[k] = "1"
+        yield
+    finally:
+        for k, v in saved.items():
+            if v is None:
+                os.environ.pop(k, None)
+            else:
+                os.environ[k] = v
+
+
 def _process_pool(n):
     # spawned, never a plain fork of this process: its numba thread pool and open files
     # are not fork-safe
@@ -379,37 +403,43 @@ def _local(cfg, todo, out, report, *, n, overwrite):
     threading.Thread(target=_preload_products, daemon=True, name="fusion-preload").start()
     remaining = list(todo)
     while remaining:
-        queue = list(remaining)
-        pool = _process_pool(min(n, len(queue)))
-        in_flight = {}
-        try:
-            while queue or in_flight:
-                while queue and len(in_flight) < n:
-                    run = queue.pop(0)
-                    in_flight[pool.submit(_task, config_path, run.name, out_s, overwrite, threads)] = run
-                finished, _ = wait(in_flight, return_when=FIRST_COMPLETED)
-                for fut in finished:
-                    report.add(_outcome(fut, in_flight[fut]))   # BrokenProcessPool: a worker died
-                    del in_flight[fut]
-        except BrokenProcessPool:
-            # one worker died and the pool stopped the others: the runs in flight are lost
-            # (each leaves at most a temporary folder); the runs not started go on
-            for fut, run in in_flight.items():
-                try:
-                    report.add(_outcome(fut, run) if fut.done() else RunOutcome(run.name, "failed", error=_DIED))
-                except BrokenProcessPool:
-                    report.add(RunOutcome(run.name, "failed", error=_DIED))
-            log.warning("a worker process died; the runs not started go on in new worker processes")
-        except BaseException:
-            # interrupted: stop the workers now rather than after their current run (their
-            # temporary folders are removed when the campaign runs next)
-            for proc in list((getattr(pool, "_processes", None) or {}).values()):
-                proc.terminate()
-            raise
-        finally:
-            pool.shutdown(wait=True, cancel_futures=True)
+        with _one_native_thread():
+            _run_pool(config_path, out_s, remaining, report, n=n, overwrite=overwrite, threads=threads)
         missing = set(report.missing())
         remaining = [r for r in remaining if r.name in missing]
+
+
+def _run_pool(config_path, out_s, remaining, report, *, n, overwrite, threads):
+    """One pool of ``n`` workers over ``remaining`` until they are done or a worker dies."""
+    queue = list(remaining)
+    pool = _process_pool(min(n, len(queue)))
+    in_flight = {}
+    try:
+        while queue or in_flight:
+            while queue and len(in_flight) < n:
+                run = queue.pop(0)
+                in_flight[pool.submit(_task, config_path, run.name, out_s, overwrite, threads)] = run
+            finished, _ = wait(in_flight, return_when=FIRST_COMPLETED)
+            for fut in finished:
+                report.add(_outcome(fut, in_flight[fut]))   # BrokenProcessPool: a worker died
+                del in_flight[fut]
+    except BrokenProcessPool:
+        # one worker died and the pool stopped the others: the runs in flight are lost
+        # (each leaves at most a temporary folder); the runs not started go on
+        for fut, run in in_flight.items():
+            try:
+                report.add(_outcome(fut, run) if fut.done() else RunOutcome(run.name, "failed", error=_DIED))
+            except BrokenProcessPool:
+                report.add(RunOutcome(run.name, "failed", error=_DIED))
+        log.warning("a worker process died; the runs not started go on in new worker processes")
+    except BaseException:
+        # interrupted: stop the workers now rather than after their current run (their
+        # temporary folders are removed when the campaign runs next)
+        for proc in list((getattr(pool, "_processes", None) or {}).values()):
+            proc.terminate()
+        raise
+    finally:
+        pool.shutdown(wait=True, cancel_futures=True)
 
 
 # --------------------------------------------------------------------------- distributed
