@@ -427,3 +427,20 @@ def test_overwrite_killed_at_every_publish_step_then_the_next_run(tmp_path, rng)
             assert ds["delta_T"].shape == (40, 48)
         assert not [p.name for p in out.iterdir() if parse_temp_name(p.name)], k
         assert (out / "notes.txt").read_text() == "user notes"
+
+
+def test_unchanged_inputs_are_not_hashed_again(tmp_path, rng, monkeypatch):
+    import fusion.campaign._provenance as provenance
+
+    cfg = _campaign(tmp_path, rng)
+    out = tmp_path / "out"
+    assert run_campaign(cfg, out=out, workers=1).ok
+    hashed = []
+    real = provenance.content_digest
+    monkeypatch.setattr(provenance, "content_digest", lambda p: hashed.append(p) or real(p))
+    res = run_campaign(cfg, out=out, workers=1)
+    assert [r.status for r in res.runs] == ["skipped", "skipped"] and hashed == []
+    os.utime(tmp_path / "data" / "ir1.npy")       # a new identity: hashed again, content the same
+    res = run_campaign(cfg, out=out, workers=1)
+    assert [r.status for r in res.runs] == ["skipped", "skipped"]
+    assert [Path(p).name for p in hashed] == ["ir1.npy"]

@@ -42,7 +42,7 @@ def process_run(config_path, run_name: str, out, *, overwrite: bool = False,
         if ours and not overwrite:
             if read_stamp(folder) == stamp:
                 return RunOutcome(run.name, "skipped", folder, seconds=time.perf_counter() - t0,
-                                  summary=read_summary(folder))
+                                  summary=read_summary(folder), digests=digests.new)
             raise InputError(folder, "holds a result made from other inputs or settings; pass "
                              "--overwrite to replace it")
         tmp = make_temp_folder(out, run.name, "partial")
@@ -55,7 +55,8 @@ def process_run(config_path, run_name: str, out, *, overwrite: bool = False,
         except BaseException:
             shutil.rmtree(tmp, ignore_errors=True)
             raise
-        return RunOutcome(run.name, "done", folder, seconds=time.perf_counter() - t0, summary=summary)
+        return RunOutcome(run.name, "done", folder, seconds=time.perf_counter() - t0, summary=summary,
+                          digests=digests.new)
     except FusionError as e:
         log.info("run %s failed: %s", run_name, e)
         return RunOutcome(run_name, "failed", error=str(e), seconds=time.perf_counter() - t0)

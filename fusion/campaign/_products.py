@@ -195,7 +195,8 @@ def runs_on_disk(cfg, out: Path, outcomes, digests=None):
         summary = read_summary(folder)
         if summary is None:
             continue
-        if read_stamp(folder) != run_stamp(cfg, run, digests=digests):
+        current = o is not None and o.status in ("done", "skipped")    # stamped by this call
+        if not current and read_stamp(folder) != run_stamp(cfg, run, digests=digests):
             summary = dict(summary)
             summary["warnings"] = list(summary.get("warnings") or []) + [
                 "this result was made from other inputs or settings than the config names now; "

@@ -46,7 +46,15 @@ class DigestCache:
     def __init__(self, entries: dict | None = None):
         self.entries = dict(entries or {})
         self.used: dict[str, list] = {}
+        self.new: dict[str, list] = {}
         self.changed = False
+
+    def merge(self, entries: dict | None) -> None:
+        """Take the digests another process computed (a worker's :attr:`new`)."""
+        for key, value in (entries or {}).items():
+            if isinstance(value, list) and len(value) == 6 and self.entries.get(key) != value:
+                self.entries[key] = value
+                self.changed = True
 
     @classmethod
     def load(cls, out) -> "DigestCache":
@@ -104,7 +112,7 @@ class DigestCache:
         except OSError:
             return None
         if after == ident:     # not changing while read: worth remembering
-            self.entries[key] = ident + [d]
+            self.entries[key] = self.new[key] = ident + [d]
             self.changed = True
         self.used[key] = after
         return d

@@ -301,6 +301,10 @@ def schedule_runs(cfg, runs, out, *, overwrite=False, scheduler=None, workers=No
                       workers=workers, progress=progress)
     finally:
         report.bar.close()
+        if digests is not None:
+            for o in report.outcomes:
+                if o is not None:
+                    digests.merge(o.digests)
     return report.outcomes
 
 
