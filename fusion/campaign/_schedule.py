@@ -14,9 +14,13 @@ and by memory: ``min(workers, runs, max(1, available // (memory_budget +
 WORKER_BASELINE)))``, where ``available`` is the memory the operating system
 reports as available and ``WORKER_BASELINE`` what a worker holds besides its frame
 chunks. With more than one, a :class:`concurrent.futures.ProcessPoolExecutor` of
-that many spawned worker processes takes the runs, one at a time each, with each
-run's numba and OpenCV kernels on ``max(1, cores // workers)`` threads so that
-workers do not fight over cores. Worker processes exit when the campaign process
+that many worker processes takes the runs, one at a time each, with each run's
+numba and OpenCV kernels on ``max(1, cores // workers)`` threads so that workers do
+not fight over cores. On Linux the workers are forked from a fork server
+(:mod:`multiprocessing`'s ``forkserver``) that has imported what a run needs
+(:mod:`fusion.campaign._preload`), so that each worker does not import it again;
+elsewhere they are spawned. Either way no worker is a plain fork of this process,
+whose threads and open files are not fork-safe. Worker processes exit when the campaign process
 dies; when one dies, the runs in flight fail and the others go on in new worker
 processes. The ``threads`` kind runs one run at a time: the netCDF/HDF5 library
 and numba's default thread pool are not safe for two runs in one process. A
@@ -39,6 +43,7 @@ import math
 import multiprocessing
 import os
 import re
+import sys
 import threading
 import uuid
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
@@ -357,8 +362,8 @@ _THREAD_ENV = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "BL
 
 @contextlib.contextmanager
 def _one_native_thread():
-    """While the pool lives: workers start with one thread per native pool (they inherit the
-    environment when spawned); this process's own environment is restored afterwards."""
+    """While the pool lives: workers (and the fork server) start with one thread per native pool
+    (they inherit the environment when started); this process's own is restored afterwards."""
     saved = {k: os.environ.get(k) for k in _THREAD_ENV}
     try:
         for k in _THREAD_ENV:
@@ -372,10 +377,22 @@ def _one_native_thread():
                 os.environ[k] = v
 
 
+#: The module the fork server of the local workers imports before it forks any.
+PRELOAD_MODULE = "fusion.campaign._preload"
+
+
+def _context():
+    """Linux: the fork server with the run's modules preloaded (started with the first worker,
+    inside :func:`_one_native_thread`); elsewhere spawn."""
+    if sys.platform.startswith("linux") and "forkserver" in multiprocessing.get_all_start_methods():
+        ctx = multiprocessing.get_context("forkserver")
+        ctx.set_forkserver_preload([PRELOAD_MODULE])
+        return ctx
+    return multiprocessing.get_context("spawn")
+
+
 def _process_pool(n):
-    # spawned, never a plain fork of this process: its numba thread pool and open files
-    # are not fork-safe
-    return ProcessPoolExecutor(n, mp_context=multiprocessing.get_context("spawn"), initializer=_worker_init)
+    return ProcessPoolExecutor(n, mp_context=_context(), initializer=_worker_init)
 
 
 _DIED = ("a worker process died while processing this run (killed, or out of memory: lower [compute] "
