@@ -324,7 +324,7 @@ def test_disk_full_while_writing_the_campaign_files_is_one_line(tmp_path, rng, c
     cap = capsys.readouterr()
     assert code == 1 and "Traceback" not in cap.out + cap.err
     line = next(ln for ln in cap.out.splitlines() if "FAILED  campaign" in ln)
-    assert "No space left on device" in line and "campaign files left as they were" in line, line
+    assert "No space left on device" in line and "that file left as it was" in line, line
     assert (out / "report.html").read_bytes() == good
     assert not [p.name for p in out.iterdir() if parse_temp_name(p.name)]
 

@@ -79,9 +79,9 @@ def run_campaign(config_path, *, out=None, overwrite: bool = False, only=None, s
         except FusionError as e:
             result.campaign_errors.append(str(e))
         except OSError as e:
-            # disk full, the file-size limit, a share gone: the products are left as they were
+            # disk full, the file-size limit, a share gone: the file being written is left as it was
             where = e.filename or out
-            result.campaign_errors.append(f"{where}: {e.strerror or e} (campaign files left as they were)")
+            result.campaign_errors.append(f"{where}: {e.strerror or e} (that file left as it was)")
         try:
             digests.save(out)
         except OSError as e:

@@ -299,7 +299,10 @@ def schedule_runs(cfg, runs, out, *, overwrite=False, scheduler=None, workers=No
         else:
             todo.append(run)
     if digests is not None:
-        digests.save(out)
+        try:
+            digests.save(out)
+        except OSError as e:      # only a cache: the workers hash their inputs themselves
+            log.warning("cannot keep the input digests in %s (%s)", out, e.strerror or e)
     try:
         if todo:
             _dispatch(cfg, todo, Path(out), report, overwrite=overwrite, scheduler=scheduler,
