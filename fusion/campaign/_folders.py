@@ -253,7 +253,7 @@ def publish_steps(tmp: Path, folder: Path, name: str):
     old = folder.parent / temp_name(name, "old")
     return [("move old aside", lambda: os.rename(folder, old)),
             ("rename new into place", lambda: os.rename(tmp, folder)),
-            ("remove old", lambda: shutil.rmtree(old))], old
+            ("remove old", lambda: _remove(old))], old
 
 
 def publish(tmp: Path, folder: Path, name: str | None = None) -> None:
