@@ -29,11 +29,13 @@ from _campaigns import ROOT, write_campaign, write_stack  # noqa: E402  (shared 
 
 @pytest.fixture(autouse=True)
 def _fresh_log_handlers():
-    """`main` points the package logger at the stderr of its test; drop that afterwards."""
+    """`main` points the package logger at the stderr of the test that called it (a stream closed
+    afterwards): start each test without such a handler and put back what was there."""
     import logging
 
     logger = logging.getLogger("fusion")
     saved = (logger.handlers[:], logger.level, logger.propagate)
+    logger.handlers[:], logger.level, logger.propagate = [], logging.NOTSET, True
     yield
     logger.handlers[:], logger.level, logger.propagate = saved[0], saved[1], saved[2]
 
