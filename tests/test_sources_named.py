@@ -72,6 +72,9 @@ OTHER_MODULES = {
     "test_import_graph.py": "the import structure of the package",
     "test_report_resolution.py": "resolution attributes through result.nc, summary.json and the report",
     "test_campaign_products.py": "frequency.nc, the band sentences and the report of a small campaign",
+    "test_ownership.py": "what in an output folder is fusion's: publishing, recovery, refusals",
+    "test_progress.py": "the progress display",
+    "test_quoting.py": "file content quoted in messages",
 }
 
 LIBRARIES = r"numpy|scipy|scikit-image|skimage|opencv|cv2"
