@@ -357,3 +357,13 @@ def test_mistakes_are_named():
     with pytest.raises(ValueError, match="one map per layer"):
         lateral_layer_response(layers, np.zeros((2, 10, 12)), 1.0, pixel_size=0.2e-3)
 
+
+def test_bench_reports_the_lateral_ratio():
+    # speed is not asserted (benchmarks only); the report's contract is
+    from fusion.bench._lateral import bench_lateral
+
+    out = bench_lateral(quick=True)
+    assert out["lateral_fft_ratio"] == pytest.approx(out["lateral_seconds"] / out["lateral_fft_seconds"])
+    assert out["lateral_seconds"] > 0 and out["lateral_fft_seconds"] > 0
+    rows, cols = (int(v) for v in out["lateral_grid"].split("x"))
+    assert rows > 512 and cols > 640 and rows % 2 == 1 and cols % 2 == 1
