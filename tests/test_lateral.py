@@ -4,7 +4,10 @@ sources outside the project.
 Sources used below (each named again beside its check):
 - Carslaw, H. S. & Jaeger, J. C., *Conduction of Heat in Solids*, 2nd ed., Oxford, 1959:
   periodic (harmonic) solutions of the heat equation, ch. 2; the conductivity tensor of an
-  anisotropic solid and its rotation to principal axes, ch. 1.
+  anisotropic solid and its rotation to principal axes, ch. 1 (chapters from memory; the
+  closed forms are derived in the tests themselves).
+- Bracewell, R. N., *The Fourier Transform and Its Applications*, 3rd ed., McGraw-Hill, 2000:
+  the discrete transform treats the grid as periodic (wrap-around).
 - An independent numerical solution written in this file: the same equations discretised
   by finite differences on a 3-D grid (vertex-centred finite volumes through the thickness,
   central differences in the plane, periodic in-plane boundaries), solved directly in the
@@ -51,9 +54,10 @@ def kaw_laminate(**kw):
 # ---------------------------------------------------------------- uniform field
 @pytest.mark.parametrize("frequency", [0.3, 5.0, 80.0])
 def test_uniform_field_reproduces_the_through_thickness_model(frequency):
-    # The q = 0 term of the lateral model is the 1-D model (tests/test_heat.py checks that one
-    # against Carslaw & Jaeger): a uniform strain, with a hole of no-data pixels filled from
-    # its rim, must give it at every pixel to 1e-9 (the issue's tolerance; rounding is ~1e-15).
+    # The q = 0 term of the lateral model is the 1-D model, itself checked against Carslaw &
+    # Jaeger (1959) and an independent transient solution in tests/test_heat.py: a uniform
+    # strain, with a hole of no-data pixels filled from its rim, must give it at every pixel to
+    # 1e-9 (the issue's tolerance; rounding is ~1e-15).
     lam = kaw_laminate(convection_front=10.0, convection_back=5.0)
     layers = thermal_layers(lam)
     e = np.empty((30, 44, 3))
@@ -126,7 +130,7 @@ def test_padding_keeps_the_far_side_from_wrapping_round():
 
 @pytest.mark.parametrize("theta", [0.0, 30.0, 90.0, 135.0])
 def test_orthotropic_ply_at_an_angle(theta):
-    # Carslaw & Jaeger 1959 ch. 1 (anisotropic solids): a conductivity tensor with principal values k1 (along
+    # Carslaw & Jaeger (1959) ch. 1, anisotropic solids (chapter from memory): a conductivity tensor with principal values k1 (along
     # the fibres) and k2 at angle theta has K_xx = k1 cos^2 + k2 sin^2 in the x direction; the
     # closed form above holds with alpha(theta) = K_xx / (rho c) for a wave along x, and with
     # u.K u / (rho c) along any unit direction u.
@@ -215,8 +219,8 @@ def _tensor(k1, k2, theta):
 
 
 def test_two_ply_gaussian_source_matches_finite_differences():
-    # Independent finite-difference solution of the same equations (fd_surface above), two
-    # carbon/epoxy plies at 30 and -60 degrees with different Gaussian sources of opposite
+    # An independent solution by finite differences of the same equations (fd_surface above,
+    # no code of the package), two carbon/epoxy plies at 30 and -60 degrees with different Gaussian sources of opposite
     # sign, convection on the viewed face. Accuracy: the grid resolves the Gaussian (sigma =
     # 4 cells) and the through-thickness wave (dz = 0.16 diffusion lengths), so the
     # discretisation error is a few 1e-3; the issue asks for 1 %.
@@ -286,8 +290,8 @@ def test_compiled_kernel_matches_the_recursion_for_a_thick_mixed_stack(shape):
 
 # ---------------------------------------------------------------- validity near no-data
 def test_edge_mask_reaches_one_diffusion_length_along_and_across_the_fibres():
-    # Carslaw & Jaeger 1959 sec. 2.6: a thermal wave decays over mu = sqrt(2 k / (rho c omega));
-    # along the fibres with k1, across with k2 (its principal axes, ch. 1).
+    # Carslaw & Jaeger (1959) sec. 2.6 (from memory): a thermal wave decays over
+    # mu = sqrt(2 k / (rho c omega)); along the fibres with k1, across with k2 (the principal axes).
     f, p = 1.0, 0.1e-3
     layer = [ply("ply", 0.0, thickness=1e-3)]
     omega = 2 * np.pi * f
@@ -308,8 +312,10 @@ def test_edge_mask_reaches_one_diffusion_length_along_and_across_the_fibres():
 
 
 def test_edge_mask_uses_the_union_of_the_surface_layers():
-    # at low frequency the wave reaches the second ply (90 deg): its across-direction is the
-    # first ply's along-direction, so both axes are flagged to the long diffusion length
+    # Carslaw & Jaeger (1959), sec. 2.6 (from memory): the through-thickness wave reaches a
+    # diffusion length deep, so at low frequency the second ply (90 deg) counts too; its
+    # across-direction is the first ply's along-direction, so both axes are flagged to the
+    # long in-plane diffusion length sqrt(2 k1 / (rho c omega))
     f, p = 0.05, 0.2e-3
     layers = [ply("p1", 0.0, thickness=0.125e-3), ply("p2", 90.0, thickness=0.125e-3)]
     valid = np.ones((140, 140), bool)
@@ -359,7 +365,7 @@ def test_mistakes_are_named():
 
 
 def test_bench_reports_the_lateral_ratio():
-    # speed is not asserted (benchmarks only); the report's contract is
+    # Not a physics check: the benchmark's report (speed is never asserted in a test).
     from fusion.bench._lateral import bench_lateral
 
     out = bench_lateral(quick=True)
