@@ -237,11 +237,17 @@ class CalibrationSpec:
     """Calibrate the infrared measurement on a region whose source is known."""
 
     region: str = key(s.string(), "Name of a region in diagnosis.regions.", required=True)
-    source: str = key(s.choice("coating", "resin_layer", "surface_ply", "laminate", "model"),
+    source: str = key(s.choice("coating", "resin_layer", "surface_ply", "laminate", "model", "lateral"),
                       "The source known to dominate there.", required=True)
 
 
 _SOURCE = s.choice("coating", "resin_layer", "surface_ply", "laminate", "model")
+_LATERAL = s.choice("off", "beside", "instead")
+_LATERAL_DOC = ("Heat flowing along the surface as well as through the thickness: 'beside' adds the "
+                "lateral heat model (source 'lateral': the layered plate driven by the registered strain "
+                "maps, solved over the infrared grid; needs correlation coordinates in mm and a 2-D "
+                "registration) next to the through-thickness model 'model'; 'instead' replaces 'model' by "
+                "it; 'off' leaves it out.")
 
 
 @dataclass(frozen=True)
@@ -262,6 +268,7 @@ class DiagnosisSpec:
     regions: tuple = key(s.list_of(s.table_of(RegionSpec)), "Named regions for the region table.",
                          factory=tuple)
     calibration: CalibrationSpec = key(s.table_of(CalibrationSpec), "Optional calibration region.")
+    lateral_heat: str = key(_LATERAL, _LATERAL_DOC, default="off")
 
 
 @dataclass(frozen=True)
@@ -330,6 +337,8 @@ class RunSpec:
     dic: DicSpec = key(s.table_of(DicSpec), "Correlation input.", required=True)
     registration: RegistrationSpec = key(s.table_of(RegistrationSpec), "Per-run registration "
                                          "(replaces the top-level [registration]).")
+    lateral_heat: str = key(_LATERAL, "The lateral heat model for this run: 'off', 'beside' or "
+                            "'instead' (default: diagnosis.lateral_heat).")
 
     @property
     def config_key(self) -> str:

@@ -57,8 +57,8 @@ __all__ = [
 #: Mean temperature used to express dT in kelvin in tables (20 °C), K.
 REFERENCE_T0 = 293.15
 
-# Sources of this module in map order; "model" (the heat model) lives elsewhere.
-_LAW_SOURCES = tuple(s for s in SOURCES if s != "model")
+# Sources of this module in map order; the heat models ("model", "lateral") live elsewhere.
+_LAW_SOURCES = tuple(s for s in SOURCES if s not in ("model", "lateral"))
 
 
 def isotropic_coefficients(material: IsotropicMaterial) -> np.ndarray:
@@ -227,8 +227,8 @@ def _select(laminate, sources) -> tuple[str, ...]:
     sources = tuple(sources)
     for s in sources:
         if s not in have:
-            hint = (" (the heat model's 'model' source comes from the heat model, not the adiabatic laws)"
-                    if s == "model" else "")
+            hint = (f" (the {s!r} source comes from a heat model, not the adiabatic laws)"
+                    if s in ("model", "lateral") else "")
             raise ValueError(f"source {s!r} is not available for laminate {laminate.name!r}; "
                              f"available: {list(have)}{hint}")
     return sources
