@@ -216,14 +216,14 @@ def lateral_weights(layers, frequency, wavevectors, *, convection_front=0.0, con
 
 
 # ---------------------------------------------------------------- maps
-def _check_valid(valid, shape, fields):
-    finite = np.all(np.isfinite(fields), axis=0)
+def _valid_mask(valid, finite):
+    """The pixels with data: ``valid`` checked against the finite values, or the finite ones."""
     if valid is None:
         ok = finite
     else:
         ok = np.asarray(valid)
-        if ok.shape != shape:
-            raise ValueError(f"valid must have the map shape {shape}, got {ok.shape}")
+        if ok.shape != finite.shape:
+            raise ValueError(f"valid must have the map shape {finite.shape}, got {ok.shape}")
         if ok.dtype != bool:
             raise ValueError(f"valid must be a boolean map, got dtype {ok.dtype}")
         bad = ok & ~finite
@@ -236,29 +236,29 @@ def _check_valid(valid, shape, fields):
     return ok
 
 
-def _extend(fields, valid):
-    """No-data pixels take the value of the nearest valid pixel (fields (C, Y, X) float64).
+def _fill_nearest(data, valid):
+    """No-data pixels of ``data`` (C, Y, X) take the value of the nearest valid pixel, in place.
 
     The nearest pixel comes from OpenCV's labelled distance transform (5 x 5 chamfer
     metric: within a pixel of the exact Euclidean nearest, at a tenth of its cost).
     """
-    if valid.all():
-        return fields
     import cv2
 
     _, labels = cv2.distanceTransformWithLabels((~valid).astype(np.uint8), cv2.DIST_L2, 5,
                                                 labelType=cv2.DIST_LABEL_PIXEL)
-    # every valid pixel is its own label; map labels back to positions (order-independent)
-    ry, rx = np.nonzero(valid)
-    row = np.empty(labels.max() + 1, dtype=np.intp)
-    col = np.empty_like(row)
-    row[labels[ry, rx]] = ry
-    col[labels[ry, rx]] = rx
-    hole = ~valid
-    lab = labels[hole]
-    out = fields.copy()
-    out[:, hole] = fields[:, row[lab], col[lab]]
-    return out
+    hole = np.flatnonzero(~valid)
+    lab = labels.ravel()[hole]
+    # OpenCV numbers the valid pixels from 1 in raster order; checked, else mapped one by one
+    src = np.flatnonzero(valid)[lab - 1]
+    if not np.array_equal(labels.ravel()[src], lab):
+        order = np.empty(int(labels.max()) + 1, dtype=np.intp)
+        every = np.flatnonzero(valid)
+        order[labels.ravel()[every]] = every
+        src = order[lab]
+    nx = valid.shape[1]
+    hy, hx = np.divmod(hole, nx)
+    sy, sx = np.divmod(src, nx)
+    data[:, hy, hx] = data[:, sy, sx]
 
 
 def _blend(n_pad):
@@ -266,19 +266,27 @@ def _blend(n_pad):
     return 0.5 * (1.0 + np.cos(np.pi * t))      # 1 at the last data line -> 0 at the first
 
 
-def _periodic_pad(fields, shape):
-    """Fields (C, Y, X) on an (NY, NX) grid: data at the origin, a raised-cosine band after."""
+def _padded_fields(fields, valid, shape):
+    """Fields (C, Y, X) on the (NY, NX) grid, filled and blended, and the mask of data.
+
+    Data at the origin, no-data pixels filled from the nearest valid pixel, then a
+    raised-cosine band from the last row (column) to the first.
+    """
     C, ny, nx = fields.shape
     NY, NX = shape
     out = np.empty((C, NY, NX))
-    out[:, :ny, :nx] = fields
+    data = out[:, :ny, :nx]
+    data[...] = fields
+    ok = _valid_mask(valid, np.isfinite(data).all(axis=0))
+    if not ok.all():
+        _fill_nearest(data, ok)
     if NX > nx:
         w = _blend(NX - nx)
-        out[:, :ny, nx:] = w * fields[:, :, nx - 1:nx] + (1.0 - w) * fields[:, :, 0:1]
+        out[:, :ny, nx:] = w * data[:, :, nx - 1:nx] + (1.0 - w) * data[:, :, 0:1]
     if NY > ny:
         w = _blend(NY - ny)[:, None]
         out[:, ny:, :] = w * out[:, ny - 1:ny, :] + (1.0 - w) * out[:, 0:1, :]
-    return out
+    return out, ok
 
 
 def _odd_fast_len(n):
@@ -340,11 +348,10 @@ def _solve(layers, fields, coef_fields, frequency, *, pixel_size, valid, convect
     axes = _pixel_axes(pixel_size)
     k_grid = _grid_tensors(k_in, axes)
     shape = fields.shape[1:]
-    ok = _check_valid(valid, shape, fields)
-    filled = _extend(np.where(ok[None], fields, 0.0), ok)
     NY, NX = _padded_shape(shape, k_grid, rc, omega, pad_lengths)
+    padded, _ = _padded_fields(fields, valid, (NY, NX))
     workers = max(1, numba.get_num_threads())
-    spec = fft.rfft2(_periodic_pad(filled, (NY, NX)), axes=(1, 2), workers=workers)
+    spec = fft.rfft2(padded, axes=(1, 2), workers=workers)
     qy = 2.0 * np.pi * np.fft.fftfreq(NY)
     qx = 2.0 * np.pi * np.fft.rfftfreq(NX)
     kind, (td, trc, tk3, kxx, kxy, kyy) = _types(d, rc, k3, k_grid)
@@ -423,8 +430,7 @@ def lateral_response(layers, strain_ranges, frequency, *, pixel_size, valid=None
                          f"got shape {e.shape} dtype {e.dtype}")
     layers = list(layers)
     _, _, _, coef = _layer_arrays(layers)
-    fields = np.moveaxis(e.astype(np.float64), -1, 0)
-    return _solve(layers, fields, coef, frequency, pixel_size=pixel_size, valid=valid,
+    return _solve(layers, np.moveaxis(e, -1, 0), coef, frequency, pixel_size=pixel_size, valid=valid,
                   convection_front=convection_front, convection_back=convection_back,
                   pad_lengths=pad_lengths)
 
@@ -457,6 +463,6 @@ def lateral_layer_response(layers, sources, frequency, *, pixel_size, valid=None
     if s.ndim != 3 or s.shape[0] != len(layers) or s.dtype.kind not in "fiu":
         raise ValueError(f"sources must be a real (N, Y, X) array with one map per layer ({len(layers)}), "
                          f"got shape {s.shape}")
-    return _solve(layers, s.astype(np.float64), np.eye(len(layers)), frequency, pixel_size=pixel_size,
+    return _solve(layers, s, np.eye(len(layers)), frequency, pixel_size=pixel_size,
                   valid=valid, convection_front=convection_front, convection_back=convection_back,
                   pad_lengths=pad_lengths)

@@ -7,17 +7,14 @@ For each wavevector ``q`` of a half spectrum (``rfft2`` layout) the kernel runs 
 admittance recursion of :mod:`fusion.mechanics._heat` from the back face to the viewed
 face with each layer's exponent ``lambda = sqrt((i omega rho c + q.K q) / k3)`` and each
 layer's particular solution ``g theta_ad`` with ``g = i omega rho c / (i omega rho c + q.K q)``.
-The flux obeys ``q = Y theta + c`` at every interface; ``Y`` (the admittance) and ``c``
-(linear in the sources, one value per source field) are carried from the back face to
-the viewed face in one pass, and the surface value is ``-c / (Y + h_front)``.
+The flux obeys ``q = Y theta + c`` at every interface: the admittance ``Y`` is carried from
+the back face to the viewed face, and each layer's weight in the surface value is
+``-(prod of the D above it) own g / (Y(0) + h_front)``, contracted with the coefficients.
 
 Layout, for speed (a few hundred operations per wavevector and layer):
 
-* complex numbers are carried as real and imaginary parts and every step runs over a
-  whole row of wavevectors without branches, so the compiler uses vector instructions;
-  the exponential, sine and cosine are polynomial kernels written for that
-  (:func:`_sincos`, :func:`_exp_neg`; within a few units in the last place of the C
-  library's);
+* complex numbers as real and imaginary parts, one division per layer; rows of
+  wavevectors in parallel (the row's work inlined: as a call it ran half as fast);
 * layers that share thickness, heat capacity and conductivities (a laminate has few
   distinct plies) share one set of square roots, exponentials and sines per wavevector;
 * the recursion starts at the first layer below which the thermal wave has decayed by
@@ -38,60 +35,16 @@ __all__ = ["surface_spectrum", "ATTENUATION_CUTOFF"]
 #: Sum of Re(lambda d) from the viewed face beyond which deeper layers are left out.
 ATTENUATION_CUTOFF = 40.0
 
-# Fast-math without reassociation: the two- and three-part range reductions below rely on
-# the order of their subtractions.
+# Fast-math without reassociation: the order of the sums is the documented one.
 _FM = {"nnan", "ninf", "nsz", "arcp", "contract", "afn"}
 
 
-@njit(fastmath=_FM, inline="always")
-def _sincos(v):  # pragma: no cover - compiled
-    """sin(v), cos(v): Cody-Waite reduction by pi/2 (three parts), Taylor to degree 15."""
-    n = math.floor(v * 0.6366197723675814 + 0.5)
-    r = v - n * 1.5707963267341256
-    r = r - n * 6.077100506506192e-11
-    r = r - n * 2.0222662487959506e-21
-    r2 = r * r
-    sp = r + r * r2 * (-1.6666666666666666e-01 + r2 * (8.3333333333333333e-03 + r2 * (
-        -1.9841269841269841e-04 + r2 * (2.7557319223985891e-06 + r2 * (-2.5052108385441720e-08 + r2 * (
-            1.6059043836821615e-10 + r2 * (-7.6471637318198165e-13)))))))
-    cp = 1.0 + r2 * (-0.5 + r2 * (4.1666666666666664e-02 + r2 * (-1.3888888888888889e-03 + r2 * (
-        2.4801587301587302e-05 + r2 * (-2.7557319223985888e-07 + r2 * (2.0876756987868100e-09 + r2 * (
-            -1.1470745597729725e-11)))))))
-    # quadrant n mod 4 without branches: odd quadrants swap sine and cosine
-    h = n * 0.5
-    odd = 2.0 * (h - math.floor(h))
-    m = 4.0 * (n * 0.25 - math.floor(n * 0.25))
-    s_sign = 1.0 - 2.0 * math.floor(m * 0.5)
-    m1 = m + 1.0
-    c_sign = 1.0 - 2.0 * math.floor((m1 - 4.0 * math.floor(m1 * 0.25)) * 0.5)
-    return s_sign * (sp + odd * (cp - sp)), c_sign * (cp + odd * (sp - cp))
-
-
-@njit(fastmath=_FM, inline="always")
-def _exp_neg(x):  # pragma: no cover - compiled
-    """exp(-x) for 0 <= x < 88: exp(-r) 2**-n with |r| <= ln2 / 2, Taylor to degree 13."""
-    n = math.floor(x * 1.4426950408889634 + 0.5)
-    r = x - n * 0.6931471803691238
-    r = r - n * 1.9082149292705877e-10
-    p = 1.0 + r * (-1.0 + r * (0.5 + r * (-1.6666666666666666e-01 + r * (4.1666666666666664e-02 + r * (
-        -8.3333333333333333e-03 + r * (1.3888888888888889e-03 + r * (-1.9841269841269841e-04 + r * (
-            2.4801587301587302e-05 + r * (-2.7557319223985888e-06 + r * (2.7557319223985890e-07 + r * (
-                -2.5052108385441720e-08 + r * (2.0876756987868100e-09 + r * (-1.6059043836821613e-10)))))))))))))
-    # 2**-n from the seven bits of n (exact powers of two)
-    scale = 1.0
-    b = 0.5
-    for _ in range(7):
-        bit = n - 2.0 * math.floor(n * 0.5)
-        scale *= b if bit > 0.5 else 1.0
-        n = math.floor(n * 0.5)
-        b = b * b
-    return p * scale
-
-
-@njit(cache=True, nogil=True, fastmath=_FM)
+# inlined into the parallel loop: as a separate call it ran about half as fast
+@njit(nogil=True, fastmath=_FM, inline="always")
 def _transfer_row(qx, ky, kind, thick, rhoc, k3, kxx, kxy, kyy, coef, omega, h_front, h_back,
-                  h_re, h_im):  # pragma: no cover - compiled
-    """Transfer ``H_c(q)`` (C, len(qx)) of one row of wavevectors ``(qx, ky)`` (rad/px)."""
+                  spec, out_re, out_im):  # pragma: no cover - compiled
+    """One row of wavevectors ``(qx, ky)`` (rad/px): ``out_re = sum_c Re(H_c) spec_c`` and
+    ``out_im = sum_c Im(H_c) spec_c`` for the row's spectra ``spec`` (C, len(qx))."""
     nx = qx.shape[0]
     n = kind.shape[0]
     n_types = thick.shape[0]
@@ -105,19 +58,13 @@ def _transfer_row(qx, ky, kind, thick, rhoc, k3, kxx, kxy, kyy, coef, omega, h_f
     gr = np.empty((n_types, nx))
     gi = np.empty((n_types, nx))
     att = np.empty((n_types, nx))
+    dr = np.empty((n, nx))
+    di = np.empty((n, nx))
+    wr = np.empty((n, nx))
+    wi = np.empty((n, nx))
     ybr = np.empty(nx)
     ybi = np.empty(nx)
     stop = np.empty(nx, np.int64)
-    dvr = np.empty(nx)
-    dvi = np.empty(nx)
-    ogr = np.empty(nx)
-    ogi = np.empty(nx)
-    cr = h_re
-    ci = h_im
-    for c in range(n_chan):
-        for ix in range(nx):
-            cr[c, ix] = 0.0
-            ci[c, ix] = 0.0
     # per layer type: Z = k3 lambda, g, tanh and sech of x = lambda d, Re(x)
     for u in range(n_types):
         cap = omega * rhoc[u]
@@ -128,7 +75,7 @@ def _transfer_row(qx, ky, kind, thick, rhoc, k3, kxx, kxy, kyy, coef, omega, h_f
             ar = quad * ik
             ai = cap * ik
             r = math.sqrt(ar * ar + ai * ai)
-            lr = math.sqrt(0.5 * (r + ar))          # principal root: Re > 0 as ai > 0
+            lr = math.sqrt(0.5 * (r + ar))              # principal root: Re > 0 as ai > 0
             li = ai / (2.0 * lr)
             zr[u, ix] = k3[u] * lr
             zi[u, ix] = k3[u] * li
@@ -138,34 +85,48 @@ def _transfer_row(qx, ky, kind, thick, rhoc, k3, kxx, kxy, kyy, coef, omega, h_f
             xr = lr * thick[u]
             xi = li * thick[u]
             att[u, ix] = xr
-            m = _exp_neg(min(xr, 80.0))
-            sn, cs = _sincos(xi)
+            m = math.exp(-xr)
+            if -0.8 < xi < 0.8:
+                # Im(lambda d) is small over most of the spectrum: Taylor series to degree 16,
+                # within an ulp there and cheaper than the library's sine and cosine
+                x2 = xi * xi
+                sn = xi * (1.0 + x2 * (-1.0 / 6 + x2 * (1.0 / 120 + x2 * (-1.0 / 5040 + x2 * (1.0 / 362880 + x2 * (
+                    -1.0 / 39916800 + x2 * (1.0 / 6227020800 + x2 * (-1.0 / 1307674368000))))))))
+                cs = 1.0 + x2 * (-0.5 + x2 * (1.0 / 24 + x2 * (-1.0 / 720 + x2 * (1.0 / 40320 + x2 * (
+                    -1.0 / 3628800 + x2 * (1.0 / 479001600 + x2 * (-1.0 / 87178291200 + x2 / 20922789888000)))))))
+            else:
+                sn = math.sin(xi)
+                cs = math.cos(xi)
             er = m * cs
             ei = -m * sn
             e2r = er * er - ei * ei
             e2i = 2.0 * er * ei
             dd = 1.0 / ((1.0 + e2r) * (1.0 + e2r) + e2i * e2i)
-            inr = (1.0 + e2r) * dd                  # 1 / (1 + e^-2x)
+            inr = (1.0 + e2r) * dd                      # 1 / (1 + e^-2x)
             ini = -e2i * dd
-            fr = (1.0 - e2r) * inr + e2i * ini      # tanh x = (1 - e^-2x) / (1 + e^-2x)
-            fi = (1.0 - e2r) * ini - e2i * inr
-            # a layer much thinner than its diffusion length: the series (1 - e^-2x cancels)
-            x2r = xr * xr - xi * xi
-            x2i = 2.0 * xr * xi
-            pr_ = 62.0 / 2835.0
-            pi_ = 0.0
-            for cval in (-17.0 / 315.0, 2.0 / 15.0, -1.0 / 3.0, 1.0):
-                tmp = pr_ * x2r - pi_ * x2i + cval
+            if xr * xr + xi * xi < 0.0025:
+                # much thinner than its diffusion length: the series (1 - e^-2x would cancel)
+                x2r = xr * xr - xi * xi
+                x2i = 2.0 * xr * xi
+                pr_ = 62.0 / 2835.0 * x2r - 17.0 / 315.0
+                pi_ = 62.0 / 2835.0 * x2i
+                tmp = pr_ * x2r - pi_ * x2i + 2.0 / 15.0
                 pi_ = pr_ * x2i + pi_ * x2r
                 pr_ = tmp
-            sr_ = pr_ * xr - pi_ * xi
-            si_ = pr_ * xi + pi_ * xr
-            small = 1.0 if xr * xr + xi * xi < 0.0025 else 0.0
-            tr[u, ix] = fr + small * (sr_ - fr)
-            ti[u, ix] = fi + small * (si_ - fi)
+                tmp = pr_ * x2r - pi_ * x2i - 1.0 / 3.0
+                pi_ = pr_ * x2i + pi_ * x2r
+                pr_ = tmp
+                tmp = pr_ * x2r - pi_ * x2i + 1.0
+                pi_ = pr_ * x2i + pi_ * x2r
+                pr_ = tmp
+                tr[u, ix] = pr_ * xr - pi_ * xi
+                ti[u, ix] = pr_ * xi + pi_ * xr
+            else:
+                tr[u, ix] = (1.0 - e2r) * inr + e2i * ini
+                ti[u, ix] = (1.0 - e2r) * ini - e2i * inr
             sr[u, ix] = 2.0 * (er * inr - ei * ini)
             si[u, ix] = 2.0 * (er * ini + ei * inr)
-    # deepest layer that still matters, per wavevector
+    # the deepest layer the wave reaches: below it the sum of Re(x) exceeds the cut-off
     jmax = 0
     for ix in range(nx):
         acc = 0.0
@@ -180,14 +141,15 @@ def _transfer_row(qx, ky, kind, thick, rhoc, k3, kxx, kxy, kyy, coef, omega, h_f
         if last == n - 1:
             ybr[ix] = h_back
             ybi[ix] = 0.0
-        else:                                    # what lies below looks semi-infinite
+        else:                                        # what lies below looks semi-infinite
             ybr[ix] = zr[kind[last + 1], ix]
             ybi[ix] = zi[kind[last + 1], ix]
-    # one pass from the back: Y <- Z (Z T + Y) / (Z + Y T); c <- D c + (D Y - Y_top) g s
+    # admittance recursion from there to the viewed face: Y <- Z (Z T + Y) / (Z + Y T)
     for j in range(jmax, -1, -1):
         u = kind[j]
         for ix in range(nx):
-            keep = 1.0 if j <= stop[ix] else 0.0
+            if j > stop[ix]:
+                continue
             a_r = zr[u, ix]
             a_i = zi[u, ix]
             t_r = tr[u, ix]
@@ -197,7 +159,7 @@ def _transfer_row(qx, ky, kind, thick, rhoc, k3, kxx, kxy, kyy, coef, omega, h_f
             den_r = a_r + b_r * t_r - b_i * t_i
             den_i = a_i + b_r * t_i + b_i * t_r
             q = 1.0 / (den_r * den_r + den_i * den_i)
-            w_r = (a_r * den_r + a_i * den_i) * q    # Z / (Z + Y tanh)
+            w_r = (a_r * den_r + a_i * den_i) * q        # Z / (Z + Y tanh)
             w_i = (a_i * den_r - a_r * den_i) * q
             p_r = a_r * t_r - a_i * t_i + b_r
             p_i = a_r * t_i + a_i * t_r + b_i
@@ -207,32 +169,42 @@ def _transfer_row(qx, ky, kind, thick, rhoc, k3, kxx, kxy, kyy, coef, omega, h_f
             d_i = sr[u, ix] * w_i + si[u, ix] * w_r
             o_r = d_r * b_r - d_i * b_i - yt_r
             o_i = d_r * b_i + d_i * b_r - yt_i
-            # below the cut-off: c unchanged (D = 1, source 0), Y unchanged
-            dvr[ix] = 1.0 + keep * (d_r - 1.0)
-            dvi[ix] = keep * d_i
-            ogr[ix] = keep * (o_r * gr[u, ix] - o_i * gi[u, ix])
-            ogi[ix] = keep * (o_r * gi[u, ix] + o_i * gr[u, ix])
-            ybr[ix] = b_r + keep * (yt_r - b_r)
-            ybi[ix] = b_i + keep * (yt_i - b_i)
-        for c in range(n_chan):
-            k = coef[j, c]
-            for ix in range(nx):
-                c_r = cr[c, ix]
-                c_i = ci[c, ix]
-                cr[c, ix] = dvr[ix] * c_r - dvi[ix] * c_i + ogr[ix] * k
-                ci[c, ix] = dvr[ix] * c_i + dvi[ix] * c_r + ogi[ix] * k
-    # H = -c / (Y + h_front)
+            dr[j, ix] = d_r
+            di[j, ix] = d_i
+            wr[j, ix] = o_r * gr[u, ix] - o_i * gi[u, ix]  # own contribution times g
+            wi[j, ix] = o_r * gi[u, ix] + o_i * gr[u, ix]
+            ybr[ix] = yt_r
+            ybi[ix] = yt_i
+    # weights -(prod D) own g / (Y(0) + h_front), contracted with the coefficients
     for ix in range(nx):
         s_r = ybr[ix] + h_front
         s_i = ybi[ix]
         q = -1.0 / (s_r * s_r + s_i * s_i)
-        sc_r = s_r * q
-        sc_i = -s_i * q
-        for c in range(n_chan):
-            h_r = cr[c, ix] * sc_r - ci[c, ix] * sc_i
-            h_i = cr[c, ix] * sc_i + ci[c, ix] * sc_r
-            cr[c, ix] = h_r
-            ci[c, ix] = h_i
+        pr = s_r * q
+        pi = -s_i * q
+        # H_c = sum_j a_j coef[j, c], so sum_c H_c spec_c = sum_j a_j S_j, S_j = sum_c coef[j, c] spec_c
+        rr = 0.0
+        ri = 0.0
+        ir = 0.0
+        ii = 0.0
+        for j in range(stop[ix] + 1):
+            a_r = pr * wr[j, ix] - pi * wi[j, ix]
+            a_i = pr * wi[j, ix] + pi * wr[j, ix]
+            s_r = 0.0
+            s_i = 0.0
+            for c in range(n_chan):
+                v = spec[c, ix]
+                s_r += coef[j, c] * v.real
+                s_i += coef[j, c] * v.imag
+            rr += a_r * s_r
+            ri += a_r * s_i
+            ir += a_i * s_r
+            ii += a_i * s_i
+            npr = pr * dr[j, ix] - pi * di[j, ix]
+            pi = pr * di[j, ix] + pi * dr[j, ix]
+            pr = npr
+        out_re[ix] = complex(rr, ri)
+        out_im[ix] = complex(ir, ii)
 
 
 @njit(cache=True, nogil=True, parallel=True, fastmath=_FM)
@@ -255,46 +227,32 @@ def surface_spectrum(qx, qy, kind, thick, rhoc, k3, kxx, kxy, kyy, coef, omega, 
     """
     ny = qy.shape[0]
     nx = qx.shape[0]
-    n_chan = coef.shape[1]
     for iy in prange(ny):
         ky = qy[iy]
-        h_re = np.empty((n_chan, nx))
-        h_im = np.empty((n_chan, nx))
         _transfer_row(qx, ky, kind, thick, rhoc, k3, kxx, kxy, kyy, coef, omega, h_front, h_back,
-                      h_re, h_im)
-        signs_y = 2 if iy == nyquist_row else 1
-        if signs_y == 2:
-            a_re = np.empty((n_chan, nx))
-            a_im = np.empty((n_chan, nx))
+                      spec[:, iy, :], out_re[iy], out_im[iy])
+        if iy == nyquist_row:
+            a_re = np.empty(nx, np.complex128)
+            a_im = np.empty(nx, np.complex128)
             _transfer_row(qx, -ky, kind, thick, rhoc, k3, kxx, kxy, kyy, coef, omega, h_front, h_back,
-                          a_re, a_im)
-            for c in range(n_chan):
-                for ix in range(nx):
-                    h_re[c, ix] = 0.5 * (h_re[c, ix] + a_re[c, ix])
-                    h_im[c, ix] = 0.5 * (h_im[c, ix] + a_im[c, ix])
+                          spec[:, iy, :], a_re, a_im)
+            for ix in range(nx):
+                out_re[iy, ix] = 0.5 * (out_re[iy, ix] + a_re[ix])
+                out_im[iy, ix] = 0.5 * (out_im[iy, ix] + a_im[ix])
         if nyquist_x:
+            # the last column stands for +pi and -pi: the mean over every alias of the bin
             last = nx - 1
-            b_re = np.empty((n_chan, 1))
-            b_im = np.empty((n_chan, 1))
             mx = np.empty(1)
             mx[0] = -qx[last]
-            acc_r = np.zeros(n_chan)
-            acc_i = np.zeros(n_chan)
-            for sy in range(signs_y):
-                _transfer_row(mx, ky if sy == 0 else -ky, kind, thick, rhoc, k3, kxx, kxy, kyy, coef,
-                              omega, h_front, h_back, b_re, b_im)
-                for c in range(n_chan):
-                    acc_r[c] += b_re[c, 0]
-                    acc_i[c] += b_im[c, 0]
-            for c in range(n_chan):
-                h_re[c, last] = 0.5 * (h_re[c, last] + acc_r[c] / signs_y)
-                h_im[c, last] = 0.5 * (h_im[c, last] + acc_i[c] / signs_y)
-        for ix in range(nx):
-            acc_re = complex(0.0, 0.0)
-            acc_im = complex(0.0, 0.0)
-            for c in range(n_chan):
-                s = spec[c, iy, ix]
-                acc_re += h_re[c, ix] * s
-                acc_im += h_im[c, ix] * s
-            out_re[iy, ix] = acc_re
-            out_im[iy, ix] = acc_im
+            b_re = np.empty(1, np.complex128)
+            b_im = np.empty(1, np.complex128)
+            n_signs = 2 if iy == nyquist_row else 1
+            sum_re = complex(0.0, 0.0)
+            sum_im = complex(0.0, 0.0)
+            for k in range(n_signs):
+                _transfer_row(mx, ky if k == 0 else -ky, kind, thick, rhoc, k3, kxx, kxy, kyy, coef, omega,
+                              h_front, h_back, spec[:, iy, last:], b_re, b_im)
+                sum_re += b_re[0]
+                sum_im += b_im[0]
+            out_re[iy, last] = 0.5 * (out_re[iy, last] + sum_re / n_signs)
+            out_im[iy, last] = 0.5 * (out_im[iy, last] + sum_im / n_signs)
