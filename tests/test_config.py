@@ -38,6 +38,7 @@ frames = "ir/oh1.npy"
 frame_rate = "200 Hz"
 [run.dic]
 strain_ranges = "dic/oh1.csv"
+coordinates = "px"                 # 'identity': the file's x, y are IR [col, row]
 '''
 
 
@@ -276,4 +277,5 @@ def test_readme_example_config_is_valid():
 
 def test_demo_config_is_valid():
     cfg = load_config(ROOT / "configs" / "demo.toml")
-    assert len(cfg.runs) == 7 and set(cfg.laminates) == {"carbon_qi_resin", "carbon_cross", "glass_painted"}
+    assert len(cfg.runs) == 8 and set(cfg.laminates) == {"carbon_qi_resin", "carbon_cross", "glass_painted"}
+    assert [cfg.lateral_heat_for(r) for r in cfg.runs].count("beside") == 1

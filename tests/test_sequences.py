@@ -424,6 +424,7 @@ frames = "ir.npy"
 frame_rate = "50 Hz"
 [run.dic]
 {dic}
+{"" if "coordinates" in dic else 'coordinates = "px"'}
 ''')
     return load_config(tmp_path / "c.toml").runs[0].dic
 
@@ -455,6 +456,7 @@ frequency = "5 Hz"
 {thermal}
 [run.dic]
 strain_ranges = "strain.csv"
+coordinates = "px"
 ''')
     return tmp_path / "c.toml"
 

@@ -39,11 +39,13 @@ REFERENCES = TESTS.parent / "docs" / "references.md"
 
 PHYSICS_MODULES = frozenset({
     "test_clt.py", "test_materials.py", "test_predict.py", "test_heat.py",      # mechanics, heat
+    "test_lateral.py", "test_lateral_run.py",
     "test_lockin.py", "test_signals.py", "test_motion.py",                      # thermal side
     "test_dic_correlate.py", "test_dic_strain.py", "test_dic_ranges.py",        # correlation side
     "test_dic_speckle.py", "test_dic_api.py",
     "test_dic_noise.py", "test_dic_edges.py", "test_dic_resolution.py", "test_dic_settings.py",
     "test_register.py", "test_camera.py", "test_fiducials.py",                  # registration
+    "test_registration_rule.py", "test_registration_checks.py", "test_register_quality.py",
     "test_diagnose.py", "test_sweep.py", "test_plan.py",                        # diagnosis, sweep, plan
     "test_demo.py", "test_end_to_end.py",                                       # whole runs
     "test_input_units.py", "test_frequency_from_load.py", "test_stack_sanity.py",  # input checks
@@ -74,6 +76,9 @@ OTHER_MODULES = {
     "test_import_graph.py": "the import structure of the package",
     "test_report_resolution.py": "resolution attributes through result.nc, summary.json and the report",
     "test_campaign_products.py": "frequency.nc, the band sentences and the report of a small campaign",
+    "test_ownership.py": "what in an output folder is fusion's: publishing, recovery, refusals",
+    "test_progress.py": "the progress display",
+    "test_quoting.py": "file content quoted in messages",
 }
 
 LIBRARIES = r"numpy|scipy|scikit-image|skimage|opencv|cv2"

@@ -10,7 +10,11 @@ __all__ = ["RunOutcome", "CampaignOutcome"]
 
 @dataclasses.dataclass
 class RunOutcome:
-    """What became of one run: ``status`` is "done", "skipped" or "failed"."""
+    """What became of one run: ``status`` is "done", "skipped" or "failed".
+
+    ``digests`` holds the input digests the run's process computed (for the output
+    folder's digest cache, kept by the campaign process).
+    """
 
     name: str
     status: str
@@ -18,6 +22,7 @@ class RunOutcome:
     error: str | None = None
     seconds: float = 0.0
     summary: dict | None = None
+    digests: dict | None = None
 
 
 @dataclasses.dataclass
@@ -45,6 +50,9 @@ class CampaignOutcome:
             else:
                 verdict = (r.summary or {}).get("verdict", "")
                 lines.append(f"  done    {r.name} ({r.seconds:.1f} s){': ' + verdict if verdict else ''}")
+                # registration warnings change what the verdict means: shown here, not only in the report
+                lines += [f"          warning ({w['code']}): {w['message']}"
+                          for w in (r.summary or {}).get("warnings", ()) if w["code"].startswith("registration")]
         for e in self.campaign_errors:
             lines.append(f"  FAILED  campaign: {e}")
         n_fail = sum(r.status == "failed" for r in self.runs)

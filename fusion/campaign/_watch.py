@@ -33,11 +33,11 @@ from ..config import load_config
 from ..errors import FusionError
 from ..io import file_identity
 from ..run import input_state
-from ._folders import _remove_partials, campaign_lock, check_campaign_targets
+from ._folders import campaign_lock, check_campaign_targets, recover
 from ._outcome import RunOutcome
 from ._process import process_run
 from ._products import write_campaign
-from ._provenance import read_stamp, read_summary, run_stamp
+from ._provenance import DigestCache, read_stamp, run_stamp
 
 log = logging.getLogger(__name__)
 
@@ -46,27 +46,26 @@ __all__ = ["watch_campaign", "refresh_products"]
 _PR_SET_PDEATHSIG = 1
 
 
-def refresh_products(config_path, out, failures=None):
+def refresh_products(config_path, out, failures=None, outcomes=()):
     """Rebuild the campaign products (report.html, frequency.nc) from the result folders on disk.
 
-    Returns the report's path (None without one) and an error sentence (None when written).
+    ``failures`` ({run name: error}) and ``outcomes`` (of runs just processed) are reported
+    with them. Returns the report's path (None without one) and an error sentence (None
+    when written). The caller holds the campaign lock.
     """
     out = Path(out)
     try:
         cfg = load_config(config_path)
-        outcomes = []
-        for run in cfg.runs:
-            folder = out / run.name
-            summary = read_summary(folder) if folder.is_dir() and not folder.is_symlink() else None
-            if summary is not None:
-                outcomes.append(RunOutcome(run.name, "done", folder, summary=summary))
-            elif run.name in (failures or {}):
-                outcomes.append(RunOutcome(run.name, "failed", error=failures[run.name]))
+        known = {o.name for o in outcomes}
+        listed = list(outcomes) + [RunOutcome(n, "failed", error=e) for n, e in (failures or {}).items()
+                                   if n not in known]
         check_campaign_targets(out)
-        report = write_campaign(cfg, out, outcomes, overwrite=True)[1]
+        report = write_campaign(cfg, out, listed, digests=DigestCache.load(out))[1]
         return report, None
     except FusionError as e:
         return None, str(e)
+    except OSError as e:
+        return None, f"{e.filename or out}: {e.strerror or e} (that file left as it was)"
 
 
 def _child_start(parent: int, level: int) -> None:
@@ -94,9 +93,8 @@ def _process_and_refresh(config_path, run_name, out, overwrite, failures):
     signal.signal(signal.SIGINT, signal.default_int_handler)
     try:
         outcome = process_run(config_path, run_name, out, overwrite=overwrite)
-        if outcome.status == "failed":
-            failures = {**failures, run_name: outcome.error}
-        report, error = refresh_products(config_path, out, failures)
+        failures = {n: e for n, e in failures.items() if n != run_name}
+        report, error = refresh_products(config_path, out, failures, [outcome])
     finally:
         signal.signal(signal.SIGINT, signal.SIG_IGN)
     return outcome, report, error
@@ -125,6 +123,8 @@ class _Watcher:
         self.config_id = None
         self.runs: dict[str, _RunWatch] = {}
         self.failures: dict[str, str] = {}
+        # input digests by file identity: an unchanged file is hashed once (kept in the output folder)
+        self.digests = DigestCache.load(self.out)
 
     def _say(self, text):
         self.emit(f"{time.strftime('%H:%M:%S')} {text}")
@@ -173,7 +173,7 @@ class _Watcher:
             if w.stamped != (self.config_id, state.signature):
                 # the stamp lists and reads every input: only when something changed
                 try:
-                    w.stamp = run_stamp(self.cfg, run)
+                    w.stamp = run_stamp(self.cfg, run, digests=self.digests)
                 except FusionError as e:
                     w.stamp = f"error:{e}"
                 w.stamped = (self.config_id, state.signature)
@@ -190,6 +190,10 @@ class _Watcher:
 
     def finished(self, name, stamp, outcome, report, error):
         self.runs[name].processed = stamp
+        try:
+            self.digests.save(self.out)
+        except OSError as e:
+            log.warning("cannot keep the input digests in %s (%s)", self.out, e.strerror or e)
         if outcome.status == "failed":
             self.failures[name] = outcome.error
             self._say(f"FAILED  {name}: {outcome.error}")
@@ -223,7 +227,7 @@ def _stop_child(executor, future, out, grace=30.0):
         if p.is_alive():
             p.kill()
             p.join()
-    _remove_partials(out)
+    recover(out)
 
 
 def _in_child(config_path, name, out, overwrite, failures):

@@ -9,12 +9,15 @@ import tomllib
 from dataclasses import dataclass
 from pathlib import Path
 
+import numpy as np
+
 from ..errors import ConfigError
 from ..mechanics import (
     IsotropicMaterial, Laminate, LayupError, MaterialError, OrthotropicMaterial, Ply,
     SurfaceLayer, parse_layup,
 )
-from . import _schema as s
+from ..register import check_handedness, fit_transform
+from . import _schema
 from ._schema import Context
 from ._sections import (CampaignSpec, ComputeSpec, DiagnosisSpec, IsotropicSpec, LaminateSpec, LayerRef,
                         OrthotropicSpec, OutputSpec, PlanSpec, RegistrationSpec, RunSpec, TopLevel, run_key)
@@ -56,6 +59,10 @@ class Config:
     def registration_for(self, run: RunSpec) -> RegistrationSpec | None:
         return run.registration or self.registration
 
+    def lateral_heat_for(self, run: RunSpec) -> str:
+        """'off', 'beside' or 'instead': the run's ``lateral_heat``, else ``diagnosis.lateral_heat``."""
+        return run.lateral_heat or self.diagnosis.lateral_heat
+
     def output_folder(self, override=None) -> Path:
         if override is not None:
             return Path(override)
@@ -74,7 +81,11 @@ def _read_toml(path: Path, key_name: str, ctx: Context | None) -> tuple[dict, st
         if size > _MAX_CONFIG_BYTES:
             raise ConfigError(key_name, f"{str(path)!r} is {size} bytes; a config is at most "
                               f"{_MAX_CONFIG_BYTES} bytes", source=where)
-        raw = path.read_bytes()
+        with open(path, "rb") as fh:
+            raw = fh.read(_MAX_CONFIG_BYTES + 1)   # a file that grew since: still bounded
+        if len(raw) > _MAX_CONFIG_BYTES:
+            raise ConfigError(key_name, f"{str(path)!r} is more than {_MAX_CONFIG_BYTES} bytes; a config "
+                              f"is at most {_MAX_CONFIG_BYTES} bytes", source=where)
     except FileNotFoundError as e:
         raise ConfigError(key_name, f"file {str(path)!r} does not exist", source=where) from e
     except PermissionError as e:
@@ -118,7 +129,7 @@ def loads_config(text: str, *, base=".") -> Config:
 
 def _validate(doc: dict, text: str, path: Path | None, *, base: Path | None = None) -> Config:
     ctx = Context(source=str(path) if path else None, base=(path.parent if path else base or Path(".")))
-    top = s.build(TopLevel, doc, "", ctx)
+    top = _schema.build(TopLevel, doc, "", ctx)
 
     raw_materials: dict = {}
     library = top.material_library
@@ -143,7 +154,7 @@ def _validate(doc: dict, text: str, path: Path | None, *, base: Path | None = No
         if not re.fullmatch(r"[A-Za-z0-9_.\-]{1,60}", name):
             raise ConfigError(f"laminates.{name}", "laminate names use letters, digits, - _ . only",
                               source=ctx.source)
-        laminate_specs[name] = (f"laminates.{name}", s.build(LaminateSpec, table, f"laminates.{name}", ctx))
+        laminate_specs[name] = (f"laminates.{name}", _schema.build(LaminateSpec, table, f"laminates.{name}", ctx))
     laminates = {name: _laminate(name, spec, k, materials, ctx) for name, (k, spec) in laminate_specs.items()}
 
     if not isinstance(top.run, (list, tuple)):
@@ -152,7 +163,7 @@ def _validate(doc: dict, text: str, path: Path | None, *, base: Path | None = No
     for i, table in enumerate(top.run):
         # messages name the run as the user wrote it, not by its place in the file
         where = run_key(table.get("name") if isinstance(table, dict) else None, i)
-        run = s.build(RunSpec, table, where, ctx)
+        run = _schema.build(RunSpec, table, where, ctx)
         low = run.name.lower()
         if low in seen:
             raise ConfigError(f"{where}.name", f"{run.name!r} is used by run {seen[low]!r} already "
@@ -168,11 +179,14 @@ def _validate(doc: dict, text: str, path: Path | None, *, base: Path | None = No
                               f"{sorted(k for k in laminates if k != 'default')}", source=ctx.source)
         if run.registration is None and top.registration is None:
             raise ConfigError(f"{where}.registration", "no [registration] for this run and none at "
-                              "the top level (use method = \"identity\" if the grids coincide)",
-                              source=ctx.source)
+                              "the top level (use method = \"identity\" if the correlation data are "
+                              "already on the IR pixel grid)", source=ctx.source)
+        _check_registration(run, i, top.registration, ctx)
         runs.append(run)
 
     diagnosis = top.diagnosis or DiagnosisSpec()
+    for i, run in enumerate(runs):
+        _check_lateral(run, i, diagnosis, run.registration or top.registration, ctx)
     region_names = [r.name for r in diagnosis.regions]
     if len(set(region_names)) != len(region_names):
         raise ConfigError("diagnosis.regions", "region names must be unique", source=ctx.source)
@@ -189,6 +203,79 @@ def _validate(doc: dict, text: str, path: Path | None, *, base: Path | None = No
                   laminates=laminates, runs=tuple(runs), registration=top.registration,
                   diagnosis=diagnosis, compute=top.compute or ComputeSpec(),
                   output=top.output or OutputSpec(), plan=plan, material_sources=material_sources)
+
+
+def _check_registration(run, i, top_registration, ctx):
+    """The registration of a run against the coordinates of its correlation data."""
+    reg = run.registration or top_registration
+    where = run_key(run.name, i)
+    rk = f"{where}.registration" if run.registration is not None else "registration"
+    d = run.dic
+    images = d.images is not None
+    if reg.method == "identity" and not images:
+        if d.coordinates != "px":
+            raise ConfigError(f"{where}.dic.coordinates", f"method 'identity' takes the file's x, y as IR "
+                              f"pixels [col, row], but the file is in {d.coordinates!r}; set coordinates = "
+                              "\"px\" if it is on the IR pixel grid, else register it with control points "
+                              "(method 'similarity', 'affine' or 'homography')", source=ctx.source)
+        if d.effective_y_axis == "up" and not reg.ir_mirrored:
+            raise ConfigError(f"{where}.dic.y_axis", "method 'identity' takes the file's y as the IR row, "
+                              "which counts down, but y_axis = \"up\": that would mirror the field; set "
+                              "y_axis = \"down\" if y counts image rows (or ir_mirrored = true if the IR "
+                              "image really is mirrored)", source=ctx.source)
+    if reg.method == "camera" and images:
+        raise ConfigError(f"{rk}.method", "method 'camera' needs 3D correlation points (x, y, z); images "
+                          "correlated here give 2D fields: use 'homography'", source=ctx.source)
+    if reg.dic_points_units is not None:
+        if images and reg.dic_points_units == "mm" and d.pixel_size is None:
+            raise ConfigError(f"{rk}.dic_points_units", "'mm' on images means [col, row] times "
+                              "dic.pixel_size, which is not given; give pixel_size or the points in "
+                              "px", source=ctx.source)
+        if not images and reg.dic_points_units != d.coordinates:
+            raise ConfigError(f"{rk}.dic_points_units", f"is {reg.dic_points_units!r} but the correlation "
+                              f"file of run {run.name!r} is in {d.coordinates!r} (dic.coordinates); control "
+                              "points are written in the file's own coordinates", source=ctx.source)
+    if reg.method in ("similarity", "affine", "homography") and reg.dic_points is not None:
+        _check_points(reg, rk, d, ctx)
+
+
+def _check_points(reg, rk, dic, ctx):
+    """Control points that a plane transform cannot fit, or that mirror the field, are refused
+    here, before any data is read (the run checks again on its data)."""
+    pts = np.asarray([p[:2] for p in reg.dic_points], float)
+    if any(len(p) != 2 for p in reg.dic_points):
+        raise ConfigError(f"{rk}.dic_points", f"method {reg.method!r} needs [x, y] points; [x, y, z] "
+                          "points are for method 'camera'", source=ctx.source)
+    m = dic.to_specimen(reg.dic_points_units)
+    src = pts * np.diag(m)[:2]
+    try:
+        t = fit_transform(src, np.asarray(reg.ir_points, float), method=reg.method,
+                          ransac_threshold=reg.ransac_threshold, warn_limit=None)
+    except ValueError as e:
+        raise ConfigError(f"{rk}.dic_points", str(e), source=ctx.source) from e
+    try:
+        check_handedness(t.jacobian(src[t.inliers]), mirrored=reg.ir_mirrored, method=reg.method)
+    except ValueError as e:
+        raise ConfigError(f"{rk}.ir_points", str(e), source=ctx.source) from e
+
+
+def _check_lateral(run, i, diagnosis, registration, ctx):
+    """The lateral heat model needs the infrared pixel on the specimen: mm and a 2-D registration."""
+    if (run.lateral_heat or diagnosis.lateral_heat) == "off":
+        return
+    rk = run_key(run.name, i)
+    where = f"{rk}.lateral_heat" if run.lateral_heat else "diagnosis.lateral_heat"
+    if registration.method == "camera":
+        raise ConfigError(f"{rk}.registration.method", f"{where} needs a 2-D registration (homography, "
+                          "affine, similarity, identity or fiducials) to know the infrared pixel on the "
+                          "specimen, not 'camera'", source=ctx.source)
+    d = run.dic
+    in_mm = d.pixel_size is not None if d.images is not None else d.coordinates == "mm"
+    if not in_mm:
+        key = "dic.pixel_size" if d.images is not None else "dic.coordinates"
+        raise ConfigError(f"{rk}.{key}", f"{where} needs the size of an infrared pixel on the specimen: "
+                          "give the correlation coordinates in mm (dic.coordinates = \"mm\", or dic.pixel_size "
+                          "for speckle images)", source=ctx.source)
 
 
 def _table(value, k, ctx) -> dict:
@@ -209,7 +296,7 @@ def _material(name, table, ctx):
         raise ConfigError(k, "expected an orthotropic ply (E1 E2 G12 nu12 alpha1 alpha2 density "
                           "specific_heat k1 k2 k3) or an isotropic material (E nu alpha density "
                           "specific_heat k)", source=ctx.source)
-    spec = s.build(spec_cls, table, k, ctx)
+    spec = _schema.build(spec_cls, table, k, ctx)
     values = {f.name: getattr(spec, f.name) for f in dataclasses.fields(spec) if f.name != "source"}
     try:
         return cls(name=name, **values), spec.source

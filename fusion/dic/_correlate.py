@@ -9,7 +9,8 @@ from numbers import Integral, Real
 import numpy as np
 from numba import njit
 
-from . import _icgn as K
+from .._progress import Progress
+from . import _icgn
 from ._field import DicField
 from ._seed import global_shift, integer_search
 from ._subset_noise import translation_std
@@ -17,7 +18,7 @@ from ._subset_noise import translation_std
 __all__ = ["CorrelationResult", "correlate", "REASON_CODES", "DEFAULT_SUBSET", "DEFAULT_STEP",
            "DEFAULT_WINDOW"]
 
-REASON_CODES = K.REASON_CODES
+REASON_CODES = _icgn.REASON_CODES
 
 _PROPAGATIONS = ("reliability", "seeded")
 _TODO, _GOOD, _FAILED, _EXCLUDED = 0, 1, 2, 3
@@ -85,7 +86,7 @@ class CorrelationResult:
     @property
     def valid(self) -> np.ndarray:
         """Points with a good solution, ``reason == 0``."""
-        return self.reason == K.OK
+        return self.reason == _icgn.OK
 
     def to_field(self, *, pixel_size=None) -> DicField:
         """The displacement field in the specimen frame (x right, y up).
@@ -216,33 +217,34 @@ class _Solver:
 
     def __init__(self, ref, deformed, mask, rows, cols, half, opts):
         self.ref, self.deformed, self.mask = ref, deformed, mask
-        self.coef = K.prefilter(deformed)
-        self.gx, self.gy = K.reference_gradients(K.prefilter(ref))
+        self.coef = _icgn.prefilter(deformed)
+        self.gx, self.gy = _icgn.reference_gradients(_icgn.prefilter(ref))
         self.rows, self.cols, self.half, self.opts = rows, cols, half, opts
         shape = rows.shape
         self.p = np.full(shape + (6,), np.nan)
         self.zncc = np.full(shape, np.nan)
         self.iters = np.zeros(shape, dtype=np.int32)
-        self.reason = np.full(shape, K.UNREACHED, dtype=np.int8)
+        self.reason = np.full(shape, _icgn.UNREACHED, dtype=np.int8)
         self.sssig = np.full(shape + (2,), np.nan)
         self.noise = np.full(shape + (4,), np.nan)
         self.status = np.full(shape, _TODO, dtype=np.int8)
         outside = ~mask[rows, cols]
         self.status[outside] = _EXCLUDED
-        self.reason[outside] = K.OUTSIDE_ROI
+        self.reason[outside] = _icgn.OUTSIDE_ROI
         # flat subsets (saturated or painted-over areas) can neither seed nor guide:
         # flag them before propagation instead of letting them fail one by one
         var = _box_variance(ref, rows, cols, half)
         flat = ~outside & (var <= 1e-10 * max(float(ref.var()), 1e-300))
         self.status[flat] = _EXCLUDED
-        self.reason[flat] = K.LOW_CONTRAST
+        self.reason[flat] = _icgn.LOW_CONTRAST
+        self.bar = None       # a Progress of the points solved, when one is shown
 
     def refine(self, flat, p0):
         """IC-GN on the flat grid indices ``flat`` from guesses ``p0``; returns good flags."""
         o = self.opts
         r = self.rows.ravel()[flat].astype(np.int64)
         c = self.cols.ravel()[flat].astype(np.int64)
-        p, z, it, reason, ss, noise = K.icgn_batch(
+        p, z, it, reason, ss, noise = _icgn.icgn_batch(
             self.ref, self.gx, self.gy, self.coef, self.mask, r, c,
             np.ascontiguousarray(p0, dtype=np.float64), self.half, o["max_iterations"],
             o["tolerance"], o["min_zncc"], o["min_fill"])
@@ -254,8 +256,10 @@ class _Solver:
         self.reason[ii, jj] = reason
         self.sssig[ii, jj] = ss
         self.noise[ii, jj] = noise
-        good = reason == K.OK
+        good = reason == _icgn.OK
         self.status[ii, jj] = np.where(good, _GOOD, _FAILED)
+        if self.bar is not None:
+            self.bar.advance_to(int(np.count_nonzero((self.status == _GOOD) | (self.status == _FAILED))))
         return good
 
     def seed(self, flat, centre):
@@ -271,7 +275,7 @@ class _Solver:
             if not z >= o["min_zncc"] * 0.5:  # a loose gate: IC-GN decides
                 keep[k] = False
                 self.status[i, j] = _FAILED
-                self.reason[i, j] = K.SEED_FAILED
+                self.reason[i, j] = _icgn.SEED_FAILED
                 self.zncc[i, j] = z
         if keep.any():
             good = self.refine(flat[keep], p0[keep])
@@ -280,11 +284,11 @@ class _Solver:
             weak = good & ~(z >= max(o["min_zncc"], _SEED_ZNCC))
             wi, wj = np.divmod(flat[keep][weak], self.rows.shape[1])
             self.status[wi, wj] = _FAILED
-            self.reason[wi, wj] = K.SEED_FAILED
+            self.reason[wi, wj] = _icgn.SEED_FAILED
             good &= ~weak
             bad = flat[keep][~good]
             bi, bj = np.divmod(bad, self.rows.shape[1])
-            self.reason[bi, bj] = np.where(self.reason[bi, bj] == K.OK, K.SEED_FAILED,
+            self.reason[bi, bj] = np.where(self.reason[bi, bj] == _icgn.OK, _icgn.SEED_FAILED,
                                            self.reason[bi, bj])
             return flat[keep][good]
         return flat[:0]
@@ -331,7 +335,7 @@ def _seed_candidates(status, count):
 def correlate(reference, deformed, *, subset=DEFAULT_SUBSET, step=DEFAULT_STEP, roi=None,
               seed_points=None,
               max_iterations=50, tolerance=1e-4, min_zncc=0.8, propagation="reliability",
-              search=None, min_fill=0.6):
+              search=None, min_fill=0.6, progress=False):
     """Displacements between two speckle images by subset correlation.
 
     Parameters
@@ -373,6 +377,9 @@ def correlate(reference, deformed, *, subset=DEFAULT_SUBSET, step=DEFAULT_STEP, 
         shift found by phase correlation; default ``max(subset, 16)``.
     min_fill : float
         Fraction of a subset's pixels that must lie inside the mask.
+    progress : bool
+        Points solved so far: a bar on stderr when it is a terminal, else a line at
+        every quarter.
 
     Returns
     -------
@@ -479,6 +486,8 @@ def correlate(reference, deformed, *, subset=DEFAULT_SUBSET, step=DEFAULT_STEP, 
     else:
         count = 4 if propagation == "reliability" else max(3, min(8, min(ny, nx) // 4))
         seeds = _seed_candidates(solver.status, count)
+    solver.bar = Progress(int(np.count_nonzero(solver.status == _TODO)), desc="correlation", unit="points",
+                          enabled=progress)
     good = solver.seed(seeds, centre)
     if good.size == 0 and seed_points is None:
         good = solver.seed(_seed_candidates(solver.status, 6), centre)
@@ -505,16 +514,17 @@ def correlate(reference, deformed, *, subset=DEFAULT_SUBSET, step=DEFAULT_STEP, 
         picks = rest[np.linspace(0, rest.size - 1, min(4, rest.size)).astype(np.int64)]
         solver.seed(np.unique(picks), centre)
     left = solver.status == _TODO
-    solver.reason[left] = K.UNREACHED
+    solver.reason[left] = _icgn.UNREACHED
+    solver.bar.close()
 
-    good_mask = solver.reason == K.OK
+    good_mask = solver.reason == _icgn.OK
     p = np.where(good_mask[..., None], solver.p, np.nan)
     attrs = dict(subset=subset, step=step, propagation=propagation, tolerance=float(tolerance),
                  max_iterations=max_iterations, min_zncc=float(min_zncc),
                  image_shape=(h, w), global_shift=centre,
                  method="IC-GN, first-order shape function, bicubic B-spline interpolation, "
                         "zero-normalised criterion")
-    converged = np.isin(solver.reason, (K.OK, K.LOW_ZNCC))
+    converged = np.isin(solver.reason, (_icgn.OK, _icgn.LOW_ZNCC))
     nz = solver.noise
     u_std, v_std = translation_std(np.where(good_mask, solver.zncc, np.nan), nz[..., 2], nz[..., 3],
                                    nz[..., 0], nz[..., 1], p[..., 0], p[..., 3])

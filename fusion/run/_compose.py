@@ -23,8 +23,9 @@ from ..mechanics import ply_profile
 from ..thermal import motion_amplitude
 from ._files import need_file
 from ._inputs import reference_image_path
+from ._lateral import ir_pixel_axes
 from ._predictions import predictions
-from ._registration import refine_registration, registration_side
+from ._registration import check_footprint, motion_support, refine_registration, registration_side
 from ._strain import strain_side
 from ._thermal import motion_field, run_load_range, thermal_side
 
@@ -34,7 +35,7 @@ __all__ = ["compute_run", "RunResult"]
 
 # maps that keep their values outside the valid area (T0 shows the whole scene; the flags
 # and probabilities have their own no-data coding; source_tie is 0 there)
-_KEEP_OUTSIDE = ("source_layer", "source_tie", "valid", "source_probability", "T0")
+_KEEP_OUTSIDE = ("source_layer", "source_tie", "valid", "source_probability", "T0", "lateral_edge")
 
 
 @dataclasses.dataclass
@@ -56,7 +57,7 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
     warnings: list[str] = []
 
     load_range = run_load_range(run)
-    ranges, disp = strain_side(run, load_range=load_range)
+    ranges, disp = strain_side(run, load_range=load_range, progress=progress)
 
     budget = cfg.compute.memory_budget
     thermal, t_valid, t_info, _ = thermal_side(run, budget=budget, progress=progress)
@@ -64,31 +65,34 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
     warnings += t_info.get("warnings", [])
     ir_shape = thermal["T0"].shape
 
-    smaps, inside, reg_report, reg_warn, transform = registration_side(run, reg, ranges, ir_shape,
-                                                                       thermal["T0"])
-    warnings += reg_warn
-    if reg.refine and transform is not None:
-        smaps, inside, reg_report, transform = refine_registration(run, reg, ranges, lam, thermal, t_valid,
-                                                                   smaps, inside, reg_report, transform,
-                                                                   warnings)
+    registered = registration_side(run, reg, ranges, ir_shape, thermal["T0"])
+    if reg.refine and registered.transform is not None:
+        registered = refine_registration(run, reg, ranges, lam, thermal, t_valid, registered, warnings)
+    warnings += registered.warnings
+    smaps, inside, reg_report, transform = (registered.maps, registered.inside, registered.report,
+                                            registered.transform)
     if run.thermal.motion_compensation:
-        thermal, t_valid, t_info = _motion_compensated(run, budget, disp, transform, load_range, ir_shape,
-                                                       progress)
+        thermal, t_valid, t_info, motion = _motion_compensated(run, budget, disp, transform, load_range,
+                                                               ir_shape, progress)
+        inside = inside & motion_support(registered, motion, load_range)
 
     strain = np.moveaxis(smaps[:3], 0, -1).astype(np.float32)          # (Y, X, 3)
     strain_std = np.moveaxis(smaps[3:6], 0, -1).astype(np.float32)
     measured, measured_std, snr, lag, lag_std = _measured(thermal)
-    valid = (t_valid & inside & np.all(np.isfinite(strain), axis=-1) & np.isfinite(measured)
-             & np.isfinite(measured_std) & (snr >= dg.min_snr))
+    thermal_ok = t_valid & np.isfinite(measured) & np.isfinite(measured_std) & (snr >= dg.min_snr)
+    reg_report["footprint"], reg_warn = check_footprint(reg, registered, thermal_ok)
+    warnings += reg_warn
+    valid = thermal_ok & inside & np.all(np.isfinite(strain), axis=-1)
     if not valid.any():
         raise InputError(run.thermal.frames or run.thermal.maps,
                          "no pixel has both usable thermal data and strain data: check the "
                          "registration (points, method) and the signal-to-noise ratio")
 
-    sources = list(dg.sources) if dg.sources else list(SOURCES)
+    sources, axes = _sources(cfg, run, transform, ranges, inside)
     pred, pstd, plag, pinfo = predictions(lam, strain, strain_std, frequency, sources=sources,
-                                          property_uncertainty=dg.property_uncertainty)
-    missing = [s for s in (dg.sources or ()) if s not in pred]
+                                          property_uncertainty=dg.property_uncertainty, pixel_axes=axes)
+    lateral_edge = pinfo.pop("lateral_edge_map", None)
+    missing = [s for s in (dg.sources or ()) if s in sources and s not in pred]
     if missing:
         warnings.append(f"sources {missing} not evaluated: the laminate has no such layer")
 
@@ -101,13 +105,16 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
                         f"{calibration['factor_std']:.3f} on region {dg.calibration.region!r} assumed to "
                         f"show the {calibration['source']}")
 
+    # both heat models mix layers: named only where no layer fits, the lateral one first
     diag = diagnose(measured, measured_std, pred, pstd, valid=valid, measured_lag=lag,
                     measured_lag_std=lag_std, predicted_lag=plag, fit_threshold=dg.fit_threshold,
-                    distinguish=dg.distinguish)
+                    distinguish=dg.distinguish, secondary=("lateral", "model"))
     table = _flat_regions(region_table(measured, diag, pred, regions=regions, valid=valid))
 
     maps = _result_maps(thermal, measured, measured_std, snr, lag, strain, strain_std, smaps[6], pred, pstd,
                         plag, diag, valid)
+    if lateral_edge is not None:
+        maps["lateral_edge"] = lateral_edge.astype(np.int8)
     meta = _meta(run, lam, frequency, reg_report, t_info, ranges, calibration, pinfo, valid)
     attrs = _attrs(cfg, run, meta, reg_report, ranges, pred, calibration)
     ds = result_dataset(maps, attrs=attrs, sources=tuple(pred))
@@ -121,6 +128,18 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
 
 
 # --------------------------------------------------------------------------- steps
+def _sources(cfg, run, transform, ranges, inside):
+    """The candidate sources of a run and, with the lateral heat model, the IR pixel (m)."""
+    dg = cfg.diagnosis
+    sources = list(dg.sources) if dg.sources else [s for s in SOURCES if s != "lateral"]
+    mode = cfg.lateral_heat_for(run)
+    if mode == "off":
+        return sources, None
+    if mode == "instead":
+        sources = [s for s in sources if s != "model"]
+    return sources + ["lateral"], ir_pixel_axes(transform, ranges.units, inside)
+
+
 def _motion_compensated(run, budget, disp, transform, load_range, ir_shape, progress):
     """The thermal side again, on frames warped back by the correlation displacement."""
     if disp is None or transform is None or load_range is None:
@@ -130,7 +149,7 @@ def _motion_compensated(run, budget, disp, transform, load_range, ir_shape, prog
     thermal, t_valid, t_info, _ = thermal_side(run, budget=budget, motion=motion, progress=progress)
     t_info["motion_compensated"] = True
     thermal["motion_amplitude"] = np.asarray(motion_amplitude(motion, load_range), np.float32)
-    return thermal, t_valid, t_info
+    return thermal, t_valid, t_info, motion
 
 
 def _measured(thermal):
@@ -180,8 +199,9 @@ def _result_maps(thermal, measured, measured_std, snr, lag, strain, strain_std, 
     for s in pred:
         maps[f"ratio_{s}"] = pred[s]
         maps[f"ratio_{s}_std"] = pstd[s]
-    if "model" in pred:
-        maps["phase_model"] = plag["model"]
+    for s in ("model", "lateral"):
+        if s in pred:
+            maps[f"phase_{s}"] = plag[s]
     maps.update(diag.to_maps())
     maps["valid"] = valid.astype(np.int8)
     for k, v in list(maps.items()):
@@ -210,6 +230,8 @@ def _meta(run, lam, frequency, reg_report, t_info, ranges, calibration, pinfo, v
         meta["second_harmonic_ratio"] = float(np.nanmedian(np.asarray(harm)[valid]))
     if "pixel_size_mm" in reg_report:
         meta["pixel_size_mm"] = reg_report["pixel_size_mm"]
+    if "footprint" in reg_report:
+        meta["footprint"] = reg_report["footprint"]
     return meta
 
 
@@ -222,7 +244,7 @@ def _attrs(cfg, run, meta, reg_report, ranges, pred, calibration):
         "fusion_version": __version__,
         "run_name": run.name, "specimen": meta["specimen"], "frequency": meta["frequency"],
         "frequency_units": "Hz",
-        "registration_rms": float(reg_report.get("rms", float("nan"))),
+        "registration_rms": float("nan") if reg_report.get("rms") is None else float(reg_report["rms"]),
         "registration_rms_units": "IR pixel",
         "config_text": cfg.text, "config_sha256": cfg.sha256,
         "strain_attrs": dict(ranges.attrs),

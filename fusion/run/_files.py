@@ -8,7 +8,8 @@ from pathlib import Path
 from ..errors import FusionError
 from ..io import input_file, is_sequence, list_images, list_sequence
 
-__all__ = ["need_file", "input_files", "frame_sequence", "image_sequence", "beside_frames", "beside_images"]
+__all__ = ["need_file", "input_files", "sequence_files", "frame_sequence", "image_sequence", "beside_frames",
+           "beside_images"]
 
 
 def need_file(path: Path, key: str) -> Path:
@@ -58,4 +59,17 @@ def input_files(run) -> list[Path]:
                 files.append(v)
             elif isinstance(v, tuple) and v and all(isinstance(x, Path) for x in v):
                 files.extend(v)
+    return files
+
+
+def sequence_files(run) -> list[Path]:
+    """The member files of the run's frame and image folders or patterns, in order (none without)."""
+    files = []
+    for spec, name, listing in ((run.thermal, "frames", frame_sequence), (run.dic, "images", image_sequence)):
+        v = getattr(spec, name)
+        if isinstance(v, Path) and is_sequence(v):
+            try:
+                files.extend(listing(spec).files)
+            except FusionError:
+                pass        # the run itself names the problem
     return files
