@@ -16,7 +16,7 @@ import xarray as xr
 
 from fusion.campaign import LOCK_NAME, campaign_lock
 from fusion.campaign._watch import _Watcher
-from fusion.config import load_config
+from fusion.io._atomic import parse_temp_name
 
 from _campaigns import FRAMES, ROOT, write_campaign
 
@@ -82,7 +82,7 @@ def _whole(out, name):
 
 
 def _leftovers(out):
-    return [p.name for p in out.iterdir() if ".partial-" in p.name or ".trash-" in p.name]
+    return [p.name for p in out.iterdir() if parse_temp_name(p.name) is not None]
 
 
 @pytest.mark.slow
@@ -145,7 +145,7 @@ def test_watcher_killed_mid_run_then_restarted(tmp_path, rng):
     with open(log_path, "w") as log:
         proc = _start(cfg, out, log)
         try:
-            _wait_for(lambda: out.is_dir() and any(".partial-" in p.name for p in out.iterdir()), proc, log_path)
+            _wait_for(lambda: out.is_dir() and any(".fusion-partial-" in p.name for p in out.iterdir()), proc, log_path)
             os.kill(proc.pid, signal.SIGKILL)        # as `kill -9`: no clean-up code of the watcher runs
             proc.wait(30)
         finally:
@@ -181,7 +181,7 @@ def test_watcher_killed_mid_run_then_restarted(tmp_path, rng):
     with open(log_path, "w") as log:
         proc = _start(cfg, out, log)
         try:
-            _wait_for(lambda: any(".R1.partial-" in p.name for p in out.iterdir()), proc, log_path)
+            _wait_for(lambda: any(p.name.startswith(".R1.fusion-partial-") for p in out.iterdir()), proc, log_path)
         finally:
             code = _stop(proc, signal.SIGTERM)
     said = log_path.read_text()
