@@ -105,7 +105,8 @@ def test_run_appears_once_after_its_last_frame_and_appended_runs_follow(tmp_path
             _write_frames(tmp_path / "data" / "ir0", stack, pause=3.0 / FRAMES, check=no_result_yet)
             last_written = time.time()
             assert not seen_early, f"a result appeared before the last frame (after frame {seen_early[0]})"
-            _wait_for(lambda: (out / "R0" / "summary.json").exists(), proc, log_path)
+            # the line comes once the run is published and the report rebuilt
+            _wait_for(lambda: " done    R0 " in log_path.read_text(), proc, log_path)
             _whole(out, "R0")
             assert (out / "R0").stat().st_mtime >= last_written
             report = out / "report.html"
@@ -118,9 +119,8 @@ def test_run_appears_once_after_its_last_frame_and_appended_runs_follow(tmp_path
             text = cfg.read_text()
             block = text[text.index("[[run]]"):].replace('"R0"', '"R1"').replace('"ir0"', '"ir1"')
             cfg.write_text(text + "\n" + block)
-            _wait_for(lambda: (out / "R1" / "summary.json").exists(), proc, log_path)
-            _wait_for(lambda: report.stat().st_mtime_ns > first_report and "R1" in report.read_text(),
-                      proc, log_path, 60)
+            _wait_for(lambda: " done    R1 " in log_path.read_text(), proc, log_path)
+            assert report.stat().st_mtime_ns > first_report and "R1" in report.read_text()
             time.sleep(2.0)          # several more looks: nothing is processed again
         finally:
             code = _stop(proc)
