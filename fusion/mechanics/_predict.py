@@ -227,7 +227,9 @@ def _select(laminate, sources) -> tuple[str, ...]:
     sources = tuple(sources)
     for s in sources:
         if s not in have:
-            hint = (" (the heat model's 'model' source comes from the heat model, not the adiabatic laws)"
+            hint = (" (the heat model's 'model' source comes from the heat model, not the adiabatic laws: "
+                    "fusion.predictions gives it with its standard deviation and phase lag at a "
+                    "frequency, or use transfer_coefficients with model_response)"
                     if s == "model" else "")
             raise ValueError(f"source {s!r} is not available for laminate {laminate.name!r}; "
                              f"available: {list(have)}{hint}")
