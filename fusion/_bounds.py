@@ -22,7 +22,7 @@ import numpy as np
 from .errors import ArgumentError
 
 __all__ = ["Bound", "BOUNDS", "length_problem", "check_length", "check_strain", "check_ratio",
-           "check_pixel_size", "check_frame_axes", "check_grid_shape"]
+           "check_pixel_size", "check_temperature", "check_frame_axes", "check_grid_shape"]
 
 
 @dataclass(frozen=True)
@@ -61,6 +61,11 @@ BOUNDS = {
         "Kelvin's law dT/T0 = -K dsigma gives under 3e-3 for metals at yield and about 5e-3 for "
         "an epoxy at 2 % strain (handbook alpha, rho, c); a temperature range in kelvin (0.1 to "
         "1 K) given for the ratio is 30 to 300 times larger than any elastic ratio near 300 K"),
+    "temperature": Bound(
+        100.0, 1000.0, "K", "median of the mean temperature T0 over the fitted pixels",
+        "common practice: laboratory tests run from cryogenic chambers (about 100 K) to hot cells; "
+        "epoxy matrices soften below 500 K and 1000 K leaves room for metals; a median between "
+        "-100 and 100 is degrees Celsius, one in the thousands detector counts"),
     "detector_aspect": Bound(
         1.0, 4.0, "1", "longer over shorter side of a frame",
         "common practice: infrared detectors are 4:3, 5:4 or 16:9 (320 x 240, 640 x 512, "
@@ -161,6 +166,26 @@ def check_pixel_size(value, parameter):
         raise ArgumentError(parameter, f"{msg}: it looks like micrometres; give millimetres per pixel "
                             f"({v * 1e-3:g})")
     raise ArgumentError(parameter, f"{msg}; give millimetres of specimen per image pixel")
+
+
+def check_temperature(T0, parameter):
+    """Refuse mean temperatures that are no kelvin (degrees Celsius, raw detector counts)."""
+    b = BOUNDS["temperature"]
+    a = np.asarray(T0, dtype=np.float64)
+    a = a[np.isfinite(a)]
+    if a.size == 0:
+        return
+    med = float(np.median(a))
+    if _inside(b, med):
+        return
+    if -100.0 < med < 100.0:
+        hint = "it looks like degrees Celsius: give kelvin (offset=273.15 adds it)"
+    elif med > b.high:
+        hint = "it looks like detector counts: give gain (K per count) and offset (K)"
+    else:
+        hint = "give temperatures in kelvin, or gain and offset of the counts"
+    raise ArgumentError(parameter, f"the mean temperature T0 has a median of {med:.4g}, outside the "
+                        f"plausible {b.low:g} .. {b.high:g} K; {hint}")
 
 
 def check_frame_axes(shape, parameter, *, n_times=None):
