@@ -89,7 +89,7 @@ def length_problem(value, key) -> str | None:
     v = float(value)
     if _inside(b, v):
         return None
-    msg = f"{v!r} m is outside the plausible {b.low:g} .. {b.high:g} m of a {key.replace('_', ' ')}"
+    msg = f"{value!r} m is outside the plausible {b.low:g} .. {b.high:g} m of a {key.replace('_', ' ')}"
     for unit, scale in _LENGTH_UNITS:
         if _inside(b, v * scale):
             return f"{msg}: it looks like {unit}; give metres ({v * scale:g})"
@@ -158,7 +158,7 @@ def check_pixel_size(value, parameter):
     v = float(value)
     if _inside(b, v):
         return
-    msg = f"{v!r} mm per pixel is outside the plausible {b.low:g} .. {b.high:g} mm"
+    msg = f"{value!r} mm per pixel is outside the plausible {b.low:g} .. {b.high:g} mm"
     if _inside(b, v * 1e3):
         raise ArgumentError(parameter, f"{msg}: it looks like metres; give millimetres per pixel "
                             f"({v * 1e3:g})")

@@ -46,6 +46,7 @@ PHYSICS_MODULES = frozenset({
     "test_register.py", "test_camera.py", "test_fiducials.py",                  # registration
     "test_diagnose.py", "test_sweep.py", "test_plan.py",                        # diagnosis, sweep, plan
     "test_demo.py", "test_end_to_end.py",                                       # whole runs
+    "test_api_conventions.py",                                                  # the Python API's rules
 })
 
 OTHER_MODULES = {
@@ -68,6 +69,9 @@ OTHER_MODULES = {
     "test_memory_budget.py": "memory use of the streaming passes",
     "test_import_graph.py": "the import structure of the package",
     "test_report_resolution.py": "resolution attributes through result.nc, summary.json and the report",
+    "test_api_rebuild.py": "the Python API's steps against the command line's result.nc (two code paths)",
+    "test_api_door.py": "error text of the plausibility checks at the Python API's door",
+    "test_docs.py": "the API reference, docstring references, README example and package data",
 }
 
 LIBRARIES = r"numpy|scipy|scikit-image|skimage|opencv|cv2"
