@@ -7,10 +7,12 @@ without error and gives a confident, wrong answer. Each quantity below has the b
 inside which a cyclic thermoelastic test of a laminate lies; outside them the call stops
 with one sentence naming the argument and the unit or axis the value looks like.
 
-The bounds are wide on purpose: they catch factors of 100 to 1000 (millimetres for
-metres, microstrain, kelvin for a ratio), not a marginal test. The config's inputs have a
-table of their own (the campaign side checks files); the two share the strain and ratio
-bounds and may be joined.
+Two tables, one place: :data:`PLAUSIBLE` bounds the physical inputs a run reads from files
+(checked by ``fusion/io/_plausible.py``, naming the file and config key), and
+:data:`API_BOUNDS` the arguments only the Python API takes (lengths, pixel sizes, axis
+order); the API checks strains, ratios and temperatures against :data:`PLAUSIBLE`. The
+bounds are wide on purpose: they catch factors of 100 to 1000 (millimetres for metres,
+microstrain, kelvin for a ratio), not a marginal test.
 """
 
 from __future__ import annotations
@@ -21,13 +23,13 @@ import numpy as np
 
 from .errors import ArgumentError
 
-__all__ = ["Bound", "BOUNDS", "length_problem", "check_length", "check_strain", "check_ratio",
-           "check_pixel_size", "check_temperature", "check_frame_axes", "check_grid_shape"]
+__all__ = ["Bound", "PLAUSIBLE", "API_BOUNDS", "BOUNDS", "length_problem", "check_length", "check_strain",
+           "check_ratio", "check_pixel_size", "check_temperature", "check_frame_axes", "check_grid_shape"]
 
 
 @dataclass(frozen=True)
 class Bound:
-    """Plausible range of a quantity: ``low <= value <= high`` in ``unit``; ``basis`` says why."""
+    """Plausible range of a quantity: ``low <= typical value <= high`` in ``unit``; ``basis`` says why."""
 
     low: float
     high: float
@@ -36,8 +38,36 @@ class Bound:
     basis: str
 
 
-#: The bounds of every checked argument, with the reason for each (see ``basis``).
-BOUNDS = {
+#: The bounds of every physical input, with the reason for each (see ``basis``).
+PLAUSIBLE = {
+    "strain_range": Bound(
+        1e-6, 0.05, "1", "90th percentile of the largest |component| per point",
+        "common practice: cyclic strain ranges of laminates under test lie between about "
+        "100 microstrain and 1 %; fibre composites fail near 1-2 % (carbon) to 3 % (glass), "
+        "resins near 3-6 %, so 5 % is beyond any elastic cycle, and under 1 microstrain a "
+        "correlation measurement (noise floor ~50-100 microstrain) holds no strain at all"),
+    "temperature": Bound(
+        100.0, 1000.0, "K", "every finite value (maps), median of sampled frames (frame stacks)",
+        "common practice: laboratory tests run from cryogenic chambers (~100 K with liquid "
+        "nitrogen) to hot cells; epoxy matrices soften below ~500 K and 1000 K leaves room for "
+        "metals; values between -100 and 100 are degrees Celsius, values in the thousands "
+        "are detector counts"),
+    "ratio": Bound(
+        0.0, 0.01, "1", "99th percentile of |delta_T / T0|",
+        "Kelvin's law dT/T0 = -K dsigma, K = alpha / (rho c): about 3e-12 /Pa for steel and "
+        "1e-11 /Pa for aluminium (handbook alpha, rho, c) gives under 3e-3 at yield; an epoxy "
+        "resin (E 3.5 GPa, nu 0.35, alpha 60e-6 /K, rho 1200, c 1100) at 2 % strain about "
+        "5e-3: 1e-2 (3 K at room temperature) is no elastic signal, while a range in "
+        "millikelvin read as kelvin gives 1e-2 and more from 3 mK up"),
+    "load_range_ratio": Bound(
+        0.01, 100.0, "1", "range of the load signal over the span of dic.loads",
+        "common practice: the correlation states are taken within or near the cycle's load "
+        "range; a factor of 1000 is a unit slip (N and kN), while a factor under 100 may be "
+        "a deliberate extrapolation of small static steps"),
+}
+
+#: The bounds of the Python API's own arguments, with the reason for each (see ``basis``).
+API_BOUNDS = {
     "ply_thickness": Bound(
         5e-6, 0.01, "m", "the value",
         "common practice: cured plies run from spread-tow thin plies of about 15 um to woven or "
@@ -51,26 +81,14 @@ BOUNDS = {
         1e-3, 10.0, "mm", "the value",
         "common practice: correlation images resolve from about 1 um (microscope) to a few mm "
         "(large structures) of specimen per pixel; a size in metres (1e-4 for 0.1 mm) lies below"),
-    "strain_range": Bound(
-        1e-6, 0.05, "1", "90th percentile of the largest |component| per point",
-        "common practice: cyclic strain ranges of laminates under test lie between about 100 "
-        "microstrain and 1 %; fibre composites fail near 1-3 %, so 5 % is beyond any elastic "
-        "cycle, and values in microstrain (2000) or percent (0.2) land outside"),
-    "ratio": Bound(
-        0.0, 0.01, "1", "99th percentile of |dT/T0|",
-        "Kelvin's law dT/T0 = -K dsigma gives under 3e-3 for metals at yield and about 5e-3 for "
-        "an epoxy at 2 % strain (handbook alpha, rho, c); a temperature range in kelvin (0.1 to "
-        "1 K) given for the ratio is 30 to 300 times larger than any elastic ratio near 300 K"),
-    "temperature": Bound(
-        100.0, 1000.0, "K", "median of the mean temperature T0 over the fitted pixels",
-        "common practice: laboratory tests run from cryogenic chambers (about 100 K) to hot cells; "
-        "epoxy matrices soften below 500 K and 1000 K leaves room for metals; a median between "
-        "-100 and 100 is degrees Celsius, one in the thousands detector counts"),
     "detector_aspect": Bound(
         1.0, 4.0, "1", "longer over shorter side of a frame",
         "common practice: infrared detectors are 4:3, 5:4 or 16:9 (320 x 240, 640 x 512, "
         "1280 x 1024); a frame four times longer than wide is an axis taken for another"),
 }
+
+#: Every bound: the inputs' and the API's (strain ranges, ratios and temperatures are shared).
+BOUNDS = {**PLAUSIBLE, **API_BOUNDS}
 
 _LENGTH_UNITS = (("millimetres", 1e-3), ("micrometres", 1e-6), ("centimetres", 1e-2))
 

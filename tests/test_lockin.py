@@ -178,7 +178,7 @@ def test_bad_pixels_masked_without_touching_neighbours(rng):
     kw = dict(frame_rate=40.0, frequency=6.0, saturation=350.0)
     r = lockin(bad, **kw)
     ref = lockin(clean, **kw)
-    assert r.bad_pixels == {"nonfinite": 2, "saturated": 1, "dead": 1}
+    assert r.bad_pixels == {"nonfinite": 2, "saturated": 1, "clipped": 0, "dead": 1}
     masked = np.zeros((8, 8), bool)
     masked[[1, 6, 3, 5], [1, 2, 3, 5]] = True
     assert np.array_equal(~r.valid, masked)

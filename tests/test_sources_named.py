@@ -46,6 +46,8 @@ PHYSICS_MODULES = frozenset({
     "test_register.py", "test_camera.py", "test_fiducials.py",                  # registration
     "test_diagnose.py", "test_sweep.py", "test_plan.py",                        # diagnosis, sweep, plan
     "test_demo.py", "test_end_to_end.py",                                       # whole runs
+    "test_input_units.py", "test_frequency_from_load.py", "test_stack_sanity.py",  # input checks
+    "test_correlation_inputs.py", "test_sweep_statistic.py",
     "test_api_conventions.py",                                                  # the Python API's rules
 })
 

@@ -27,25 +27,37 @@ def _load(folder: Path):
 def sweep_points(datasets):
     """Whole-field statistics of each run of a sweep, sorted by frequency.
 
-    Returns frequencies (R,), ratio means (R,), their std (R,), lag means (R,) or None,
-    lag std (R,) or None and the median strain range (R, 3).
+    Returns frequencies (R,), ratio means (R,), their std (R,), lags (R,) or None, lag std
+    (R,) or None and the mean strain range (R, 3).
+
+    Every statistic is a mean over the same valid pixels: the predicted ratio is linear in
+    the strain range (``Re(T(f) . eps)`` at every pixel), so the field mean of the measured
+    ratio is the prediction at the field-mean strain exactly, and the lag of the mean
+    in-phase and quadrature ratios is the lag at that strain. A median of either side
+    would not be (the median of a sum is not the sum of the medians), and pairing the mean
+    ratio with the median strain biases the fit wherever the field is not uniform.
     """
     rows = []
     for ds in datasets:
         v = ds["valid"].values.astype(bool)
-        r = ds["ratio_measured"].values[v]
+        r = ds["ratio_measured"].values[v].astype(np.float64)
         s = ds["ratio_measured_std"].values[v]
         n = max(1, r.size)
+        mean = float(np.nanmean(r))
         # standard error of the field mean from the pixel noise, plus 1 % for what the
         # noise does not capture (emissivity, calibration drift between runs)
-        std = float(np.sqrt(np.nanmedian(s) ** 2 / n + (0.01 * np.nanmean(r)) ** 2))
+        std = float(np.sqrt(np.nanmedian(s) ** 2 / n + (0.01 * mean) ** 2))
         lag = lag_std = None
-        if "phase_lag_measured" in ds:
+        if "phase_lag_measured" in ds and "delta_T_quadrature" in ds:
+            with np.errstate(invalid="ignore", divide="ignore"):
+                q = (ds["delta_T_quadrature"].values[v] / ds["T0"].values[v]).astype(np.float64)
+            q *= float(ds.attrs.get("calibration_factor", 1.0))   # as ratio_measured is
+            lag = float(-np.degrees(np.arctan(np.nanmean(q) / mean)))
             lv = ds["phase_lag_measured"].values[v]
-            lag = float(np.nanmedian(lv))
-            lag_std = float(max(0.2, 1.4826 * np.nanmedian(np.abs(lv - lag)) / np.sqrt(n) * 3))
-        strain = np.array([np.nanmedian(ds[k].values[v]) for k in ("delta_eps_xx", "delta_eps_yy", "delta_gamma_xy")])
-        rows.append((float(ds.attrs["frequency"]), float(np.nanmean(r)), std, lag, lag_std, strain))
+            lag_std = float(max(0.2, 1.4826 * np.nanmedian(np.abs(lv - np.nanmedian(lv))) / np.sqrt(n) * 3))
+        strain = np.array([np.nanmean(ds[k].values[v].astype(np.float64))
+                           for k in ("delta_eps_xx", "delta_eps_yy", "delta_gamma_xy")])
+        rows.append((float(ds.attrs["frequency"]), mean, std, lag, lag_std, strain))
     rows.sort(key=lambda t: t[0])
     f = np.array([t[0] for t in rows])
     lags = None if any(t[3] is None for t in rows) else np.array([t[3] for t in rows])

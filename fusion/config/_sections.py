@@ -6,6 +6,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from ..errors import ConfigError
+from ..io import MAP_QUANTITIES
 from . import _schema as s
 from ._schema import key
 
@@ -54,13 +55,21 @@ class ThermalSpec:
     """Infrared input of a run: exactly one of ``frames`` (raw stack) or ``maps`` (precomputed)."""
 
     frames: Path = key(s.path, "Frame stack (frame, row, col): .npy, .raw/.bin, .tif, .h5, .nc.")
-    maps: Path = key(s.path, "Precomputed maps (NetCDF/TIFF/CSV) with T0 and delta_T.")
+    maps: Path = key(s.path, "Precomputed maps (NetCDF/TIFF/CSV) with T0 and delta_T (or magnitude "
+                     "and phase); see \"Input files\" above.")
+    delta_T_convention: str = key(s.choice("peak-to-peak", "amplitude"), "What the maps' delta_T (and "
+                                  "magnitude, quadrature, std) hold: the peak-to-peak range (maximum minus "
+                                  "minimum load) or the amplitude (half of it). Required with 'maps'.")
+    variables: dict = key(s.either(s.mapping_of_strings, s.list_of(s.choice(*MAP_QUANTITIES), min_len=2)),
+                          "Map our quantity names (" + ", ".join(MAP_QUANTITIES) + ") to the maps "
+                          "file's variable or column names, e.g. { delta_T = \"dT\" }; for a TIFF the page "
+                          "order as a list.")
     frame_rate: float = key(s.quantity("Hz", positive=True), "Camera frame rate.", unit="Hz")
     times: Path = key(s.path, "Optional file of frame times in s (.npy or one-column CSV).")
     load: Path = key(s.path, "Load signal CSV (columns time, load), per frame or on its own clock.")
     time_column: str = key(s.string(), "Name of the time column of the load file.", default="time")
     load_column: str = key(s.string(), "Name of the load column of the load file.", default="load")
-    dataset: str = key(s.string(), "Dataset or variable name inside .h5/.nc stacks or maps.")
+    dataset: str = key(s.string(), "Dataset or variable name inside .h5/.nc frame stacks.")
     dtype: str = key(s.choice("uint8", "int16", "uint16", "int32", "uint32", "float32", "float64"),
                      "Element type of a headerless raw stack.")
     shape: tuple = key(s.list_of(s.integer(low=1), min_len=3, max_len=3),
@@ -81,6 +90,18 @@ class ThermalSpec:
     def _check(self, prefix, ctx):
         if (self.frames is None) == (self.maps is None):
             raise ConfigError(prefix, "expected exactly one of 'frames' or 'maps'", source=ctx.source)
+        if self.maps is not None and self.delta_T_convention is None:
+            raise ConfigError(f"{prefix}.delta_T_convention", "is required with 'maps': say whether "
+                              "delta_T holds the peak-to-peak range (\"peak-to-peak\", maximum minus minimum "
+                              "load) or its half (\"amplitude\")", source=ctx.source)
+        for name in ("delta_T_convention", "variables"):
+            if self.maps is None and getattr(self, name) is not None:
+                raise ConfigError(f"{prefix}.{name}", "applies to 'maps' only", source=ctx.source)
+        if isinstance(self.variables, dict):
+            unknown = sorted(set(self.variables) - set(MAP_QUANTITIES))
+            if unknown:
+                raise ConfigError(f"{prefix}.variables.{unknown[0]}", f"unknown quantity; expected some of "
+                                  f"{', '.join(MAP_QUANTITIES)}", source=ctx.source)
         if self.frames is not None and self.frame_rate is None and self.times is None and self.load is None:
             raise ConfigError(f"{prefix}.frame_rate", "is required with 'frames' (or give 'times', "
                               "or a load file whose time column matches the frames)", source=ctx.source)
@@ -103,6 +124,9 @@ class DicSpec:
                       "down for px).")
     shear: str = key(s.choice("engineering", "tensor"), "Shear column holds gamma_xy or eps_xy.",
                      default="engineering")
+    strain_unit: str = key(s.choice("1", "%", "microstrain"), "Unit of the strain columns: plain strain "
+                           "(\"1\", the default), percent or microstrain. A NetCDF/HDF5 variable's own "
+                           "units attribute is honoured and must agree.")
     columns: dict = key(s.mapping_of_strings, "Map our column names (x, y, z, u, v, exx, eyy, gxy, "
                         "valid) to the file's header names.")
     subset: int = key(s.integer(low=7, high=301), "Subset size in px (images); `fusion gauge` "
@@ -125,6 +149,9 @@ class DicSpec:
             raise ConfigError(prefix, "expected exactly one of 'strain_ranges', 'states', 'series' or "
                               f"'images', got {given or 'none'}", source=ctx.source)
         n = {"states": 2, "series": len(self.series or ()), "images": len(self.images or ())}.get(given[0])
+        if given[0] == "states" and self.loads is not None and len(self.loads) != 2:
+            raise ConfigError(f"{prefix}.loads", "expected 2 loads, one per entry of 'states' (minimum and "
+                              "maximum)", source=ctx.source)
         if given[0] in ("series", "images") and (self.loads is None or len(self.loads) != n):
             raise ConfigError(f"{prefix}.loads", f"expected {n} loads, one per entry of '{given[0]}'",
                               source=ctx.source)
@@ -285,8 +312,10 @@ class RunSpec:
                     "Run name; becomes its output folder name.", required=True)
     specimen: str = key(s.string(pattern=r"[^\x00-\x1f]{1,100}", hint="1-100 printable characters"),
                         "Specimen; runs of one specimen at several frequencies form a sweep.")
-    frequency: float = key(s.quantity("Hz", positive=True), "Loading frequency (optional with a "
-                           "load signal).", unit="Hz")
+    frequency: float = key(s.quantity("Hz", positive=True), "Loading frequency, checked against the "
+                           "load signal (replaced by its estimate when they differ beyond its "
+                           "uncertainty and within 10 %); optional with a load signal sampled at least "
+                           "twice as fast as the frames.", unit="Hz")
     laminate: str = key(s.string(), "Name of a laminate in [laminates] (default: [laminate]).")
     description: str = key(s.string(), "Free text for the report.")
     thermal: ThermalSpec = key(s.table_of(ThermalSpec), "Infrared input.", required=True)
@@ -299,6 +328,10 @@ class RunSpec:
         if low in _RESERVED or low.split(".")[0] in _DEVICE_STEMS or low.endswith("."):
             raise ConfigError(f"{prefix}.name", f"{self.name!r} is a reserved name (or ends with a dot); "
                               "choose another run name", source=ctx.source)
+        if self.dic.states is not None and self.dic.loads is not None and self.thermal.load is None:
+            raise ConfigError(f"{prefix}.dic.loads", "rescales the ranges of 'states' to the load signal's "
+                              "range, but the run has no thermal.load: give the load signal, or leave loads "
+                              "out (the states are then the minimum and maximum of the cycle)", source=ctx.source)
         if self.frequency is None and (self.thermal.load is None or self.thermal.maps is not None):
             raise ConfigError(f"{prefix}.frequency", "is required with precomputed maps or when no "
                               "load signal is given (e.g. frequency = \"10 Hz\")", source=ctx.source)

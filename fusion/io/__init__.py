@@ -12,10 +12,13 @@ open_frames, FrameStack
     Infrared frame stacks (.npy, raw, TIFF, HDF5, NetCDF), lazy and memory-mapped.
 read_load_signal, LoadSignal, read_frame_times
     Load signals (CSV) and frame timestamps.
-read_thermal_maps
-    Precomputed T0 / delta_T / phase maps (NetCDF, TIFF, CSV).
+read_thermal_maps, MAP_QUANTITIES
+    Precomputed T0 / delta_T / phase maps (NetCDF, TIFF, CSV) and the quantities they may hold.
 read_dic_field, read_image
     Exported correlation fields (CSV, NetCDF, HDF5, MATLAB) and speckle images (PNG, TIFF).
+PLAUSIBLE, STRAIN_UNITS, check_strain_ranges, check_temperatures, check_ratio, check_load_ranges
+    The plausible magnitude of every physical input, and the checks that stop a run on a
+    likely unit slip with one sentence naming the file, the key and the unit.
 """
 
 from ._atomic import atomic_path, atomic_write_bytes, atomic_write_text, safe_child, sha256_file
@@ -23,13 +26,17 @@ from ._dic import read_dic_field
 from ._images import read_image
 from ._frames import FrameStack, open_frames
 from ._guard import input_file
-from ._maps import read_thermal_maps
+from ._maps import MAP_QUANTITIES, read_thermal_maps
 from ._netcdf import netcdf_form, read_netcdf, write_netcdf
+from ._plausible import (PLAUSIBLE, STRAIN_UNITS, check_load_ranges, check_ratio, check_strain_ranges,
+                         check_temperatures)
 from ._signals import LoadSignal, read_frame_times, read_load_signal
 
 __all__ = [
     "atomic_path", "atomic_write_bytes", "atomic_write_text", "safe_child", "sha256_file", "input_file",
     "netcdf_form", "read_netcdf", "write_netcdf",
     "open_frames", "FrameStack", "read_load_signal", "LoadSignal", "read_frame_times", "read_thermal_maps",
+    "MAP_QUANTITIES",
     "read_dic_field", "read_image",
+    "PLAUSIBLE", "STRAIN_UNITS", "check_strain_ranges", "check_temperatures", "check_ratio", "check_load_ranges",
 ]

@@ -16,6 +16,7 @@ from ..dic._field import DicField
 from ..errors import InputError
 from ._guard import MAX_READ_BYTES, check_bytes, decoding, h5_dataset, hdf5_stays_inside, input_file
 from ._matfile import check_mat5
+from ._plausible import STRAIN_UNITS
 
 __all__ = ["read_dic_field", "FIELD_NAMES"]
 
@@ -27,6 +28,9 @@ _MM = {"mm", "millimeter", "millimetre", "millimeters", "millimetres"}
 _PX = {"px", "pixel", "pixels", "pix"}
 _M = {"m", "meter", "metre", "meters", "metres"}
 _UNITLESS = {"", "1", "-", "strain", "m/m", "mm/mm"}
+_MICRO = {"microstrain", "ustrain", "µε", "1e-6", "micro"}
+_PERCENT = {"%", "percent", "pct"}
+_STRAINS = ("exx", "eyy", "exy", "gxy")
 
 
 def _check_names(option, mapping):
@@ -251,17 +255,31 @@ def _broadcast(path, arrays):
     return {k: np.ravel(a) for k, a in arrays.items()}
 
 
-def _convert_units(path, name, values, unit, coordinates):
-    """Scale a length variable that states its unit to the requested coordinates."""
+def _strain_unit_of(path, name, unit):
+    """The strain unit ("1", "%", "microstrain") a variable's units attribute states."""
+    low = unit.lower()
+    for ours, names in (("1", _UNITLESS), ("microstrain", _MICRO), ("%", _PERCENT)):
+        if low in names:
+            return ours
+    raise InputError(path, f"variable {name!r} has units {unit!r}; expected a strain in '1', '%' or "
+                     "'microstrain'")
+
+
+def _convert_units(path, name, values, unit, coordinates, strain_unit=None):
+    """Scale a variable that states its unit (lengths to the coordinates, strains to '1')."""
+    if name in _STRAINS:
+        stated = None if unit is None else _strain_unit_of(path, name, unit)
+        if stated is not None and strain_unit is not None and stated != strain_unit:
+            raise InputError(path, f"variable {name!r} has units {unit!r} but strain_unit is "
+                             f"{strain_unit!r}; make them agree (or leave strain_unit out)")
+        return values * STRAIN_UNITS[stated or strain_unit or "1"]
     if unit is None:
         return values
     low = unit.lower()
-    if name in ("exx", "eyy", "exy", "gxy", "valid", "zncc"):
+    if name in ("valid", "zncc"):
         if low in _UNITLESS:
             return values
-        if low in ("microstrain", "ustrain", "µε", "1e-6"):
-            return values * 1e-6
-        raise InputError(path, f"variable {name!r} has units {unit!r}; expected a strain in '1'")
+        raise InputError(path, f"variable {name!r} has units {unit!r}; expected none")
     if coordinates == "mm":
         if low in _MM:
             return values
@@ -326,7 +344,7 @@ def _to_grid(path, data, n):
 
 
 def read_dic_field(path, *, columns=None, coordinates="mm", y_axis=None, shear="engineering",
-                   variables=None, min_zncc=None, attrs=None, max_bytes=None):
+                   variables=None, min_zncc=None, attrs=None, max_bytes=None, strain_unit=None):
     """Read an exported displacement (or strain) field into the specimen frame.
 
     Parameters
@@ -362,6 +380,9 @@ def read_dic_field(path, *, columns=None, coordinates="mm", y_axis=None, shear="
         Largest set of arrays read into memory, bytes; default
         ``fusion.io._guard.MAX_READ_BYTES`` (2 GiB), checked from the file's headers
         before any data is read.
+    strain_unit : {"1", "%", "microstrain"}, optional
+        Unit of the strain columns, scaled to plain strain on reading. A variable's own
+        ``units`` attribute (NetCDF/HDF5) is honoured and must agree; default "1".
 
     Returns
     -------
@@ -388,6 +409,8 @@ def read_dic_field(path, *, columns=None, coordinates="mm", y_axis=None, shear="
         raise ValueError(f"y_axis: expected 'up' or 'down', got {y_axis!r}")
     if shear not in ("engineering", "tensor"):
         raise ValueError(f"shear: expected 'engineering' or 'tensor', got {shear!r}")
+    if strain_unit is not None and strain_unit not in STRAIN_UNITS:
+        raise ValueError(f"strain_unit: expected one of {sorted(STRAIN_UNITS)}, got {strain_unit!r}")
     user = _check_names("columns", columns)
     kind = _FORMATS.get(path.suffix.lower())
     if kind != "csv" and variables is not None:
@@ -419,7 +442,7 @@ def read_dic_field(path, *, columns=None, coordinates="mm", y_axis=None, shear="
     if not (has_uv or has_strain):
         raise InputError(path, f"needs displacement {what}s u and v, or strain {what}s exx, eyy "
                          f"and gxy (or exy); found {available!r}")
-    arrays = {k: _convert_units(path, k, a, unit, coordinates) for k, (a, unit) in raw.items()}
+    arrays = {k: _convert_units(path, k, a, unit, coordinates, strain_unit) for k, (a, unit) in raw.items()}
     data = _broadcast(path, arrays)
     for k, a in data.items():
         if np.any(np.isinf(a)):

@@ -4,18 +4,20 @@ A run may bring its thermal maps instead of frames; they enter the pipeline the
 same way as the lock-in's maps. Accepted layouts:
 
 * NetCDF: variables named ``T0``, ``delta_T`` and optionally ``phase``,
-  ``delta_T_std``, ``delta_T_quadrature`` (other names through ``variables``).
-  A ``units`` attribute is honoured: K, kelvin or mK for temperatures (Celsius is
-  refused for T0), degree or rad for the phase.
+  ``delta_T_std``, ``delta_T_quadrature``, ``magnitude`` (other names through
+  ``variables``). A ``units`` attribute is honoured: K, kelvin or mK for
+  temperatures (Celsius is refused for T0), degree or rad for the phase.
 * Multi-page TIFF: one page per quantity in the order
-  ``T0, delta_T, phase, delta_T_std, delta_T_quadrature`` (the first two
-  required), or the order given as a list in ``variables``.
+  ``T0, delta_T, phase, delta_T_std, delta_T_quadrature, magnitude`` (the first
+  two required), or the order given as a list in ``variables``.
 * CSV: a long table with columns ``row, col`` and one column per quantity, or a
   mapping ``{quantity: path}`` of headerless numeric grids (one row of values per
   image row).
 
 Maps are float32 ``(Y, X)`` on the infrared pixel grid; the conventions are those
-of the lock-in (signed peak-to-peak ranges in K, phase in degrees).
+of the lock-in (signed peak-to-peak ranges in K, phase in degrees). ``magnitude``
+with ``phase`` may stand in for ``delta_T`` (a lock-in that exports amplitude and
+phase): the signed in-phase range is then ``magnitude * cos(phase)``.
 """
 
 from __future__ import annotations
@@ -27,14 +29,21 @@ import numpy as np
 
 from ..errors import InputError
 from ._guard import check_bytes, decoding, hdf5_stays_inside, input_file, quiet_logger, text_rows_warning
+from ._plausible import check_temperatures
 
 __all__ = ["read_thermal_maps", "MAP_QUANTITIES"]
 
-#: Quantities a map set may hold, in the default TIFF page order; the first two are required.
-MAP_QUANTITIES = ("T0", "delta_T", "phase", "delta_T_std", "delta_T_quadrature")
-_REQUIRED = ("T0", "delta_T")
-# plausible absolute temperatures of a loaded specimen, K (cryogenic to hot-cell testing)
-_T0_RANGE = (100.0, 1000.0)
+#: Quantities a map set may hold, in the default TIFF page order: T0 is required, and
+#: delta_T or magnitude with phase.
+MAP_QUANTITIES = ("T0", "delta_T", "phase", "delta_T_std", "delta_T_quadrature", "magnitude")
+_REQUIRED = ("T0",)
+
+
+def _missing_range(present):
+    """The quantity to name when neither delta_T nor magnitude with phase is present, else None."""
+    if "delta_T" in present or ("magnitude" in present and "phase" in present):
+        return None
+    return "delta_T"
 _TEMPERATURE_UNITS = {"k": 1.0, "kelvin": 1.0, "kelvins": 1.0, "mk": 1e-3, "millikelvin": 1e-3}
 _CELSIUS = {"degc", "deg_c", "celsius", "degree_celsius", "degrees_celsius", "°c", "c"}
 _ANGLE_UNITS = {"degree": 1.0, "degrees": 1.0, "deg": 1.0, "°": 1.0,
@@ -81,10 +90,13 @@ def _read_netcdf(path, variables, max_bytes):
         ds = netCDF4.Dataset(path, "r")
     out = {}
     with ds, decoding(path, "NetCDF maps"):
+        for q in (*_REQUIRED, _missing_range([q for q, v in names.items() if v in ds.variables])):
+            if q is not None and names[q] not in ds.variables:
+                raise InputError(path, f"has no variable {names[q]!r} for {q}; variables are "
+                                 f"{list(ds.variables)!r} (map the names with thermal.variables, e.g. "
+                                 f"variables = {{ {q} = \"dT\" }})")
         for q, v in names.items():
             if v not in ds.variables:
-                if q in _REQUIRED:
-                    raise InputError(path, f"has no variable {v!r} for {q}; variables are {list(ds.variables)!r}")
                 continue
             var = ds.variables[v]
             kind = "U" if var.dtype is str else np.dtype(var.dtype).kind
@@ -154,9 +166,10 @@ def _read_long_csv(path, variables, max_bytes):
                          "For one grid per quantity pass a mapping {quantity: path}")
     wanted = _names(variables)
     present = {q: names[low.index(n.lower())] for q, n in wanted.items() if n.lower() in low}
-    missing = [q for q in _REQUIRED if q not in present]
+    missing = [q for q in (*_REQUIRED, _missing_range(present)) if q is not None and q not in present]
     if missing:
-        raise InputError(path, f"has no column {wanted[missing[0]]!r} for {missing[0]}; columns are {names!r}")
+        raise InputError(path, f"has no column {wanted[missing[0]]!r} for {missing[0]}; columns are {names!r} "
+                         f"(map the names with thermal.variables)")
     cols = [low.index("row"), low.index("col")] + [names.index(present[q]) for q in present]
     try:
         with text_rows_warning():
@@ -193,19 +206,15 @@ def _validate(where, maps):
         if np.any(np.isinf(m)):
             raise InputError(where, f"{q} holds infinite values; expected finite numbers (NaN marks a "
                              "missing pixel)")
-    if not np.isfinite(maps["delta_T"]).any():
-        raise InputError(where, "delta_T has no finite value (all NaN): expected the temperature range in K")
-    T0 = maps["T0"]
-    fin = T0[np.isfinite(T0)]
-    if fin.size == 0:
-        raise InputError(where, "T0 has no finite value")
-    med = float(np.median(fin))
-    if not (_T0_RANGE[0] <= fin.min() and fin.max() <= _T0_RANGE[1]):
-        hint = (" — it looks like degrees Celsius: convert to kelvin (add 273.15)" if -100.0 < med < 100.0
-                else "")
-        raise InputError(where, f"T0 must be an absolute temperature in kelvin within "
-                         f"{_T0_RANGE[0]:g}..{_T0_RANGE[1]:g} K; found {fin.min():.4g}..{fin.max():.4g} "
-                         f"(median {med:.4g}){hint}")
+    if _missing_range(maps) or "T0" not in maps:
+        raise InputError(where, f"holds {sorted(maps)}; expected T0, and delta_T or magnitude with phase")
+    rng = "delta_T" if "delta_T" in maps else "magnitude"
+    if not np.isfinite(maps[rng]).any():
+        raise InputError(where, f"{rng} has no finite value (all NaN): expected the temperature range in K")
+    check_temperatures(maps["T0"], where=where)
+    if "magnitude" in maps and np.any(maps["magnitude"][np.isfinite(maps["magnitude"])] < 0):
+        raise InputError(where, "magnitude must be >= 0 (the size of the temperature response in K; the "
+                         "sign sits in the phase)")
     if "delta_T_std" in maps and np.any(maps["delta_T_std"][np.isfinite(maps["delta_T_std"])] < 0):
         raise InputError(where, "delta_T_std must be >= 0 (a standard deviation in K)")
     if "phase" in maps:
@@ -234,8 +243,9 @@ def read_thermal_maps(path, *, variables=None, max_bytes=None) -> dict:
     Returns
     -------
     dict of str to (Y, X) float32 ndarray
-        ``T0`` (K), ``delta_T`` (K), and when present ``phase`` (degrees),
-        ``delta_T_std`` (K), ``delta_T_quadrature`` (K).
+        ``T0`` (K), ``delta_T`` (K) or ``magnitude`` (K) with ``phase``, and when present
+        ``phase`` (degrees), ``delta_T_std`` (K), ``delta_T_quadrature`` (K), ``magnitude`` (K),
+        as the file holds them (no conversion between conventions here).
 
     Raises
     ------
@@ -249,9 +259,10 @@ def read_thermal_maps(path, *, variables=None, max_bytes=None) -> dict:
         unknown = [q for q in path if q not in MAP_QUANTITIES]
         if unknown:
             raise ValueError(f"unknown quantity {unknown[0]!r}; known: {list(MAP_QUANTITIES)!r}")
-        missing = [q for q in _REQUIRED if q not in path]
+        missing = [q for q in (*_REQUIRED, _missing_range(list(path))) if q is not None and q not in path]
         if missing:
-            raise ValueError(f"map files must include {missing[0]!r} (required: {list(_REQUIRED)!r})")
+            raise ValueError(f"map files must include {missing[0]!r} (required: T0, and delta_T or "
+                             "magnitude with phase)")
         maps = {q: _read_grid(p) for q, p in path.items()}
         where = Path(path["T0"])
     else:

@@ -176,7 +176,10 @@ def fit_sweep(laminate, frequencies, measured_ratio, measured_std, strain_range,
     measured_ratio, measured_std : (R,) array_like
         Measured in-phase dT/T0 of the region and its standard deviation (dimensionless).
     strain_range : (3,) or (R, 3) array_like
-        (d eps_xx, d eps_yy, d gamma_xy) of the region, specimen frame, per run or shared.
+        (d eps_xx, d eps_yy, d gamma_xy) of the region, specimen frame, per run or shared,
+        taken with the same statistic over the same pixels as ``measured_ratio``. The
+        model is linear in the strain, so field means of both agree exactly; a median of
+        either (or a mean of one and a median of the other) does not on a non-uniform field.
     measured_lag : (R,) array_like, optional
         Measured phase lag in degrees (project convention); fitted with the ratio when given.
     lag_std : (R,) array_like, optional

@@ -20,15 +20,14 @@ from ..datamodel import SOURCES, result_dataset
 from ..diagnose import (apply_calibration, calibration_factor, diagnose, measured_ratio, region_mask,
                         region_table)
 from ..errors import ConfigError, InputError
-from ..io import read_image, read_load_signal
+from ..io import read_image
 from ..mechanics import ply_profile
 from ..thermal import motion_amplitude
 from ._files import need_file
 from ._predictions import predictions
 from ._registration import refine_registration, registration_side
 from ._strain import strain_side
-from ._thermal import load_range as fit_load_range
-from ._thermal import motion_field, thermal_side
+from ._thermal import motion_field, run_load_range, thermal_side
 
 log = logging.getLogger(__name__)
 
@@ -59,7 +58,7 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
     dg = cfg.diagnosis
     warnings: list[str] = []
 
-    load_range = _load_range_of(run)
+    load_range = run_load_range(run)
     ranges, disp = strain_side(run, load_range=load_range)
 
     budget = cfg.compute.memory_budget
@@ -125,15 +124,6 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
 
 
 # --------------------------------------------------------------------------- steps
-def _load_range_of(run):
-    """Peak-to-peak load range of the thermal run's load signal, or None without one."""
-    if run.thermal.load is None:
-        return None
-    sig = read_load_signal(need_file(run.thermal.load, "thermal.load"), time_column=run.thermal.time_column,
-                           load_column=run.thermal.load_column)
-    return fit_load_range(sig, run.frequency)
-
-
 def _motion_compensated(run, budget, disp, transform, load_range, ir_shape, progress):
     """The thermal side again, on frames warped back by the correlation displacement."""
     if disp is None or transform is None or load_range is None:

@@ -6,8 +6,12 @@ lockin, LockinResult
     One streaming least-squares pass over a frame stack (NumPy, memory map, lazy
     stack or dask array): T0, signed dT in phase with the load, quadrature, phase,
     noise, second harmonic, drift, SNR and the bad-pixel mask.
-estimate_frequency
-    Loading frequency of a sampled signal (periodogram peak refined by a sine fit).
+estimate_frequency, alias_frequency, alias_candidates
+    Loading frequency of a sampled signal (periodogram peak refined by a sine fit) with
+    its uncertainty; where a frequency appears when sampled too slowly, and back.
+sample_frames, clip_levels, layout_problem
+    Frame-stack sanity from a sample of frames: clip levels (pile-ups at the extreme raw
+    values) and layouts that look scrambled (rows, first frame).
 load_reference, LoadReference
     Mean, peak-to-peak range and phase of the load fundamental.
 motion_compensate, motion_amplitude, CompensatedFrames
@@ -18,10 +22,13 @@ under cyclic load are hazardous: acquire data under the laboratory's procedures 
 the applicable test standards, with qualified engineers responsible for the test.
 """
 
-from ._lockin import LoadReference, LockinResult, estimate_frequency, load_reference, lockin
+from ._frequency import alias_candidates, alias_frequency, estimate_frequency
+from ._lockin import LoadReference, LockinResult, load_reference, lockin
 from ._motion import CompensatedFrames, motion_amplitude, motion_compensate  # noqa: F401
+from ._sanity import clip_levels, layout_problem, sample_frames
 
 __all__ = [
     "lockin", "LockinResult", "estimate_frequency", "load_reference", "LoadReference",
-    "motion_compensate", "motion_amplitude", "CompensatedFrames",
+    "motion_compensate", "motion_amplitude", "CompensatedFrames", "alias_frequency", "alias_candidates",
+    "sample_frames", "clip_levels", "layout_problem",
 ]

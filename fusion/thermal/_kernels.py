@@ -233,7 +233,7 @@ def prefetch_group(frames, first, y, v):  # pragma: no cover - compiled
 
 
 @njit(parallel=True, cache=True, fastmath=_FASTMATH)
-def accumulate(frames, basis, bsum, ref, acc, vmax, first):  # pragma: no cover - compiled
+def accumulate(frames, basis, bsum, ref, acc, vmax, vmin, first):  # pragma: no cover - compiled
     """Add the lock-in sums of ``frames`` (n, Y, V, L) into ``acc`` (Y, 8, V L) float64.
 
     ``frames`` is a stack of Y rows of V L values cut into V vectors of L lanes
@@ -241,8 +241,9 @@ def accumulate(frames, basis, bsum, ref, acc, vmax, first):  # pragma: no cover 
     row by row as the pass reaches it, so it may come uninitialised (``np.empty``: no
     separate zeroing pass). ``basis`` is (n, 6) in the work dtype with column 0 equal to
     one; ``bsum`` its float64 column sums per sub-block (:func:`block_sums`); ``ref`` the
-    (Y, V L) float64 global reference frame. ``vmax`` (Y, V L) in the work dtype receives
-    the largest raw value of each pixel, or is (0, 0) to skip that bookkeeping.
+    (Y, V L) float64 global reference frame. ``vmax`` and ``vmin`` (Y, V L) in the work
+    dtype receive the largest and smallest raw value of each pixel, or are (0, 0) to skip
+    that bookkeeping.
     """
     n, ny, nv, lanes = frames.shape
     track = vmax.shape[0] > 0
@@ -288,6 +289,7 @@ def accumulate(frames, basis, bsum, ref, acc, vmax, first):  # pragma: no cover 
                             for lane in range(lanes):
                                 x = v * lanes + lane
                                 vmax[y, x] = max(vmax[y, x], frames[f + k, y, v, lane])
+                                vmin[y, x] = min(vmin[y, x], frames[f + k, y, v, lane])
                 f += 4
             while f < f1:
                 b1, b2, b3, b4, b5 = basis[f, 1], basis[f, 2], basis[f, 3], basis[f, 4], basis[f, 5]
@@ -306,6 +308,7 @@ def accumulate(frames, basis, bsum, ref, acc, vmax, first):  # pragma: no cover 
                         for lane in range(lanes):
                             x = v * lanes + lane
                             vmax[y, x] = max(vmax[y, x], frames[f, y, v, lane])
+                            vmin[y, x] = min(vmin[y, x], frames[f, y, v, lane])
                 f += 1
             # widen to float64 and move onto the global reference (module docstring)
             k = f0 // SUB_BLOCK
@@ -369,7 +372,7 @@ def atan2_deg(yv, xv):  # pragma: no cover - compiled
 
 
 @njit(parallel=True, cache=True, fastmath=_FASTMATH, error_model="numpy")
-def solve(acc, ref, ginv, vmax, saturation, gain, offset, half, dof, resolved, out, valid,
+def solve(acc, ref, ginv, vmax, vmin, saturation, low, gain, offset, half, dof, resolved, out, valid,
           counts):  # pragma: no cover - compiled
     """Per-pixel coefficients and maps from the sums, in place.
 
@@ -378,8 +381,9 @@ def solve(acc, ref, ginv, vmax, saturation, gain, offset, half, dof, resolved, o
     non-finite, saturated and dead pixels, and of valid pixels whose residual sum of
     squares is below ``resolved`` times their sum of squares about the sub-block
     references (float32 sums cannot be trusted with that residual: see
-    :func:`fusion.thermal._lockin._fit`). ``vmax`` is (Y, X), or (0, 0) when no
-    saturation threshold is set. Masked pixels get NaN.
+    :func:`fusion.thermal._lockin._fit`). ``vmax`` and ``vmin`` are (Y, X), or (0, 0) when
+    no threshold is set; a pixel whose largest raw value is at or above ``saturation``, or
+    whose smallest is at or below ``low``, counts as saturated. Masked pixels get NaN.
     """
     ny = acc.shape[0]
     nx = acc.shape[2]
@@ -394,7 +398,7 @@ def solve(acc, ref, ginv, vmax, saturation, gain, offset, half, dof, resolved, o
         codes = np.zeros(nx, np.int64)
         if check_sat:
             for x in range(nx):
-                codes[x] = 2 if vmax[y, x] >= saturation else 0
+                codes[x] = 2 if (vmax[y, x] >= saturation) | (vmin[y, x] <= low) else 0
         n1 = n2 = n3 = 0
         for x in range(nx):
             # one non-finite sum makes the total non-finite (finite sums cannot overflow here),
@@ -534,29 +538,31 @@ def _kernel_block(block):
 
 
 def _block_sums(block, basis, ref, with_max):
-    """Sums and maxima of one block in the band layout of ``ref``: the unit of work of the dask path."""
+    """Sums, maxima and minima of one block in the band layout of ``ref``: the unit of work of the dask path."""
     block = _kernel_block(block)
     k = block.shape[1] // ref.shape[0]
     block = banded(block, k)
     acc = np.empty((block.shape[1], N_SUMS, block.shape[2]))
     vmax = np.full(block.shape[1:], -np.inf, basis.dtype) if with_max else None
-    _run_kernel(block, np.ascontiguousarray(basis), ref, acc, vmax, True)
-    return acc, vmax
+    vmin = np.full(block.shape[1:], np.inf, basis.dtype) if with_max else None
+    _run_kernel(block, np.ascontiguousarray(basis), ref, acc, vmax, vmin, True)
+    return acc, vmax, vmin
 
 
 def _add_sums(a, b):
     acc = a[0] + b[0]
-    vmax = None if a[1] is None else np.maximum(a[1], b[1])
-    return acc, vmax
+    if a[1] is None:
+        return acc, None, None
+    return acc, np.maximum(a[1], b[1]), np.minimum(a[2], b[2])
 
 
-def _run_kernel(block, basis, ref, acc, vmax, first):
+def _run_kernel(block, basis, ref, acc, vmax, vmin, first):
     """One call of :func:`accumulate`; ``basis`` is already in the work dtype."""
     bsum = block_sums(basis)
     if vmax is None:
-        vmax = np.empty((0, 0), basis.dtype)
+        vmax = vmin = np.empty((0, 0), basis.dtype)
     with _KERNEL_LOCK:
-        accumulate(vector_view(block, basis.dtype), basis, bsum, ref, acc, vmax, first)
+        accumulate(vector_view(block, basis.dtype), basis, bsum, ref, acc, vmax, vmin, first)
 
 
 def is_dask(frames):
@@ -569,7 +575,7 @@ def stream_dask(frames, basis, with_max, chunk_frames, progress):
 
     Runs on the active scheduler (threads by default, a distributed cluster when a
     client is active); each task returns only the sums of its block. Returns sums,
-    maxima and reference in the band layout (see :func:`stream`).
+    maxima, minima and reference in the band layout (see :func:`stream`).
     """
     import dask
 
@@ -589,10 +595,10 @@ def stream_dask(frames, basis, with_max, chunk_frames, progress):
         from dask.diagnostics import ProgressBar
 
         with ProgressBar(out=sys.stderr):
-            (acc, vmax), = dask.compute(parts[0])
+            (acc, vmax, vmin), = dask.compute(parts[0])
     else:
-        (acc, vmax), = dask.compute(parts[0])
-    return acc, vmax, ref
+        (acc, vmax, vmin), = dask.compute(parts[0])
+    return acc, vmax, vmin, ref
 
 
 def _whole_sub_blocks(frames):
@@ -603,7 +609,7 @@ def _whole_sub_blocks(frames):
 
 
 def stream(frames, basis, with_max, chunk_frames, progress):
-    """One pass over a NumPy array, memory map or lazy stack; returns sums, maxima, reference.
+    """One pass over a NumPy array, memory map or lazy stack; returns sums, maxima, minima, reference.
 
     All three are in the band layout of :func:`band_rows` (``Y/k`` rows of ``k X``
     values; the sums ``(Y/k, 8, k X)``), in which :func:`solve` works too.
@@ -627,6 +633,7 @@ def stream(frames, basis, with_max, chunk_frames, progress):
     k = band_rows(ny, nx, getattr(frames, "dtype", np.float32), basis.dtype)
     acc = np.empty((ny // k, N_SUMS, k * nx))    # cleared by the first block
     vmax = np.full((ny // k, k * nx), -np.inf, basis.dtype) if with_max else None
+    vmin = np.full((ny // k, k * nx), np.inf, basis.dtype) if with_max else None
     bar = _Progress(n, progress)
     ref = None
     for f0 in range(0, n, chunk_frames):
@@ -635,9 +642,9 @@ def stream(frames, basis, with_max, chunk_frames, progress):
         block = _kernel_block(raw)
         if ref is None:
             ref = banded(np.array(block[0], dtype=np.float64), k)
-        _run_kernel(banded(block, k), basis[f0:f1], ref, acc, vmax, f0 == 0)
+        _run_kernel(banded(block, k), basis[f0:f1], ref, acc, vmax, vmin, f0 == 0)
         if isinstance(raw, np.ndarray):
             _release(raw)
         del raw, block
         bar.update(f1)
-    return acc, vmax, ref
+    return acc, vmax, vmin, ref

@@ -20,10 +20,12 @@ from numba import njit
 
 from .._conventions import short_repr
 from . import _kernels
+from ._frequency import estimate_frequency
+from ._sanity import CLIP_SAMPLE_FRAMES, clip_levels, sample_frames
 
 log = logging.getLogger(__name__)
 
-__all__ = ["LockinResult", "LoadReference", "lockin", "load_reference", "estimate_frequency"]
+__all__ = ["LockinResult", "LoadReference", "lockin", "load_reference"]
 
 _N_BASIS = 6
 
@@ -101,7 +103,8 @@ class LockinResult:
     frame_rate : float
         Mean frame rate, Hz.
     bad_pixels : dict
-        Counts of masked pixels by reason: ``nonfinite``, ``saturated``, ``dead``.
+        Counts of masked pixels by reason: ``nonfinite``, ``saturated``, ``clipped`` (on a
+        pile-up at the stack's extreme raw values), ``dead``.
     warnings : list of str
         Notes on the sampling and the data (undersampling, noise inflation, masked pixels).
     load : LoadReference or None
@@ -272,85 +275,6 @@ def load_reference(times, load, frequency) -> LoadReference:
                          second_harmonic_ratio=math.hypot(coef[4], coef[5]) / amp)
 
 
-def _rss_at(t, v, f):
-    """Residual sum of squares of the fit [1, t, cos, sin] at frequency f (normal equations)."""
-    w = 2.0 * math.pi * f * t
-    M = np.stack([np.ones_like(t), t, np.cos(w), np.sin(w)])
-    G = M @ M.T
-    r = M @ v
-    try:
-        return float(v @ v - r @ np.linalg.solve(G, r))
-    except np.linalg.LinAlgError:
-        return float(v @ v)
-
-
-def estimate_frequency(times, values) -> float:
-    """Loading frequency of a sampled signal: periodogram peak refined by a sine fit.
-
-    Parameters
-    ----------
-    times : (N,) array_like
-        Sample times, s (strictly increasing; uniform or not).
-    values : (N,) array_like
-        Signal (the load), N >= 8.
-
-    Returns
-    -------
-    float
-        Frequency of the dominant sinusoid, Hz.
-
-    Notes
-    -----
-    A linear trend is removed, then the peak of a zero-padded, Hann-windowed
-    periodogram (of the signal linearly resampled onto a uniform clock when the
-    sampling is uneven) is refined by minimising the residual of a least-squares fit of
-    ``[1, t, cos 2 pi f t, sin 2 pi f t]`` within one periodogram bin either side,
-    which for a clean sine is the maximum-likelihood estimate. A signal sampled below
-    twice its frequency returns its alias: give the frequency explicitly then.
-
-    References
-    ----------
-    .. [1] D. C. Rife and R. R. Boorstyn, "Single-tone parameter estimation from
-       discrete-time observations", IEEE Trans. Inf. Theory 20(5), 591-598, 1974.
-    """
-    from scipy.optimize import minimize_scalar
-
-    t = np.asarray(times, dtype=np.float64).ravel()
-    v = np.asarray(values, dtype=np.float64).ravel()
-    if t.shape != v.shape or t.size < 8:
-        raise ValueError(f"times and values must be 1-D of equal length >= 8, got {t.shape!r} and {v.shape!r}")
-    if not (np.all(np.isfinite(t)) and np.all(np.isfinite(v))) or np.any(np.diff(t) <= 0):
-        raise ValueError("times must be finite and strictly increasing, values finite")
-    if not np.ptp(v) > 1e-12 * max(1.0, float(np.max(np.abs(v)))):
-        raise ValueError("the signal is constant: no loading cycle to find a frequency in")
-    t = t - t[0]
-    span = t[-1]
-    v = v - np.polyval(np.polyfit(t, v, 1), t)
-    dt = np.diff(t)
-    step = float(np.median(dt))
-    lo = 1.0 / span  # below one cycle per record a "frequency" is a trend
-    n = t.size
-    # the coarse peak only has to fall within a bin: an uneven clock is resampled for it,
-    # while the refinement below fits the actual samples
-    vu = v if np.ptp(dt) <= 1e-3 * step else np.interp(np.linspace(0.0, span, n), t, v)
-    step = span / (n - 1) if vu is not v else step
-    nfft = 1 << int(math.ceil(math.log2(8 * n)))
-    power = np.abs(np.fft.rfft(vu * np.hanning(n), nfft)) ** 2
-    freqs = np.fft.rfftfreq(nfft, step)
-    keep = freqs >= lo
-    if not np.any(keep):
-        raise ValueError("the signal is too short to hold one cycle")
-    freqs, power = freqs[keep], power[keep]
-    k = int(np.argmax(power))
-    if not power[k] > 10.0 * np.median(power):
-        raise ValueError("no dominant periodic component found in the signal")
-    fp = float(freqs[k])
-    half_bin = 1.0 / span
-    res = minimize_scalar(lambda f: _rss_at(t, v, f), bounds=(max(fp - half_bin, 0.5 * lo), fp + half_bin),
-                          method="bounded", options={"xatol": 1e-7 / span})
-    return float(res.x)
-
-
 # --------------------------------------------------------------------------- main entry
 def _positive(value, name):
     try:
@@ -363,7 +287,7 @@ def _positive(value, name):
 
 
 def lockin(frames, *, frequency=None, times=None, frame_rate=None, load=None, load_times=None,
-           gain=1.0, offset=0.0, saturation=None, chunk_frames=None, progress=False,
+           gain=1.0, offset=0.0, saturation=None, clipping="detect", chunk_frames=None, progress=False,
            precision="auto") -> LockinResult:
     """Least-squares lock-in of an infrared frame stack against the load, in one pass.
 
@@ -392,6 +316,10 @@ def lockin(frames, *, frequency=None, times=None, frame_rate=None, load=None, lo
     saturation : float, optional
         Raw value (counts, or K for temperature frames) at or above which a pixel is
         taken as saturated and masked.
+    clipping : {"detect", "ignore"}
+        ``"detect"`` looks for pile-ups at the extreme raw values of a sample of frames
+        (:func:`fusion.thermal.clip_levels`) and masks every pixel that reaches such a
+        value as ``clipped``, in the same pass; ``"ignore"`` skips that.
     chunk_frames : int, optional
         Frames per streamed block. Default: a C-contiguous array in memory in one pass
         (about 20 blocks with a progress bar); memory maps and lazy stacks in blocks of
@@ -423,8 +351,8 @@ def lockin(frames, *, frequency=None, times=None, frame_rate=None, load=None, lo
     ``s^2 = (sum d^2 - beta . X^T d) / (N - 6)`` and ``std(Re C) = 2 s sqrt((X^T X)^-1_aa)``,
     which for white noise of std sigma and many whole cycles is ``sigma sqrt(8/N)``
     (each quadrature amplitude has std ``sigma sqrt(2/N)``). A pixel with any NaN or
-    infinite value, any value at or above ``saturation``, or no variation at all is masked
-    and counted in ``bad_pixels``; its sums are its own, so neighbours are untouched.
+    infinite value, any value at or above ``saturation`` or on a detected clip level, or no
+    variation at all is masked and counted in ``bad_pixels``; its sums are its own, so neighbours are untouched.
     Frames with a non-uniform clock are handled exactly through ``times``. Results are
     only as good as the frequency: an error df walks the phase by 360 df T degrees over a
     record of length T.
@@ -485,11 +413,10 @@ def lockin(frames, *, frequency=None, times=None, frame_rate=None, load=None, lo
                              f"the load needs one sample per frame, {n})")
         if frequency is None:
             frequency = estimate_frequency(lt, lv)
-            note = f"loading frequency estimated from the load signal: {frequency:.6g} Hz"
-            if load_times is None:
-                note += (f" (sampled at the frame rate, so an alias if the true frequency exceeds "
-                         f"{rate / 2:g} Hz: give the frequency to be sure)")
-            notes.append(note)
+            load_rate = (lv.size - 1) / float(lt[-1] - lt[0]) if lv.size > 1 else rate
+            notes.append(f"loading frequency estimated from the load signal: {frequency:.6g} Hz (an "
+                         f"alias if the true frequency exceeds {load_rate / 2:g} Hz, half the load's "
+                         "sample rate: give the frequency to be sure)")
         frequency = _positive(frequency, "frequency")
         ref_load = load_reference(lt, lv, frequency)
         phi = ref_load.phase
@@ -504,6 +431,14 @@ def lockin(frames, *, frequency=None, times=None, frame_rate=None, load=None, lo
     notes += sampling_notes
     if saturation is not None:
         saturation = float(saturation)
+    if clipping not in ("detect", "ignore"):
+        raise ValueError(f"clipping must be 'detect' or 'ignore', got {clipping!r}")
+    clip_high = clip_low = None
+    if clipping == "detect":
+        _frames_dtype(frames)
+        clip_high, clip_low = clip_levels(sample_frames(frames, CLIP_SAMPLE_FRAMES)[1])
+        if clip_high is not None and saturation is not None and clip_high >= saturation:
+            clip_high = None  # the saturation threshold masks those pixels already
     if chunk_frames is not None and not _kernels.is_dask(frames) and int(chunk_frames) < 1:
         raise ValueError(f"chunk_frames must be a positive integer, got {chunk_frames!r}")
     if precision not in ("auto", "float64"):
@@ -511,7 +446,7 @@ def lockin(frames, *, frequency=None, times=None, frame_rate=None, load=None, lo
     work = np.dtype(np.float64) if precision == "float64" else _kernels.work_dtype(_frames_dtype(frames))
 
     fit = dict(frames=frames, B=B, half=half, gain=gain, offset=offset, saturation=saturation,
-               chunk_frames=chunk_frames, progress=progress)
+               clip=(clip_high, clip_low), chunk_frames=chunk_frames, progress=progress)
     maps, bad, unresolved = _fit(work=work, **fit)
     if unresolved > _UNRESOLVED_LIMIT:
         # float32 sums cannot resolve the residual of these pixels (a range of roughly 250
@@ -519,6 +454,11 @@ def lockin(frames, *, frequency=None, times=None, frame_rate=None, load=None, lo
         notes.append(f"{unresolved:.1%} of the pixels have a temperature range of some 250 times "
                      "their noise or more: refitted in float64 (a second pass over the frames)")
         maps, bad, _ = _fit(work=np.dtype(np.float64), **fit)
+    for level, side in ((clip_high, "highest"), (clip_low, "lowest")):
+        if level is not None:
+            notes.append(f"the frames pile up at their {side} raw value {level:.10g} (clipped by the "
+                         f"detector or its export): {bad['clipped']} pixels reaching a clip level masked "
+                         "as clipped")
     nbad = sum(bad.values())
     if nbad:
         notes.append(f"{nbad} of {ny * nx} pixels masked: " +
@@ -539,20 +479,20 @@ _UNRESOLVED_LIMIT = 0.01
 _RESOLVED_RATIO = float(np.finfo(np.float32).eps) / 2 / 1e-3
 
 
-def _fit(*, frames, B, work, half, gain, offset, saturation, chunk_frames, progress):
+def _fit(*, frames, B, work, half, gain, offset, saturation, clip, chunk_frames, progress):
     """One pass in the ``work`` dtype and the solve; maps, bad-pixel counts, unresolved fraction."""
     # the kernels multiply by the basis rounded to their work dtype: the normal matrix is
     # built from those very values, so the fit is exact least squares on them
     Bw = B.astype(work)
     G = _kernels.gram(Bw)
-    with_max = saturation is not None
+    with_max = saturation is not None or clip != (None, None)
     if _kernels.is_dask(frames):
-        acc, vmax, ref = _kernels.stream_dask(frames, Bw, with_max, chunk_frames, progress)
+        acc, vmax, vmin, ref = _kernels.stream_dask(frames, Bw, with_max, chunk_frames, progress)
     else:
-        acc, vmax, ref = _kernels.stream(frames, Bw, with_max, chunk_frames, progress)
+        acc, vmax, vmin, ref = _kernels.stream(frames, Bw, with_max, chunk_frames, progress)
     shape = tuple(frames.shape[1:])
-    maps, bad, n_unresolved, valid = _solve(acc, vmax, ref, G, half, B.shape[0], gain, offset, saturation,
-                                            shape)
+    maps, bad, n_unresolved, valid = _solve(acc, vmax, vmin, ref, G, half, B.shape[0], gain, offset,
+                                            saturation, clip, shape)
     unresolved = 0.0
     if work == np.float32 and valid:
         unresolved = n_unresolved / valid
@@ -568,24 +508,40 @@ def _frames_dtype(frames):
     return dt
 
 
-def _solve(acc, vmax, ref, G, half, n, gain, offset, saturation, shape):
+def _solve(acc, vmax, vmin, ref, G, half, n, gain, offset, saturation, clip, shape):
     """Per-pixel maps and masks from the accumulated sums (compiled, no large temporaries).
 
     The sums come in the band layout of the pass (:func:`fusion.thermal._kernels.stream`);
     the maps are returned as ``shape`` (Y, X) views. Also returns the number of valid
     pixels whose residual float32 sums cannot resolve (see :func:`_fit`) and of valid pixels.
+    ``clip`` holds the detected clip levels (high, low; None where none): pixels reaching
+    one are counted as ``clipped``, the rest of the kernel's saturated ones as ``saturated``.
     """
     rows, _, cols = acc.shape
     out = np.empty((len(_kernels.MAP_NAMES), rows, cols), np.float32)
     valid = np.empty((rows, cols), np.bool_)
     counts = np.zeros((rows, 5), np.int64)
     vm = vmax if vmax is not None else np.empty((0, 0))
-    sat = float(saturation) if saturation is not None else math.inf
-    _kernels.solve(acc, ref, np.linalg.inv(G), vm, sat, gain, offset, half, float(n - _N_BASIS),
+    vn = vmin if vmin is not None else np.empty((0, 0))
+    high, low = clip
+    sat = min(float(saturation) if saturation is not None else math.inf,
+              high if high is not None else math.inf)
+    lo = low if low is not None else -math.inf
+    _kernels.solve(acc, ref, np.linalg.inv(G), vm, vn, sat, lo, gain, offset, half, float(n - _N_BASIS),
                    _RESOLVED_RATIO, out, valid, counts)
     out = out.reshape(out.shape[0], *shape)
     counts = counts.sum(axis=0)
-    bad = {"nonfinite": int(counts[1]), "saturated": int(counts[2]), "dead": int(counts[3])}
+    clipped = 0
+    if clip != (None, None):
+        reach = np.zeros(vm.shape, bool)
+        if high is not None:
+            reach |= vm >= high
+        if low is not None:
+            reach |= vn <= low
+        # a pixel with a non-finite value counts as non-finite first, as in the kernel
+        clipped = min(int(np.count_nonzero(reach & ~valid)), int(counts[2]))
+    bad = {"nonfinite": int(counts[1]), "saturated": int(counts[2]) - clipped, "clipped": clipped,
+           "dead": int(counts[3])}
     maps = {name: out[k] for k, name in enumerate(_kernels.MAP_NAMES)}
     maps["valid"] = valid.reshape(shape)
     return maps, bad, int(counts[4]), int(counts[0])

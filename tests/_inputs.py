@@ -1,0 +1,80 @@
+"""One small run written from an independent forward model, for the tests of input checks.
+
+Frames ``T0 + (dT/2) cos(2 pi f t + phi) + noise`` on a 40 x 48 infrared grid, a load in phase
+``L0 + (dL/2) cos(2 pi f t + phi)`` on its own clock, and a strain-range table on a 0.5 mm grid
+registered onto the infrared pixels (col = 2 x, row = 39 - 2 y), as in ``_campaigns.py``.
+"""
+
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parents[1]
+ROWS, COLS = 40, 48
+T0, SIGMA = 295.0, 0.02
+
+
+def wave(t, f, amp, *, mean=0.0, phase=0.0):
+    """``mean + (amp / 2) cos(2 pi f t + phase)``: a signed peak-to-peak range ``amp``."""
+    return mean + 0.5 * amp * np.cos(2 * np.pi * f * np.asarray(t, float) + phase)
+
+
+def stack(t, f, dT, rng, *, T0=T0, sigma=SIGMA, phase=0.0, shape=(ROWS, COLS)):
+    """A float32 frame stack of uniform signed range ``dT`` (K) at ``f`` Hz, noise ``sigma`` K."""
+    base = T0 + wave(t, f, dT, phase=phase)
+    return (base[:, None, None] + sigma * rng.standard_normal((len(t),) + tuple(shape))).astype(np.float32)
+
+
+def strain_grid():
+    """Points of the strain table (mm), covering the registered part of the infrared grid."""
+    x, y = np.meshgrid(np.arange(0, 24, 0.5), np.arange(0, 20, 0.5))
+    return x.ravel(), y.ravel()
+
+
+def write_strain(path, exx=-0.6e-3, eyy=2.0e-3, gxy=0.0, *, scale=1.0, points=None):
+    """A strain-range table; ``scale`` multiplies the values (1e6 for microstrain, 100 for %)."""
+    x, y = strain_grid() if points is None else points
+    n = np.size(x)
+    cols = [np.full(n, v * scale) if np.ndim(v) == 0 else np.asarray(v) * scale for v in (exx, eyy, gxy)]
+    np.savetxt(path, np.column_stack([x, y, *cols]), delimiter=",", header="x,y,exx,eyy,gxy", comments="")
+    return path
+
+
+def write_load(path, t, f, *, mean=11.0, amp=9.0, phase=0.0):
+    np.savetxt(path, np.column_stack([t, wave(t, f, amp, mean=mean, phase=phase)]), delimiter=",",
+               header="time,load", comments="", fmt="%.10g")
+    return path
+
+
+def write_config(folder, *, run="", thermal="", dic="", frames="ir.npy", load="load.csv",
+                 strain="strain.csv", extra=""):
+    """The config of one run named R beside its inputs; ``run``, ``thermal``, ``dic`` add keys."""
+    lib = (ROOT / "configs" / "materials.toml").as_posix()
+    load_line = f'load = "{load}"\n' if load else ""
+    inputs = f'frames = "{frames}"\n' if frames else ""
+    text = f'''material_library = "{lib}"
+[laminate]
+layup = "[0/90]s"
+ply_material = "carbon_epoxy"
+ply_thickness = "0.25 mm"
+zero_direction = "90 deg"
+[registration]
+method = "affine"
+dic_points = [[0.0, 0.0], [20.0, 0.0], [0.0, 15.0], [20.0, 15.0]]
+ir_points = [[0.0, 39.0], [40.0, 39.0], [0.0, 9.0], [40.0, 9.0]]
+[output]
+figures = false
+report = false
+{extra}
+[[run]]
+name = "R"
+{run}
+[run.thermal]
+{inputs}{load_line}{thermal}
+[run.dic]
+{f'strain_ranges = "{strain}"' if strain else ""}
+{dic}
+'''
+    cfg = Path(folder) / "c.toml"
+    cfg.write_text(text)
+    return cfg
