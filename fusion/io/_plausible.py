@@ -119,7 +119,7 @@ def check_temperatures(values, *, where, what="T0", statistic="all", hint_counts
 
 
 def check_ratio(delta_T, T0, *, where, what="delta_T", fix="convert it to kelvin"):
-    """Refuse a temperature range whose |dT/T0| is no thermoelastic signal (millikelvin read as K)."""
+    """Refuse a temperature range whose ``|dT/T0|`` is no thermoelastic signal (millikelvin read as K)."""
     b = PLAUSIBLE["ratio"]
     with np.errstate(invalid="ignore", divide="ignore"):
         r = np.asarray(delta_T, dtype=np.float64) / np.asarray(T0, dtype=np.float64)
