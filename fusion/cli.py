@@ -50,9 +50,12 @@ def _parser() -> argparse.ArgumentParser:
     pl = sub.add_parser("plan", help="frequency response of a laminate: which layer the camera "
                                      "sees at which loading frequency (no measured data needed)")
     pl.add_argument("config", type=Path)
-    pl.add_argument("--out", type=Path, help="folder for plan.nc and plan.png (default: beside the config)")
+    pl.add_argument("--out", type=Path, help="folder for plan.nc and plan.png (default: [output] folder of "
+                                              "the config); an earlier plan there is replaced")
     pl.add_argument("--laminate", metavar="NAME", help="laminate to plan (default: [plan] laminate or [laminate])")
-    pl.add_argument("--overwrite", action="store_true", help="replace an existing plan.nc")
+    pl.add_argument("--overwrite", action="store_true",
+                    help="no effect, kept for old scripts: a plan always replaces its own earlier files "
+                         "and never a file fusion did not make")
 
     g = sub.add_parser("gauge", help="correlation settings for a feature size: spatial resolution "
                                       "and noise floor of each subset, step and strain window")
@@ -119,7 +122,7 @@ def _cmd_check(args) -> int:
 def _cmd_plan(args) -> int:
     from .plan import plan_command
 
-    print(plan_command(args.config, out=args.out, laminate=args.laminate, overwrite=args.overwrite))
+    print(plan_command(args.config, out=args.out, laminate=args.laminate))
     return 0
 
 

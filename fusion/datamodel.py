@@ -16,7 +16,7 @@ import numpy as np
 
 __all__ = [
     "SOURCES", "SOURCE_LONG_NAMES", "VariableSpec", "RESULT_VARIABLES", "variable_spec",
-    "result_dataset", "source_flags",
+    "result_dataset", "source_flags", "tie_flags",
 ]
 
 #: Candidate sources of the thermoelastic signal, in the order of the source map.
@@ -66,6 +66,8 @@ def _maps():
         VariableSpec("surface_fraction", yx, "1", "fraction beta of the surface-ply response in measured = beta*surface_ply + (1-beta)*laminate"),
         VariableSpec("source_probability", ("source", "y", "x"), "1", "relative support of each source"),
         VariableSpec("source_layer", yx, "1", "best-supported source of the thermoelastic signal", dtype="int8"),
+        VariableSpec("source_tie", yx, "1", "sources that cannot be told apart where source_layer is "
+                     "indistinguishable (one bit per source)", dtype="int8"),
         VariableSpec("valid", yx, "1", "pixel has thermal and strain data of usable quality", dtype="int8"),
         VariableSpec("snr", yx, "1", "signal-to-noise ratio |delta_T| / delta_T_std"),
         VariableSpec("motion_amplitude", yx, "pixel", "peak-to-peak in-plane motion of the surface under the load range, IR pixels"),
@@ -107,6 +109,15 @@ def source_flags(sources=SOURCES) -> tuple[list[int], list[str]]:
     return values, meanings
 
 
+def tie_flags(sources=SOURCES) -> tuple[list[int], list[str]]:
+    """CF ``flag_masks`` and ``flag_meanings`` of ``source_tie`` for ``sources``.
+
+    Each source owns the bit ``1 << SOURCES.index(source)``; a pixel where the surface
+    ply and the laminate tie holds ``4 | 8 = 12``.
+    """
+    return [1 << SOURCES.index(s) for s in sources], list(sources)
+
+
 def result_dataset(maps: dict, *, attrs: dict | None = None, sources=None, coords: dict | None = None):
     """Build the result :class:`xarray.Dataset` of a run from arrays.
 
@@ -141,6 +152,11 @@ def result_dataset(maps: dict, *, attrs: dict | None = None, sources=None, coord
         if name == "source_layer":
             values, meanings = source_flags(tuple(sources or SOURCES))
             var_attrs["flag_values"] = np.array(values, dtype="int8")
+            var_attrs["flag_meanings"] = " ".join(meanings)
+            var_attrs.pop("units")
+        if name == "source_tie":
+            masks, meanings = tie_flags(tuple(sources or SOURCES))
+            var_attrs["flag_masks"] = np.array(masks, dtype="int8")
             var_attrs["flag_meanings"] = " ".join(meanings)
             var_attrs.pop("units")
         if name == "valid":

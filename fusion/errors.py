@@ -20,7 +20,7 @@ class ConfigError(FusionError, ValueError):
     Parameters
     ----------
     key : str
-        Dotted key path, e.g. ``"laminate.ply_thickness"`` or ``"run[2].thermal.frames"``.
+        Dotted key path, e.g. ``"laminate.ply_thickness"`` or ``"run 'CX-2Hz'.thermal.frames"``.
     message : str
         What was expected, and where possible how to fix it.
     source : str, optional

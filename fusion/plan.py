@@ -6,7 +6,8 @@ any measured data, the surface response of the through-thickness heat model from
 modulus and phase lag, the adiabatic value of every candidate source beside it, the
 thermal diffusion length of every layer, the contribution of each layer to the in-phase
 response and the band in which the response stays within a tolerance (2 % by default)
-of each source. It writes ``plan.nc`` and ``plan.png`` and prints a short table.
+of each source. It writes ``plan.nc`` and ``plan.png`` into the output folder (replacing its
+own earlier plan, never another file) and prints a short table.
 
 The plan is a model estimate to help choose loading frequencies; it supports engineering
 judgement and does not replace the laboratory's procedures, the applicable test standards
@@ -21,8 +22,12 @@ from pathlib import Path
 
 import numpy as np
 
+from . import __version__
+from .errors import InputError
+from .io import MARK_KEY, atomic_path, product_mark, write_netcdf
 from .mechanics._heat import diffusion_length, frequency_band, phase_lag, surface_weights
 from .mechanics._predict import REFERENCE_T0, source_coefficients, thermal_layers
+from .report import band_edges_text
 
 __all__ = ["frequency_plan", "plan_table", "plan_figure", "save_plan", "plan_command", "PLAN_CAUTION",
            "gauge_table", "gauge_command"]
@@ -32,6 +37,9 @@ PLAN_CAUTION = ("Model estimate to support engineering judgement, not a qualific
                 "under cyclic load are hazardous: follow the laboratory's procedures and the "
                 "applicable test standards, and have the loading programme reviewed by a "
                 "qualified engineer.")
+
+#: The mark of plan.nc and plan.png (:data:`fusion.io.MARK_KEY`): only files carrying it are replaced.
+PLAN_MARK = "plan"
 
 _SOURCE_WORDS = {"coating": "coating", "resin_layer": "resin-rich layer",
                  "surface_ply": "surface ply", "laminate": "laminate (homogenised)"}
@@ -166,24 +174,45 @@ def frequency_plan(laminate, strain_range, *, frequencies=None, tolerance=0.02):
     return ds
 
 
+def _words(name) -> str:
+    return _SOURCE_WORDS.get(str(name), str(name).replace("_", " "))
+
+
 def _nearest_source(value, ds) -> str:
-    """The source within tolerance of the complex ``value`` (in phase and quadrature), else
-    "mixed" with the nearest source and the relative distance."""
+    """The source within tolerance of the complex ``value`` (lag included), else the nearest
+    source and how far the response is from it."""
     ratios = ds["adiabatic_ratio"].values
     names = [str(v) for v in ds["source"].values]
     rel = np.abs(value - ratios) / np.maximum(np.abs(ratios), 1e-300)
     i = int(np.argmin(rel))
     if rel[i] <= float(ds.attrs["tolerance"]):
-        return names[i]
-    return f"mixed (nearest {names[i]}, {100 * rel[i]:.0f} % off)"
+        return _words(names[i])
+    return f"between sources (nearest: {_words(names[i])}, {100 * rel[i]:.2g} % away)"
 
 
-def _band_text(lo, hi, f) -> str:
-    if not math.isfinite(lo):
-        return "none in range"
-    a = f"{lo:.3g}" + (" (range start)" if lo <= f[0] * (1 + 1e-9) else "")
-    b = f"{hi:.3g}" + (" (range end)" if hi >= f[-1] * (1 - 1e-9) else "")
-    return f"{a} to {b} Hz"
+def _band_line(name, band, strict, f, tol) -> str:
+    """One plain sentence on where the response stays near one source."""
+    tried = (float(f[0]), float(f[-1]))
+    near = f"{_words(name)}: the response"
+    if not math.isfinite(band[0]):
+        return (f"{near} never comes within {100 * tol:g} % of it between {tried[0]:.3g} Hz and "
+                f"{tried[1]:.3g} Hz.")
+
+    def span(b):
+        lo, hi = band_edges_text(b[0], b[1], tried)
+        return f"from {lo} to {hi}"
+
+    within = f"within {100 * tol:g} % of it"
+    if np.allclose(strict, band, rtol=1e-9):
+        return f"{near} stays {within} {span(band)}, with a small phase lag."
+    text = f"{_words(name)}: the in-phase part of the response stays {within} {span(band)}"
+    if not math.isfinite(strict[0]):
+        return text + ", but the phase lag is not small there."
+    again = span(strict)
+    for said in ("(the lowest frequency tried)", "(the highest frequency tried)"):
+        if said in text:            # said once is enough
+            again = again.replace(" " + said, "")
+    return text + f"; with a small phase lag as well {again}."
 
 
 def plan_table(ds) -> str:
@@ -204,15 +233,17 @@ def plan_table(ds) -> str:
         f"{ds.attrs['laminate_thickness_m'] * 1e3:.3f} mm)",
         f"Strain range (microstrain): d eps_xx {e[0] * 1e6:.1f}, d eps_yy {e[1] * 1e6:.1f}, "
         f"d gamma_xy {e[2] * 1e6:.1f}",
-        f"Adiabatic sources: {'dT/T0 (1e-6)':>14}{'dT (mK)':>10}   band within {tol:.0%} "
-        "(in phase; and with a small lag too)",
+        f"Adiabatic value of each source: {'dT/T0 (1e-6)':>14}{f'dT at {REFERENCE_T0:g} K (mK)':>24}",
     ]
-    for i, name in enumerate(ds["source"].values):
+    names = [str(v) for v in ds["source"].values]
+    for i, name in enumerate(names):
         r = float(ds["adiabatic_ratio"].values[i])
-        band = _band_text(float(ds["band_low"].values[i]), float(ds["band_high"].values[i]), f)
-        strict = _band_text(float(ds["strict_band_low"].values[i]), float(ds["strict_band_high"].values[i]), f)
-        lines.append(f"  {_SOURCE_WORDS.get(str(name), str(name)):<24}{r * 1e6:>9.2f}{r * REFERENCE_T0 * 1e3:>10.3f}"
-                     f"   {band}; {strict}")
+        lines.append(f"  {_words(name):<30}{r * 1e6:>14.2f}{r * REFERENCE_T0 * 1e3:>24.3f}")
+    lines.append("Where the heat model's surface response stays near a source:")
+    for i, name in enumerate(names):
+        band = (float(ds["band_low"].values[i]), float(ds["band_high"].values[i]))
+        strict = (float(ds["strict_band_low"].values[i]), float(ds["strict_band_high"].values[i]))
+        lines.append(f"  {_band_line(name, band, strict, f, tol)}")
     # layers: one row per distinct material (32 identical plies would drown the table)
     marks = [x for x in (0.1, 1.0, 10.0, 100.0, 1000.0) if f[0] * (1 - 1e-9) <= x <= f[-1] * (1 + 1e-9)]
     marks = marks or [float(f[0]), float(f[-1])]
@@ -229,25 +260,74 @@ def plan_table(ds) -> str:
             rows[index[key]][1] += 1
             continue
         index[key] = len(rows)
-        rows.append(["plies" if is_ply else name, 1, t, [float(ds["diffusion_length"].values[c, j]) for c in cols]])
+        rows.append(["plies" if is_ply else _words(name), 1, t,
+                     [float(ds["diffusion_length"].values[c, j]) for c in cols]])
     for label, count, t, mus in rows:
         text = f"{label} (x{count})" if label == "plies" else label
         lines.append(f"  {text:<18}{t * 1e3:>12.3f}   {'':>25}" + "".join(f"{m * 1e3:>10.3f}" for m in mus))
-    lines.append(f"Surface response: {'f (Hz)':>8}{'in phase (1e-6)':>17}{'modulus (1e-6)':>16}"
-                 f"{'lag (deg)':>11}   source within {tol:.0%} (in phase and quadrature)")
+    lines.append(f"Surface response: {'f (Hz)':>8}{'in phase (1e-6)':>17}{'amplitude (1e-6)':>18}"
+                 f"{'lag (deg)':>11}   source within {100 * tol:g} % (lag included)")
     picks = sorted({int(np.argmin(np.abs(np.log(f / x)))) for x in
                     (0.1, 0.2, 0.5, 1, 2, 5, 10, 20, 50, 100, 200, 500, 1000)
                     if f[0] * 0.999 <= x <= f[-1] * 1.001} | {0, f.size - 1})
     for i in picks:
         r = float(ds["ratio_in_phase"].values[i])
         c = complex(r, float(ds["ratio_quadrature"].values[i]))
-        lines.append(f"  {'':>15}{f[i]:>8.3g}{r * 1e6:>17.2f}{float(ds['ratio_magnitude'].values[i]) * 1e6:>16.2f}"
+        lines.append(f"  {'':>15}{f[i]:>8.3g}{r * 1e6:>17.2f}{float(ds['ratio_magnitude'].values[i]) * 1e6:>18.2f}"
                      f"{float(ds['phase_lag'].values[i]):>11.2f}   {_nearest_source(c, ds)}")
     lines.append(PLAN_CAUTION)
     return "\n".join(lines)
 
 
 _LINESTYLES = {"coating": ":", "resin_layer": "-.", "surface_ply": "--", "laminate": (0, (6, 1.5, 1, 1.5))}
+
+
+def _plan_figure(ds):
+    """The figure of :func:`plan_figure`, not written."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    from .report._style import CATEGORY_COLOURS
+
+    f = ds["frequency"].values
+    fig = Figure(figsize=(7.0, 8.0), layout="constrained")
+    FigureCanvasAgg(fig)
+    ax_r, ax_l, ax_m = fig.subplots(3, 1, sharex=True, height_ratios=(1.4, 1.0, 1.0))
+    names = [str(v) for v in ds["source"].values]
+    for i, name in enumerate(names):
+        colour = CATEGORY_COLOURS.get(name, "0.4")
+        ax_r.axhline(float(ds["adiabatic_ratio"].values[i]) * 1e6, color=colour, lw=1.2,
+                     ls=_LINESTYLES.get(name, "--"), label=f"{_words(name)}, adiabatic")
+        lo, hi = float(ds["band_low"].values[i]), float(ds["band_high"].values[i])
+        if math.isfinite(lo):
+            for ax in (ax_r, ax_l, ax_m):
+                ax.axvspan(lo, hi, color=colour, alpha=0.15, lw=0)
+    ax_r.plot(f, ds["ratio_in_phase"].values * 1e6, color="k", lw=2.0, label="heat model, in phase")
+    signed = np.sign(ds["ratio_in_phase"].values) * ds["ratio_magnitude"].values
+    ax_r.plot(f, signed * 1e6, color="0.45", lw=1.0, label="heat model, whole amplitude (lagging part included)")
+    ax_r.set_ylabel("surface dT/T0 (1e-6)")
+    ax_r.legend(fontsize=7, loc="best")
+    ax_r.set_title(f"{ds.attrs['laminate']} ({ds.attrs['layup']}): shaded where the in-phase response stays "
+                   f"within {100 * float(ds.attrs['tolerance']):g} % of a source", fontsize=9)
+    ax_l.plot(f, ds["phase_lag"].values, color="k", lw=1.5)
+    ax_l.axhline(0.0, color="0.6", lw=0.8)
+    ax_l.set_ylabel("phase lag (degree)")
+    seen = set()
+    for j, name in enumerate(ds["layer"].values):
+        key = (float(ds["layer_conductivity"].values[j]), float(ds["layer_heat_capacity"].values[j]))
+        label = "plies" if str(name).startswith("ply ") else _words(name)
+        if (label, key) in seen:
+            continue
+        seen.add((label, key))
+        line, = ax_m.loglog(f, ds["diffusion_length"].values[:, j] * 1e3, lw=1.3, label=f"{label}")
+        ax_m.axhline(float(ds["layer_thickness"].values[j]) * 1e3, color=line.get_color(), lw=0.8, ls=":")
+    ax_m.set_ylabel("diffusion length (mm)\n(dotted: thickness)")
+    ax_m.set_xlabel("loading frequency (Hz)")
+    ax_m.set_xscale("log")
+    ax_m.legend(fontsize=7, loc="best")
+    for ax in (ax_r, ax_l, ax_m):
+        ax.grid(True, which="both", lw=0.3, alpha=0.5)
+    return fig
 
 
 def plan_figure(ds, path, *, dpi=150, overwrite=False):
@@ -258,7 +338,8 @@ def plan_figure(ds, path, *, dpi=150, overwrite=False):
     ds : xarray.Dataset
         The output of :func:`frequency_plan`.
     path : str or os.PathLike
-        PNG file to write (atomically; an existing file is kept unless ``overwrite``).
+        PNG file to write (atomically; an existing file is kept unless ``overwrite``), with
+        the text chunk ``fusion_product = plan``.
     dpi : int
         Resolution, at least 150.
 
@@ -272,79 +353,42 @@ def plan_figure(ds, path, *, dpi=150, overwrite=False):
     Log frequency axis; the adiabatic value of each source is a horizontal line and each
     source's band (within the plan's tolerance) is shaded in its colour on every panel.
     """
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
-
-    from .io import atomic_path
-    from .report._style import CATEGORY_COLOURS
-
     if isinstance(dpi, bool) or not isinstance(dpi, int) or dpi < 150:
         raise ValueError(f"dpi must be an integer >= 150, got {dpi!r}")
-    f = ds["frequency"].values
-    fig = Figure(figsize=(7.0, 8.0), layout="constrained")
-    FigureCanvasAgg(fig)
-    ax_r, ax_l, ax_m = fig.subplots(3, 1, sharex=True, height_ratios=(1.4, 1.0, 1.0))
-    names = [str(v) for v in ds["source"].values]
-    for i, name in enumerate(names):
-        colour = CATEGORY_COLOURS.get(name, "0.4")
-        ax_r.axhline(float(ds["adiabatic_ratio"].values[i]) * 1e6, color=colour, lw=1.2,
-                     ls=_LINESTYLES.get(name, "--"), label=f"{_SOURCE_WORDS.get(name, name)}, adiabatic")
-        lo, hi = float(ds["band_low"].values[i]), float(ds["band_high"].values[i])
-        if math.isfinite(lo):
-            for ax in (ax_r, ax_l, ax_m):
-                ax.axvspan(lo, hi, color=colour, alpha=0.15, lw=0)
-    ax_r.plot(f, ds["ratio_in_phase"].values * 1e6, color="k", lw=2.0, label="heat model, in phase")
-    signed = np.sign(ds["ratio_in_phase"].values) * ds["ratio_magnitude"].values
-    ax_r.plot(f, signed * 1e6, color="0.45", lw=1.0, label="heat model, modulus (signed)")
-    ax_r.set_ylabel("surface dT/T0 (1e-6)")
-    ax_r.legend(fontsize=7, loc="best")
-    ax_r.set_title(f"{ds.attrs['laminate']} ({ds.attrs['layup']}): shaded bands within "
-                   f"{float(ds.attrs['tolerance']):.0%} of a source", fontsize=9)
-    ax_l.plot(f, ds["phase_lag"].values, color="k", lw=1.5)
-    ax_l.axhline(0.0, color="0.6", lw=0.8)
-    ax_l.set_ylabel("phase lag (degree)")
-    seen = set()
-    for j, name in enumerate(ds["layer"].values):
-        key = (float(ds["layer_conductivity"].values[j]), float(ds["layer_heat_capacity"].values[j]))
-        label = "plies" if str(name).startswith("ply ") else str(name)
-        if (label, key) in seen:
-            continue
-        seen.add((label, key))
-        line, = ax_m.loglog(f, ds["diffusion_length"].values[:, j] * 1e3, lw=1.3, label=f"{label}")
-        ax_m.axhline(float(ds["layer_thickness"].values[j]) * 1e3, color=line.get_color(), lw=0.8, ls=":")
-    ax_m.set_ylabel("diffusion length (mm)\n(dotted: thickness)")
-    ax_m.set_xlabel("loading frequency (Hz)")
-    ax_m.set_xscale("log")
-    ax_m.legend(fontsize=7, loc="best")
-    for ax in (ax_r, ax_l, ax_m):
-        ax.grid(True, which="both", lw=0.3, alpha=0.5)
+    fig = _plan_figure(ds)
     path = Path(path)
     with atomic_path(path, overwrite=overwrite) as tmp:
-        fig.savefig(tmp, format="png", dpi=dpi)
+        fig.savefig(tmp, format="png", dpi=dpi, metadata={MARK_KEY: PLAN_MARK, "Software": f"fusion {__version__}"})
     return path
 
 
-def save_plan(ds, folder, *, overwrite=False, dpi=150) -> dict:
+def save_plan(ds, folder, *, dpi=150) -> dict:
     """Write ``plan.nc`` and ``plan.png`` into ``folder``; returns their paths by name.
 
-    Both targets are checked before anything is written, so a refused overwrite leaves
-    the folder as it was.
-    """
-    from .errors import InputError
-    from .io import write_netcdf
+    A plan is a what-if: an earlier ``plan.nc`` or ``plan.png`` that fusion plan wrote (its
+    mark :data:`fusion.io.MARK_KEY` says ``"plan"``) is replaced without asking. Any other file
+    of those names is never replaced: both targets are checked before anything is written, so
+    a refusal leaves the folder as it was.
 
+    Raises
+    ------
+    InputError
+        Naming a target that exists and was not written by fusion plan.
+    """
     folder = Path(folder)
     paths = {"plan.nc": folder / "plan.nc", "plan.png": folder / "plan.png"}
-    if not overwrite:
-        for p in paths.values():
-            if p.exists():
-                raise InputError(p, "exists already; pass --overwrite to replace it")
-    write_netcdf(ds, paths["plan.nc"], overwrite=overwrite)
-    plan_figure(ds, paths["plan.png"], dpi=dpi, overwrite=overwrite)
+    for p in paths.values():
+        if (p.exists() or p.is_symlink()) and product_mark(p) != PLAN_MARK:
+            raise InputError(p, "exists and was not written by fusion plan, which replaces only its own "
+                             "plan.nc and plan.png: move the file away or write the plan elsewhere with --out")
+    ds = ds.copy()
+    ds.attrs[MARK_KEY] = PLAN_MARK
+    write_netcdf(ds, paths["plan.nc"], overwrite=True)
+    plan_figure(ds, paths["plan.png"], dpi=dpi, overwrite=True)
     return paths
 
 
-def plan_command(config, *, out=None, laminate=None, overwrite=False) -> str:
+def plan_command(config, *, out=None, laminate=None) -> str:
     """``fusion plan CONFIG``: plan the configured laminate, write plan.nc and plan.png.
 
     Parameters
@@ -353,11 +397,12 @@ def plan_command(config, *, out=None, laminate=None, overwrite=False) -> str:
         Config file; its ``[plan]`` table gives the strain, load direction, frequency range,
         count and tolerance.
     out : path, optional
-        Output folder (default: the config's folder).
+        Output folder (default: the config's output folder, ``[output] folder`` or
+        ``results`` beside the config, as for ``fusion run``). An earlier plan there is
+        replaced; any other file named plan.nc or plan.png is left alone (see
+        :func:`save_plan`).
     laminate : str, optional
         Name of the laminate (default: ``[plan] laminate``, else the ``[laminate]`` table).
-    overwrite : bool
-        Replace an existing plan.
 
     Returns
     -------
@@ -388,12 +433,15 @@ def plan_command(config, *, out=None, laminate=None, overwrite=False) -> str:
     strain = uniaxial_strain_state(lam, strain=spec.strain, direction=spec.direction)
     ds = frequency_plan(lam, strain, frequencies=np.geomspace(spec.f_min, spec.f_max, spec.count),
                         tolerance=spec.tolerance)
-    folder = Path(out) if out is not None else cfg.folder
-    paths = save_plan(ds, folder, overwrite=overwrite, dpi=max(150, int(cfg.output.dpi)))
+    folder = cfg.output_folder(out)
+    earlier = {name for name, p in (("plan.nc", folder / "plan.nc"), ("plan.png", folder / "plan.png"))
+               if p.exists()}
+    paths = save_plan(ds, folder, dpi=max(150, int(cfg.output.dpi)))
     from .mechanics import source_table
 
     return (source_table(lam, strain) + "\n\n" + plan_table(ds) + "\n"
-            + "\n".join(f"wrote {p}" for p in paths.values()))
+            + "\n".join(f"wrote {p}" + (" (replacing the earlier plan)" if name in earlier else "")
+                         for name, p in paths.items()))
 
 
 # --------------------------------------------------------------------------- correlation settings

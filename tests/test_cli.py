@@ -26,7 +26,9 @@ def test_usage_error_exits_2(capsys):
 @pytest.mark.parametrize("text, expected", [
     ("[laminate]\nlayup = '[0/90]s'\nply_material = 'x'\nply_thickness = '5 Hz'\n",
      r"laminate\.ply_thickness: '5 Hz' has dimension"),
-    ("[[run]]\nname = 'a'\nfrequency = '5 mm'\n", r"run\[0\]\.frequency: '5 mm' has dimension \[length\]"),
+    ("[[run]]\nname = 'a'\nfrequency = '5 mm'\n", r"run 'a'\.frequency: '5 mm' has dimension \[length\]"),
+    # a run without a usable name can only be named by its place
+    ("[[run]]\nfrequency = '5 Hz'\n", r"run\[0\]\.name: is required"),
     ("bogus = 1\n", r"bogus: unknown key"),
     ("a = [1,\n", r"not valid TOML"),
 ])
@@ -62,7 +64,7 @@ strain_ranges = "also_missing.csv"
 ''')
     assert main(["check", str(cfg)]) == 1
     err = capsys.readouterr().err.strip()
-    assert "nothere.npy" in err and "does not exist" in err and "run[0].thermal.frames" in err
+    assert "nothere.npy" in err and "does not exist" in err and "run 'r1'.thermal.frames" in err
 
 
 def test_debug_shows_traceback(tmp_path):

@@ -1,6 +1,7 @@
 """Config parsing: units, layup codes, every error path names its key."""
 
 import math
+import re
 import string
 import tomllib
 from pathlib import Path
@@ -66,7 +67,8 @@ def test_parse_quantity(text, unit, expected):
 
 
 def test_wrong_dimension_names_key():
-    with pytest.raises(ConfigError, match=r"run\[0\]\.frequency: '5 mm' has dimension \[length\], expected a value in Hz"):
+    with pytest.raises(ConfigError, match=r"run 'OH1-10Hz'\.frequency: '5 mm' has dimension \[length\], "
+                                          "expected a value in Hz"):
         loads_config(BASE.replace('frequency = "10 Hz"', 'frequency = "5 mm"'))
 
 
@@ -76,11 +78,13 @@ def test_wrong_dimension_names_key():
     ('ply_material = "carbon_epoxy"', 'ply_material = "epoxy"', r"laminate\.ply_material", "isotropic"),
     ('layup = "[45/0/-45/90]s"', 'layup = "[45/0/-45/90"', r"laminate\.layup", "cannot read layup code"),
     ('[registration]', '[registraton]', r"registraton", "unknown key; valid keys here: .*registration"),
-    ('name = "OH1-10Hz"', 'name = "../etc"', r"run\[0\]\.name", "letters, digits"),
-    ('frame_rate = "200 Hz"', 'frame_rate = "200 Hz"\nmaps = "m.nc"', r"run\[0\]\.thermal", "exactly one of 'frames' or 'maps'"),
+    ('name = "OH1-10Hz"', 'name = "../etc"', r"run '\.\./etc'\.name", "letters, digits"),
+    ('frame_rate = "200 Hz"', 'frame_rate = "200 Hz"\nmaps = "m.nc"', r"run 'OH1-10Hz'\.thermal",
+     "exactly one of 'frames' or 'maps'"),
     ('method = "identity"', 'method = "homography"', r"registration\.dic_points", "needs 'dic_points'"),
     ('zero_direction = "90 deg"', 'zero_direction = "90 deg"\nextra = 1', r"laminate\.extra", "unknown key"),
-    ('frequency = "10 Hz"', 'frequency = true', r"run\[0\]\.frequency", "expected a number"),
+    ('frequency = "10 Hz"', 'frequency = true', r"run 'OH1-10Hz'\.frequency", "expected a number"),
+    ('name = "OH1-10Hz"', 'name = 12', r"run\[0\]\.name", "expected a string"),
 ])
 def test_error_paths_name_the_key(old, new, key_re, what):
     assert old in BASE
@@ -97,8 +101,18 @@ def test_material_bound_names_property():
 
 def test_duplicate_run_names_refused():
     dup = BASE + BASE[BASE.index("[[run]]"):].replace("OH1-10Hz", "oh1-10hz")
-    with pytest.raises(ConfigError, match=r"run\[1\]\.name: 'oh1-10hz' is used by run\[0\]"):
+    with pytest.raises(ConfigError, match=r"run 'oh1-10hz'\.name: 'oh1-10hz' is used by run 'OH1-10Hz'"):
         loads_config(dup)
+
+
+def test_errors_name_a_later_run_by_its_name():
+    # the issue's example: the second run's frames named as run 'CX-2Hz', not as run[1]
+    second = BASE[BASE.index("[[run]]"):].replace("OH1-10Hz", "CX-2Hz").replace('frequency = "10 Hz"',
+                                                                              'frequency = "2 mm"')
+    with pytest.raises(ConfigError, match=r"run 'CX-2Hz'\.frequency: '2 mm' has dimension") as err:
+        loads_config(BASE + second)
+    assert err.value.key == "run 'CX-2Hz'.frequency"
+    assert "[1]" not in str(err.value)
 
 
 def test_missing_config_file_and_library(tmp_path):
@@ -156,6 +170,40 @@ def test_readme_documents_every_key():
     text = (ROOT / "configs" / "README.md").read_text()
     ref = markdown_reference()
     assert ref.strip() in text, "configs/README.md is stale: regenerate with `python -m fusion.config`"
+
+
+def _readme_tables():
+    """{heading: [row cells...]} of the key reference in configs/README.md, read as Markdown
+    (GitHub Flavored Markdown tables: a cell ends at an unescaped '|')."""
+    text = (ROOT / "configs" / "README.md").read_text()
+    tables, heading = {}, None
+    for line in text.split("## Key reference", 1)[1].splitlines():
+        if line.startswith("### "):
+            heading = line[4:]
+            assert heading not in tables, f"heading {heading!r} twice"
+            tables[heading] = []
+        elif line.startswith("| `") and heading is not None:
+            tables[heading].append([c.strip() for c in re.split(r"(?<!\\)\|", line)[1:-1]])
+    return tables
+
+
+def test_readme_holds_each_table_once():
+    import dataclasses
+
+    from fusion.config import _sections
+
+    tables = _readme_tables()
+    for cells in (c for rows in tables.values() for c in rows):
+        assert len(cells) == 5, cells         # key, type, unit, default, meaning: no stray '|'
+    keys = {h: tuple(c[0].strip("`") for c in rows) for h, rows in tables.items()}
+    for cls in (c for c in vars(_sections).values() if dataclasses.is_dataclass(c) and isinstance(c, type)):
+        fields = tuple(f.name for f in dataclasses.fields(cls) if "key" in f.metadata)
+        found = [h for h, k in keys.items() if k == fields]
+        assert len(found) == 1, f"{cls.__name__}: documented {len(found)} times ({found})"
+    # every table the config can hold is named where it sits
+    for place in ("`laminate.coating`", "`run.registration`", "`registration`", "`diagnosis.regions[i]`",
+                  "`run.thermal`", "`run.dic`", "`laminates.NAME`"):
+        assert any(place in h for h in tables), place
 
 
 # ---------------------------------------------------------------- property-based

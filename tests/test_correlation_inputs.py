@@ -89,7 +89,7 @@ def test_loads_of_states_rescale_to_the_cycle(tmp_path, rng):
 
 def test_loads_of_states_need_a_load_signal(tmp_path, rng):
     dic = _states(tmp_path, -0.3e-3, 1e-3, loads_of_states='["2 kN", "11 kN"]')
-    with pytest.raises(ConfigError, match=r"run\[0\]\.dic\.loads: rescales the ranges of 'states' to the load "
+    with pytest.raises(ConfigError, match=r"run 'R'\.dic\.loads: rescales the ranges of 'states' to the load "
                                           r"signal's range, but the run has no thermal\.load"):
         load_config(_run(tmp_path, rng, dic=dic, strain=None, load=False))
 

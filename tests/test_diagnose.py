@@ -589,3 +589,60 @@ def test_heat_model_is_named_only_where_no_layer_fits(rng):
     left, right = d.source_layer[:, : X // 2], d.source_layer[:, X // 2:]
     assert np.mean(left == SOURCES.index("laminate")) > 0.99       # not "indistinguishable"
     assert np.mean(right == SOURCES.index("model")) > 0.99
+
+
+def _tie_rule_by_hand(m, sm, preds, pstd, fit_threshold=3.0, distinguish=1.0, secondary=("model",)):
+    """The decision rule of diagnose() (its Notes, steps 1-3) written pixel by pixel in plain Python:
+    an independent implementation for the set of sources that tie at each pixel."""
+    names = [s for s in SOURCES if s in preds]
+    ties = {}
+    for idx in np.ndindex(m.shape):
+        mi, si = float(m[idx]), float(sm)
+        p = {s: float(np.broadcast_to(preds[s], m.shape)[idx]) for s in names}
+        sp = {s: float(np.broadcast_to(pstd[s], m.shape)[idx]) for s in names}
+        sig = {s: math.hypot(si, sp[s]) for s in names}
+        fits = [s for s in names if abs(mi - p[s]) / sig[s] <= fit_threshold]
+        if not fits:
+            continue
+        primary = [s for s in fits if s not in secondary]
+        cand = primary or fits
+        loglik = {s: -0.5 * ((mi - p[s]) / sig[s]) ** 2 - math.log(sig[s]) for s in cand}
+        best = max(cand, key=loglik.get)
+        close = [s for s in cand if s != best
+                 and abs(p[s] - p[best]) < distinguish * math.sqrt(si ** 2 + sp[s] ** 2 + sp[best] ** 2)]
+        if close:
+            ties[idx] = {best, *close}
+    return ties
+
+
+def test_tied_sources_match_the_rule_written_by_hand(rng):
+    # independent implementation: the decision rule of diagnose's Notes written pixel by pixel in plain Python
+    # four layer sources and the heat model, with spacings that give ties of two and of three,
+    # and a secondary source (the heat model) that only ties where no layer fits
+    shape = (12, 40)
+    sm = 1e-6
+    base = rng.uniform(-6e-6, -4e-6, shape)
+    preds = {"coating": base - 40e-6, "resin_layer": base + 30e-6,
+             "surface_ply": base + rng.normal(0, 0.6e-6, shape),
+             "laminate": base + rng.normal(0, 1.5e-6, shape),
+             "model": base + rng.normal(0, 1.0e-6, shape)}
+    pstd = {s: 0.5e-6 for s in preds}
+    preds["coating"][:, 10:20] = base[:, 10:20] + rng.normal(0, 0.8e-6, (shape[0], 10))   # three may tie
+    preds["laminate"][:, 20:28] += 6e-6                                                  # one may stand out
+    m = base + rng.normal(0, 1.0e-6, shape)
+    m[:, -4:] = base[:, -4:] + 25e-6       # only the resin layer can come near here: no source fits
+    d = diagnose(m, sm, preds, pstd)
+    want = _tie_rule_by_hand(m, sm, preds, pstd)
+    got = {}
+    for idx in zip(*np.nonzero(d.tied)):
+        got[idx] = {s for s in SOURCES if int(d.tied[idx]) & (1 << SOURCES.index(s))}
+    assert got == {tuple(int(i) for i in k): v for k, v in want.items()}
+    # a tie exactly where the map says indistinguishable, never elsewhere
+    np.testing.assert_array_equal(d.tied != 0, d.category("indistinguishable"))
+    assert {frozenset(v) for v in want.values()} >= {frozenset({"surface_ply", "laminate"}),
+                                                      frozenset({"coating", "surface_ply", "laminate"})}
+    assert d.category("surface_ply").any() and d.category("no_source_fits").any()
+    # CF flag_masks through the result dataset: one bit per source
+    ds = result_dataset(d.to_maps(), sources=d.sources)
+    assert list(ds["source_tie"].attrs["flag_masks"]) == [1 << SOURCES.index(s) for s in d.sources]
+    assert ds["source_tie"].attrs["flag_meanings"].split() == list(d.sources)

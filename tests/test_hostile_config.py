@@ -72,14 +72,16 @@ def _check_one_line(capsys, path, *, names=None, key=None, match=None):
 def test_unsafe_run_names_are_refused(name):
     # run names become folder names: separators, "..", hidden, empty, control
     # characters and non-ASCII are refused at load time
-    with pytest.raises(ConfigError, match=r"run\[0\]\.name: .* is not allowed") as err:
+    # the message names the run as written where that is printable, by its place otherwise
+    where = f"run {name!r}" if name and len(name) <= 100 and name.isprintable() else "run[0]"
+    with pytest.raises(ConfigError, match=re.escape(where) + r"\.name: .* is not allowed") as err:
         loads_config(BASE + _run(name=json.dumps(name)), base="/tmp")
-    assert err.value.key == "run[0].name"
+    assert err.value.key == f"{where}.name"
 
 
 @pytest.mark.parametrize("name", ["con", "NUL", "figures", "report.html", "frequency.nc", "Summary.JSON"])
 def test_reserved_run_names_are_refused(name):
-    with pytest.raises(ConfigError, match=r"run\[0\]\.name: .* is a reserved name"):
+    with pytest.raises(ConfigError, match=re.escape(f"run {name!r}.name: ") + ".* is a reserved name"):
         loads_config(BASE + _run(name=json.dumps(name)), base="/tmp")
 
 
@@ -93,13 +95,13 @@ def test_names_equal_ignoring_case_are_refused(tmp_path, capsys):
     # two folders "Run1" and "run1" are one folder on case-insensitive file systems
     p = tmp_path / "dup.toml"
     p.write_text(BASE + _run(name='"Run1"') + _run(name='"run1"'))
-    _check_one_line(capsys, p, key="run[1].name", match="used by run\\[0\\] already")
+    _check_one_line(capsys, p, key="run 'run1'.name", match="'run1' is used by run 'Run1' already")
 
 
 def test_run_name_in_cli_message_names_file_and_key(tmp_path, capsys):
     p = tmp_path / "c.toml"
     p.write_text(BASE + _run(name='"../../etc"'))
-    _check_one_line(capsys, p, key="run[0].name")
+    _check_one_line(capsys, p, key="run '../../etc'.name")
 
 
 # ------------------------------------------------------------------------ paths
@@ -118,7 +120,7 @@ def test_input_paths_resolve_from_the_config_folder(tmp_path, monkeypatch):
 def test_missing_input_named_with_its_key(tmp_path, capsys):
     p = tmp_path / "c.toml"
     p.write_text(BASE + _run())
-    _check_one_line(capsys, p, names=tmp_path / "frames.npy", key="run[0].thermal.frames")
+    _check_one_line(capsys, p, names=tmp_path / "frames.npy", key="run 'r1'.thermal.frames")
 
 
 def test_config_shape_larger_than_the_raw_file(tmp_path, capsys):

@@ -192,7 +192,7 @@ def _maps_run(folder, thermal):
 def test_maps_need_their_convention(tmp_path):
     _maps_file(tmp_path / "m.nc")
     cfg = _maps_run(tmp_path, 'maps = "m.nc"')
-    with pytest.raises(ConfigError, match=r"run\[0\]\.thermal\.delta_T_convention: is required with 'maps'"):
+    with pytest.raises(ConfigError, match=r"run 'R'\.thermal\.delta_T_convention: is required with 'maps'"):
         load_config(cfg)
 
 

@@ -5,7 +5,7 @@ import pytest
 import xarray as xr
 
 from fusion.errors import ConfigError, InputError
-from fusion.io import read_netcdf
+from fusion.io import MARK_KEY, read_netcdf
 from fusion.mechanics import (
     IsotropicMaterial, Laminate, OrthotropicMaterial, SurfaceLayer, source_coefficients,
     uniaxial_strain_state,
@@ -89,7 +89,7 @@ def test_plan_bands_of_a_carbon_cross_ply():
     assert list(ds.attrs["band_surface_ply"]) == pytest.approx([lo, hi])
 
 
-def test_plan_files_round_trip_and_overwrite(tmp_path):
+def test_plan_files_round_trip_and_replace_only_their_own(tmp_path):
     # not a physics check: files, round trip and overwrite
     from PIL import Image
 
@@ -103,17 +103,67 @@ def test_plan_files_round_trip_and_overwrite(tmp_path):
         assert back[name].attrs == ds[name].attrs, name
     assert back.attrs["caution"] == ds.attrs["caution"]
     np.testing.assert_allclose(back.attrs["strain_range"], ds.attrs["strain_range"])
+    # both files carry the mark that makes them replaceable (read back by Pillow, independently)
+    assert back.attrs[MARK_KEY] == "plan"
     with Image.open(paths["plan.png"]) as img:
         assert img.format == "PNG"
         assert img.info["dpi"][0] == pytest.approx(160, abs=0.5)
         assert img.size[0] >= 1000
-    before = paths["plan.nc"].read_bytes()
-    with pytest.raises(InputError, match="exists already"):
-        save_plan(ds, tmp_path)
-    assert paths["plan.nc"].read_bytes() == before
-    save_plan(ds, tmp_path, overwrite=True)
+        assert img.text[MARK_KEY] == "plan"
+    # a what-if tool: the second plan replaces the first without asking
+    other = frequency_plan(lam, uniaxial_strain_state(lam, strain=2e-3), frequencies=np.geomspace(0.1, 200, 41))
+    save_plan(other, tmp_path)
+    assert read_netcdf(paths["plan.nc"])["ratio_in_phase"].values == pytest.approx(other["ratio_in_phase"].values)
     with pytest.raises(ValueError, match="dpi"):
         plan_figure(ds, tmp_path / "low.png", dpi=72)
+
+
+@pytest.mark.parametrize("name", ["plan.nc", "plan.png"])
+@pytest.mark.parametrize("content", [b"my own notes", b"\x89PNG\r\n\x1a\n", b""])
+def test_plan_never_replaces_a_file_it_did_not_make(tmp_path, name, content):
+    # not a physics check: ownership of the plan's files
+    lam = coated()
+    ds = frequency_plan(lam, uniaxial_strain_state(lam), frequencies=np.geomspace(0.1, 200, 21))
+    (tmp_path / name).write_bytes(content)
+    with pytest.raises(InputError, match=f"{name}: exists and was not written by fusion plan.*--out"):
+        save_plan(ds, tmp_path)
+    assert (tmp_path / name).read_bytes() == content
+    # checked before anything is written: the other file does not appear either
+    assert sorted(p.name for p in tmp_path.iterdir()) == [name]
+
+
+def test_plan_never_replaces_other_netcdf_or_png_files(tmp_path):
+    # not a physics check: ownership of the plan's files
+    # a real NetCDF file and a real PNG image of the same names, not made by fusion plan
+    from PIL import Image
+
+    xr.Dataset({"a": ("x", np.arange(3.0))}, attrs={"title": "fusion frequency plan"}).to_netcdf(
+        tmp_path / "plan.nc")
+    Image.new("RGB", (4, 4)).save(tmp_path / "plan.png")
+    before = {p.name: p.read_bytes() for p in tmp_path.iterdir()}
+    lam = coated()
+    ds = frequency_plan(lam, uniaxial_strain_state(lam), frequencies=np.geomspace(0.1, 200, 21))
+    with pytest.raises(InputError, match="plan.nc: exists and was not written by fusion plan"):
+        save_plan(ds, tmp_path)
+    (tmp_path / "plan.nc").unlink()
+    with pytest.raises(InputError, match="plan.png: exists and was not written by fusion plan"):
+        save_plan(ds, tmp_path)
+    assert (tmp_path / "plan.png").read_bytes() == before["plan.png"]
+    assert not (tmp_path / "plan.nc").exists()
+
+
+def test_plan_never_follows_a_link_named_like_its_files(tmp_path):
+    # not a physics check: links are never followed
+    lam = coated()
+    ds = frequency_plan(lam, uniaxial_strain_state(lam), frequencies=np.geomspace(0.1, 200, 21))
+    first = tmp_path / "first"
+    save_plan(ds, first)
+    second = tmp_path / "second"
+    second.mkdir()
+    (second / "plan.png").symlink_to(first / "plan.png")   # a link to a real plan is still not ours
+    with pytest.raises(InputError, match="plan.png: exists and was not written by fusion plan"):
+        save_plan(ds, second)
+    assert (second / "plan.png").is_symlink()
 
 
 def test_plan_table_text():
@@ -127,6 +177,49 @@ def test_plan_table_text():
     assert f"{surface * 1e6:.2f}" in text
     assert "hazardous" in text and "test standards" in text
     assert len(text.splitlines()) < 40  # a short table
+    # words for the reader, not internal keys or shorthand
+    for shorthand in ("none in range", "in phase; and with", "modulus", "resin_layer", "surface_ply", "range end"):
+        assert shorthand not in text
+
+
+def test_plan_bands_in_plain_sentences():
+    # not a physics check: the sentences state the band values the plan computed
+    # a bare carbon cross-ply: the surface ply's band runs to the end of the frequencies planned
+    # (see test_plan_bands_of_a_carbon_cross_ply), the laminate's starts at their beginning
+    lam = Laminate.from_layup(CFRP, "[0/90]2s", 0.25e-3)
+    ds = frequency_plan(lam, uniaxial_strain_state(lam), frequencies=np.geomspace(0.01, 200, 131))
+    lines = {ln.strip().split(":")[0]: ln.strip() for ln in plan_table(ds).splitlines()}
+    assert float(ds["band_high"].sel(source="surface_ply")) == pytest.approx(200)
+    lo = float(ds["band_low"].sel(source="surface_ply"))
+    slo = float(ds["strict_band_low"].sel(source="surface_ply"))
+    sp = lines["surface ply"]
+    assert f"from {lo:.3g} Hz to above 200 Hz (the highest frequency tried)" in sp
+    assert f"with a small phase lag as well from {slo:.3g} Hz to above 200 Hz" in sp or (
+        slo == pytest.approx(lo) and "with a small phase lag." in sp)
+    assert sp.endswith(".") and "within 2 % of it" in sp
+    hi = float(ds["band_high"].sel(source="laminate"))
+    assert f"from below 0.01 Hz (the lowest frequency tried) to {hi:.3g} Hz" in lines["laminate (homogenised)"]
+    # a source the response never reaches says so, with the range planned
+    coated_ds = frequency_plan(coated(), uniaxial_strain_state(coated()))
+    assert np.isnan(float(coated_ds["band_low"].sel(source="resin_layer")))
+    assert ("resin-rich layer: the response never comes within 2 % of it between 0.1 Hz and 200 Hz."
+            in [ln.strip() for ln in plan_table(coated_ds).splitlines()])
+
+
+def test_plan_figure_says_what_its_curves_are(tmp_path):
+    # not a physics check: legend labels
+    from PIL import Image
+
+    from fusion.plan import _plan_figure
+
+    lam = coated()
+    ds = frequency_plan(lam, uniaxial_strain_state(lam), frequencies=np.geomspace(0.1, 200, 41))
+    labels = [t.get_text() for ax in _plan_figure(ds).axes if ax.get_legend() for t in ax.get_legend().get_texts()]
+    assert "heat model, whole amplitude (lagging part included)" in labels
+    assert "resin-rich layer, adiabatic" in labels and "resin-rich layer" in labels
+    assert not [t for t in labels if "modulus" in t or "_" in t]
+    with Image.open(plan_figure(ds, tmp_path / "p.png")) as img:
+        assert img.text[MARK_KEY] == "plan"
 
 
 CONFIG = """
@@ -168,23 +261,47 @@ dpi = 150
 """
 
 
-def test_plan_command(tmp_path):
+def test_plan_command_writes_into_the_output_folder(tmp_path):
     # not a physics check: the command reads its config and writes its files
     cfg = tmp_path / "campaign.toml"
     cfg.write_text(CONFIG, encoding="utf-8")
     text = plan_command(cfg)
-    assert "wrote" in text and (tmp_path / "plan.nc").is_file() and (tmp_path / "plan.png").is_file()
-    ds = read_netcdf(tmp_path / "plan.nc")
+    results = tmp_path / "results"          # the default output folder, as for fusion run
+    assert f"wrote {results / 'plan.nc'}" in text and f"wrote {results / 'plan.png'}" in text
+    assert not (tmp_path / "plan.nc").exists() and not (tmp_path / "plan.png").exists()
+    ds = read_netcdf(results / "plan.nc")
     assert ds.sizes["frequency"] == 41
     assert ds["frequency"].values[-1] == pytest.approx(100.0)
     assert ds.attrs["strain_range"][0] == pytest.approx(1e-3)
-    out = tmp_path / "elsewhere"
-    plan_command(cfg, out=out)
-    assert (out / "plan.nc").is_file()
-    with pytest.raises(InputError, match="overwrite"):
-        plan_command(cfg)
+    # a second plan replaces the first without asking, and says so
+    again = plan_command(cfg)
+    assert "(replacing the earlier plan)" in again
+    # the config's [output] folder, and --out above it
+    cfg.write_text(CONFIG.replace("[output]", '[output]\nfolder = "out"'), encoding="utf-8")
+    plan_command(cfg)
+    assert (tmp_path / "out" / "plan.nc").is_file() and (tmp_path / "out" / "plan.png").is_file()
+    elsewhere = tmp_path / "elsewhere"
+    plan_command(cfg, out=elsewhere)
+    assert sorted(p.name for p in elsewhere.iterdir()) == ["plan.nc", "plan.png"]
     with pytest.raises(ConfigError, match="no laminate 'other'"):
-        plan_command(cfg, laminate="other", overwrite=True)
+        plan_command(cfg, laminate="other")
+
+
+def test_plan_command_line_output_folder(tmp_path, capsys):
+    # not a physics check: where the command writes
+    from fusion.cli import main
+
+    cfg = tmp_path / "campaign.toml"
+    cfg.write_text(CONFIG, encoding="utf-8")
+    (tmp_path / "results").mkdir()
+    (tmp_path / "results" / "plan.png").write_bytes(b"a picture of my own")
+    assert main(["plan", str(cfg)]) == 1
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "plan.png: exists and was not written by fusion plan" in err
+    assert (tmp_path / "results" / "plan.png").read_bytes() == b"a picture of my own"
+    assert main(["plan", str(cfg), "--out", str(tmp_path / "o")]) == 0
+    assert main(["plan", str(cfg), "--out", str(tmp_path / "o"), "--overwrite"]) == 0   # old scripts
+    assert "replacing the earlier plan" in capsys.readouterr().out
 
 
 def test_plan_bad_arguments():

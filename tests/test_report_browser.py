@@ -195,6 +195,18 @@ def small_result(name, frequency, code):
                                        "registration_rms": 0.15, "pixel_size_mm": 0.3})
 
 
+SOURCES = ("coating", "resin_layer", "surface_ply", "laminate", "model")
+# region rows as a run writes them (fusion.run: name, pixels, measured mean and spread, the winning
+# category and its share, then each source's predicted mean and mean |z|), five sources
+REGIONS = [
+    {"name": name, "pixels": n, "measured_mean": -5.123e-6 * k, "measured_std": 3.2e-7, "winner": winner,
+     "winner_share": share, **{f"predicted_{s}": -5.0e-6 * k * (1 + 0.3 * i) for i, s in enumerate(SOURCES)},
+     **{f"mean_abs_z_{s}": 0.81 + 3 * i for i, s in enumerate(SOURCES)}}
+    for k, (name, n, winner, share) in enumerate([("whole field", 412, "resin_layer", 0.9964),
+                                                  ("hole edge, upper ligament", 37, "indistinguishable", 0.62),
+                                                  ("far field", 120, "no_source_fits", 0.004)], start=1)]
+
+
 @pytest.fixture(scope="module")
 def loaded(browser, tmp_path_factory):
     tmp = tmp_path_factory.mktemp("browser-report")
@@ -206,7 +218,7 @@ def loaded(browser, tmp_path_factory):
                 {"name": "ply 2 (90°)", "z_top": 0.2e-3, "z_bottom": 0.4e-3, "ratio": -1e-6}]
         figs = report.run_figures(ds, tmp / name, dpi=50, reference_image=np.random.default_rng(2).random((16, 28)),
                                   region_mask=np.ones((16, 28), bool), ply_profile=rows)
-        runs.append({"summary": report.summarize_run(ds), "figures": figs})
+        runs.append({"summary": report.summarize_run(ds, regions=REGIONS if f == 20.0 else None), "figures": figs})
     spec = {"frequency": [5.0, 20.0], "ratio": [-4e-6, -5e-6], "ratio_std": [1e-7, 1e-7],
             "adiabatic": {"surface_ply": -5e-6, "laminate": -2.2e-6}, "band": (10.0, None)}
     camp = report.campaign_figures({"B1": spec}, tmp / "campaign", dpi=50, datasets=datasets)
@@ -245,7 +257,7 @@ def test_verdicts_and_tables_are_on_the_page(loaded):
                        "unscoped: Array.from(document.querySelectorAll('th')).filter(t => !t.scope).length, "
                        "cautions: document.getElementById('cautions').innerText, "
                        "title: document.title})")
-    assert info["tables"] == 1 + 2 * 2  # overview + per run (sources, dT/T0); no region rows given
+    assert info["tables"] == 1 + 2 * 2 + 2  # overview + per run (sources, dT/T0) + the regions of one run
     assert info["unscoped"] == 0
     assert "do not certify a component" in info["cautions"] and "qualified engineers" in info["cautions"]
     assert info["title"].startswith("Browser check")
@@ -297,3 +309,39 @@ def test_print_layout(loaded):
     # the print style sheet starts each run on a new page: header + 2 runs give at least 3 page objects
     # (ISO 32000-1, 7.7.3.3: leaf page objects have /Type /Page)
     assert len(re.findall(rb"/Type\s*/Page(?![a-zA-Z])", pdf)) >= 3
+
+
+def _regions_state(dt):
+    return dt.evaluate("""(() => {
+        const wraps = Array.from(document.querySelectorAll('div.table-wrap'))
+            .filter(w => /region table|predictions per region/.test(w.getAttribute('aria-label')));
+        return {texts: wraps.map(w => w.innerText),
+                overflow: wraps.map(w => w.querySelector('table').getBoundingClientRect().width
+                                         - w.getBoundingClientRect().width),
+                page: document.documentElement.scrollWidth - document.documentElement.clientWidth};
+    })()""")
+
+
+@pytest.mark.parametrize("width", [1280, 800])
+def test_region_tables_use_labels_and_percent_and_fit_the_page(loaded, width):
+    dt, _, _ = loaded
+    dt.call("Emulation.setDeviceMetricsOverride", width=width, height=900, deviceScaleFactor=1, mobile=False)
+    try:
+        for media in ("", "print"):
+            dt.call("Emulation.setEmulatedMedia", media=media)
+            state = _regions_state(dt)
+            assert len(state["texts"]) == 2
+            # no table wider than its box (no hidden columns to scroll to), nothing wider than the page
+            assert max(state["overflow"]) <= 0.5, (width, media, state["overflow"])
+            assert state["page"] <= 0, (width, media)
+    finally:
+        dt.call("Emulation.setEmulatedMedia", media="")
+        dt.call("Emulation.clearDeviceMetricsOverride")
+    text = "\n".join(state["texts"])
+    # labels as in the rest of the report, shares in percent (0.9964 -> "> 99 %", 0.004 -> "< 1 %")
+    for label in ("resin-rich layer", "indistinguishable", "no source fits", "surface ply", "whole laminate",
+                  "heat model at 20 Hz"):
+        assert label in text, label
+    assert "> 99 %" in text and "62 %" in text and "< 1 %" in text
+    for raw in ("resin_layer", "no_source_fits", "0.9964", "winner", "mean_abs_z", "predicted_"):
+        assert raw not in text, raw

@@ -76,7 +76,8 @@ def map_images(fig):
 def test_public_api_is_pinned():
     # the public names are listed once in __all__ (SciPy's public-API test habit)
     expected = {
-        "CATEGORY_COLOURS", "CAUTIONS", "FIGURE_NAMES", "campaign_figures", "format_percent", "frequency_figure",
+        "CATEGORY_COLOURS", "CAUTIONS", "FIGURE_NAMES", "NO_DATA_COLOUR", "band_edges_text", "band_sentence", "campaign_figures",
+        "format_percent", "frequency_figure",
         "measured_vs_predicted_figure", "overlay_figure", "present_categories", "profile_figure", "render_report",
         "residuals_figure", "run_figures", "sample_line", "source_map_figure", "source_map_grid",
         "source_map_grid_figure", "summarize_run", "summary_schema", "through_thickness_figure",
@@ -248,18 +249,90 @@ def test_palette_is_distinct_for_common_colour_vision_deficiencies():
                 assert deltaE_cie76(lab[i], lab[j]) > 10, (name, colours[i], colours[j])
 
 
-def test_scale_bar_in_mm_or_pixel_axes():
-    fig = report.source_map_figure(make_result(pixel_size_mm=0.25))
-    (bar,) = by_gid(fig, "scalebar")
-    (label,) = by_gid(fig, "scalebar_label")
-    length_mm = float(label.get_text().split()[0])
-    # bar length in IR px times mm per px equals its label; a 1-2-5 value within a quarter of 80 px * 0.25 mm
-    assert bar.get_width() * 0.25 == pytest.approx(length_mm)
-    assert length_mm == 5.0
-    fig = report.source_map_figure(make_result(pixel_size_mm=None))
-    assert not by_gid(fig, "scalebar")
-    ax = fig.axes[0]
-    assert ax.get_xlabel() == "IR pixel column" and ax.get_ylabel() == "IR pixel row"
+_MAP_FIGURES = {
+    "source_map": lambda ds: report.source_map_figure(ds),
+    "measured_vs_predicted": lambda ds: report.measured_vs_predicted_figure(ds),
+    "residuals": lambda ds: report.residuals_figure(ds),
+    "profile": lambda ds: report.profile_figure(ds),
+    "source_map_grid": lambda ds: report.source_map_grid_figure({"a": ds}),
+}
+
+
+@pytest.mark.parametrize("name", sorted(_MAP_FIGURES))
+def test_no_data_pixels_have_one_colour_in_every_map(name):
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.colors import to_rgb
+
+    fig = _MAP_FIGURES[name](make_result())
+    canvas = FigureCanvasAgg(fig)
+    canvas.draw()
+    rgba = np.asarray(canvas.buffer_rgba())
+    want = np.round(255 * np.array(to_rgb(report.NO_DATA_COLOUR)))
+    maps = [ax for ax in fig.axes if ax.images]
+    assert maps
+    for ax in maps:
+        # a point inside the hole of radius 6 px (no valid data), off the profile line through its row
+        x, y = ax.transData.transform((NX / 2 + 2, NY / 2 - 3))
+        pixel = rgba[int(round(rgba.shape[0] - y)), int(round(x)), :3].astype(float)
+        np.testing.assert_allclose(pixel, want, atol=2, err_msg=f"{name}: {ax.get_title()}")
+
+
+def test_no_data_colour_stands_apart_from_every_map_colour():
+    # the dark grey must not read as a value of viridis, coolwarm or a category, in normal vision
+    # and under the Machado, Oliveira & Fernandes (2009) deuteranopia/protanopia simulation at
+    # severity 1.0 (matrices from memory, as in the palette test above)
+    import matplotlib
+    from skimage.color import deltaE_cie76, rgb2lab
+
+    sims = [np.eye(3),
+            np.array([[0.367322, 0.860646, -0.227968], [0.280085, 0.672501, 0.047413],
+                      [-0.011820, 0.042940, 0.968881]]),
+            np.array([[0.152286, 1.052583, -0.204868], [0.114503, 0.786281, 0.099216],
+                      [-0.003882, -0.048116, 1.051998]])]
+
+    def view(rgb, m):  # sRGB (IEC 61966-2-1) -> linear -> simulated -> sRGB -> CIELAB
+        lin = np.where(rgb <= 0.04045, rgb / 12.92, ((rgb + 0.055) / 1.055) ** 2.4)
+        out = np.clip(lin @ m.T, 0, 1)
+        return rgb2lab(np.where(out <= 0.0031308, 12.92 * out, 1.055 * out ** (1 / 2.4) - 0.055)[None])[0]
+
+    from matplotlib.colors import to_rgb
+
+    others = np.concatenate([matplotlib.colormaps["viridis"](np.linspace(0, 1, 256))[:, :3],
+                             matplotlib.colormaps["coolwarm"](np.linspace(0, 1, 256))[:, :3],
+                             np.array([to_rgb(c) for k, c in report.CATEGORY_COLOURS.items() if k != "no_data"])])
+    grey = np.array([to_rgb(report.NO_DATA_COLOUR)])
+    assert report.CATEGORY_COLOURS["no_data"] == report.NO_DATA_COLOUR
+    for m in sims:
+        # CIE76 difference above 15: clearly another colour (our threshold; a just-noticeable
+        # difference is about 2.3, Sharma 2003 - from memory)
+        assert deltaE_cie76(view(grey, m), view(others, m)).min() > 15
+
+
+@pytest.mark.parametrize("build", [
+    lambda ds: report.source_map_figure(ds),
+    lambda ds: report.measured_vs_predicted_figure(ds),
+    lambda ds: report.residuals_figure(ds),
+    lambda ds: report.profile_figure(ds),
+    lambda ds: report.source_map_grid_figure({"a": ds}),
+], ids=["source_map", "measured_vs_predicted", "residuals", "profile", "source_map_grid"])
+def test_every_map_has_a_scale_bar_in_mm_or_in_ir_pixels(build):
+    fig = build(make_result(pixel_size_mm=0.25))
+    bars, labels = by_gid(fig, "scalebar"), by_gid(fig, "scalebar_label")
+    assert bars and len(bars) == len(labels)
+    for bar, label in zip(bars, labels):
+        value, unit = label.get_text().split()
+        # bar length in IR px times mm per px equals its label; a 1-2-5 value within a quarter of 80 px * 0.25 mm
+        assert unit == "mm" and float(value) == 5.0
+        assert bar.get_width() * 0.25 == pytest.approx(float(value))
+    # a run without a known pixel size gets the same bar in IR pixels: 20 px is the 1-2-5 value
+    # within a quarter of the 80 px field
+    fig = build(make_result(pixel_size_mm=None))
+    bars, labels = by_gid(fig, "scalebar"), by_gid(fig, "scalebar_label")
+    assert bars and len(bars) == len(labels)
+    for bar, label in zip(bars, labels):
+        assert label.get_text() == "20 IR px"
+        assert bar.get_width() == pytest.approx(20.0)
+        assert not bar.axes.get_xticks().size and not bar.axes.get_yticks().size
 
 
 def test_overlay_outlines_the_region_where_find_contours_does():

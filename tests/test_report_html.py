@@ -216,3 +216,38 @@ def test_report_refuses_bad_input_and_overwrite(built):
         report.write_report(path.with_name("r2.html"), campaign={}, runs=[{"figures": {}}])
     empty = report.write_report(path.with_name("empty.html"), campaign={}, runs=[])
     assert "No run completed." in parse(empty.read_text(encoding="utf-8")).text
+
+
+def test_header_names_the_operator_and_the_bands_are_sentences():
+    band = {"low": 8.2, "high": 400.0, "source": "surface_ply", "tolerance": 0.02, "strict": True,
+            "tried": (0.025, 400.0)}
+    s = report.summarize_run(small_result("S1-5Hz", 5.0))
+    html = report.render_report(
+        campaign={"name": "C", "operator": "J. <Doe>", "description": "Open-hole coupons, batch 7",
+                  "sweeps": {"S1": {"band_info": band, "frequencies": [5.0, 50.0]}}},
+        runs=[{"summary": s, "figures": {}}])
+    page = parse(html)
+    assert "Operator J. <Doe>" in page.text and "J. &lt;Doe&gt;" in html
+    assert "Open-hole coupons, batch 7" in page.text
+    assert ("Specimen S1: Recommended loading frequencies from 8.2 Hz to above 400 Hz (the highest frequency "
+            "tried); there the heat model stays within 2 % of the adiabatic dT/T0 of the surface ply, with a "
+            "small phase lag; the run at 5 Hz lies below the band; the run at 50 Hz lies inside the band.") in page.text
+    assert "limits of the rig" in page.text and "test standard" in page.text     # the band is the model's word
+    # without sweeps the section says why it is empty, and the operator line is left out
+    html = report.render_report(campaign={"name": "C"}, runs=[{"summary": s, "figures": {}}])
+    assert "No specimen was tested at two or more frequencies." in parse(html).text
+    assert "Operator" not in html
+
+
+def test_region_table_in_labels_percent_and_scaled_numbers():
+    rows = [{"name": "whole field", "pixels": 400, "measured_mean": -5.123e-6, "measured_std": 3.2e-7,
+             "winner": "resin_layer", "winner_share": 0.9964, "predicted_resin_layer": -5.0e-6,
+             "predicted_laminate": -2.04e-6, "mean_abs_z_resin_layer": 0.79, "mean_abs_z_laminate": 12.3}]
+    s = report.summarize_run(small_result("S1-5Hz", 5.0), regions=rows)
+    page = parse(report.render_report(campaign={"name": "C"}, runs=[{"summary": s, "figures": {}}]))
+    text = page.text
+    # one common power of ten per table in its header, three digits in the cells
+    assert "Measured dT/T0, mean (×10 −6 )" in text and "−5.12" in text and "0.32" in text
+    assert "resin-rich layer" in text and "whole laminate" in text and "> 99 %" in text
+    assert "|z| 0.79" in text and "|z| 12" in text
+    assert "resin_layer" not in text and "0.9964" not in text and "mean abs z" not in text

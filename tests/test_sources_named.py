@@ -71,6 +71,7 @@ OTHER_MODULES = {
     "test_memory_budget.py": "memory use of the streaming passes",
     "test_import_graph.py": "the import structure of the package",
     "test_report_resolution.py": "resolution attributes through result.nc, summary.json and the report",
+    "test_campaign_products.py": "frequency.nc, the band sentences and the report of a small campaign",
     "test_api_rebuild.py": "the Python API's steps against the command line's result.nc (two code paths)",
     "test_api_door.py": "error text of the plausibility checks at the Python API's door",
     "test_docs.py": "the API reference, docstring references, README example and package data",

@@ -68,6 +68,82 @@ def test_verdict_states_each_case_honestly(counts, expected):
     assert report.verdict(result_with_counts(counts)) == expected
 
 
+def result_with_ties(rows, *, frequency=20.0):
+    """A 1-row result from (category, tied sources, fitting sources, pixel count) rows, built by hand:
+    ``source_tie`` holds one bit per tied source and ``source_probability`` is above 0 exactly
+    where a source fits (the conventions of fusion.datamodel and fusion.diagnose)."""
+    sources = ("coating", "resin_layer", "surface_ply", "laminate", "model")
+    codes, tie, prob = [], [], []
+    for category, tied, fitting, n in rows:
+        codes += [CODE[category]] * n
+        tie += [sum(1 << sources.index(t) for t in tied)] * n
+        prob += [[1.0 / len(fitting) if src in fitting else 0.0 for src in sources]] * n
+    n = len(codes)
+    measured = np.full((1, n), -5e-6)
+    maps = {"ratio_measured": measured, "ratio_measured_std": np.full((1, n), 1e-7),
+            "source_layer": np.array(codes)[None, :], "source_tie": np.array(tie)[None, :],
+            "source_probability": np.array(prob).T[:, None, :], "valid": np.ones((1, n), np.int8)}
+    maps.update({f"ratio_{src}": measured for src in sources})
+    return result_dataset(maps, sources=sources, attrs={"run_name": "T-20Hz", "frequency": frequency})
+
+
+@pytest.mark.parametrize("rows, expected", [
+    # the case the verdict was too vague for: which sources tie, which are ruled out
+    ([("indistinguishable", ("surface_ply", "laminate"), ("surface_ply", "laminate", "model"), 95),
+      ("surface_ply", (), ("surface_ply",), 5)],
+     "surface ply and whole laminate fit equally (indistinguishable) in 95 % of the valid area at 20 Hz; "
+     "elsewhere mostly the surface ply (5 %); coating and resin-rich layer rejected"),
+    # two sets of tied sources: the largest is named, the rest counted
+    ([("indistinguishable", ("surface_ply", "laminate"), ("surface_ply", "laminate"), 60),
+      ("indistinguishable", ("coating", "surface_ply", "laminate"), ("coating", "surface_ply", "laminate"), 30),
+      ("laminate", (), ("laminate",), 10)],
+     "surface ply and whole laminate fit equally (indistinguishable) in 60 % of the valid area at 20 Hz, "
+     "other sets of sources tie in 30 %; elsewhere mostly the whole laminate (10 %); resin-rich layer and "
+     "heat model at 20 Hz rejected"),
+    # one source wins; a source fitting in 5 % of the area (the limit) is rejected, in 6 % it is not
+    ([("surface_ply", (), ("surface_ply", "laminate"), 94), ("surface_ply", (), ("surface_ply", "coating"), 5),
+      ("surface_ply", (), ("surface_ply", "resin_layer", "model"), 1)],
+     "signal from the surface ply in 100 % of the valid area at 20 Hz; coating, resin-rich layer and heat "
+     "model at 20 Hz rejected"),
+    ([("surface_ply", (), ("surface_ply", "coating"), 6), ("surface_ply", (), ("surface_ply",), 94)],
+     "signal from the surface ply in 100 % of the valid area at 20 Hz; resin-rich layer, whole laminate and "
+     "heat model at 20 Hz rejected"),
+    # no source fits: the sentence says so, without a list that would repeat it
+    ([("no_source_fits", (), (), 80), ("laminate", (), ("laminate",), 20)],
+     "no candidate source fits the measurement in 80 % of the valid area at 20 Hz"),
+])
+def test_verdict_names_the_tied_and_the_rejected_sources(rows, expected, tmp_path):
+    ds = result_with_ties(rows)
+    assert report.verdict(ds) == expected
+    s = report.summarize_run(ds)
+    assert s["verdict"] == expected
+    report.validate_summary(s)
+    ties = [(set(t), n) for category, t, _f, n in rows if category == "indistinguishable"]
+    assert [(set(t["sources"]), t["fraction"]) for t in s["ties"]] == [
+        (t, pytest.approx(n / 100)) for t, n in sorted(ties, key=lambda tn: -tn[1])]
+    for src, share in s["fit_fractions"].items():
+        assert share == pytest.approx(sum(n for *_x, fitting, n in rows if src in fitting) / 100)
+    # the maps and their CF attributes survive result.nc, and so does the sentence
+    write_netcdf(ds, tmp_path / "result.nc")
+    assert report.verdict(read_netcdf(tmp_path / "result.nc")) == expected
+
+
+def test_verdict_of_a_diagnosis_where_two_sources_coincide():
+    # diagnose() end to end: surface ply and laminate predict the same ratio, coating and resin
+    # layer lie 30 sigma away, the measurement sits on the first two
+    from fusion.diagnose import diagnose
+
+    rng = np.random.default_rng(11)
+    m = -5e-6 + rng.normal(0, 1e-7, (4, 25))
+    preds = {"coating": np.full(m.shape, -2e-5), "resin_layer": np.full(m.shape, 1e-5),
+             "surface_ply": np.full(m.shape, -5e-6), "laminate": np.full(m.shape, -5e-6)}
+    d = diagnose(m, 1e-7, preds, {k: 5e-8 for k in preds})
+    maps = {**d.to_maps(), "ratio_measured": m, "valid": d.valid.astype(np.int8)}
+    ds = result_dataset(maps, sources=d.sources, attrs={"run_name": "C-20Hz", "frequency": 20.0})
+    assert report.verdict(ds) == ("surface ply and whole laminate fit equally (indistinguishable) in 100 % of "
+                                  "the valid area at 20 Hz; coating and resin-rich layer rejected")
+
+
 def test_verdict_without_data_or_frequency():
     assert report.verdict(result_with_counts({}, invalid=10)) == (
         "no valid data at 20 Hz: no pixel has both thermal and strain data of usable quality")

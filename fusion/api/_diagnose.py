@@ -13,8 +13,6 @@ from ._labels import COMPONENTS
 
 __all__ = ["diagnosis"]
 
-# maps that keep their values outside the valid area, as in result.nc
-_KEEP_OUTSIDE = ("source_layer", "valid", "source_probability")
 
 
 def _measured(measured, measured_std):
@@ -109,14 +107,14 @@ def diagnosis(measured, predicted, *, strain=None, valid=None, measured_std=None
                     predicted_lag=plag, fit_threshold=fit_threshold, distinguish=distinguish)
     maps = diag.to_maps()
     maps["valid"] = good.astype(np.int8)
+    # as in result.nc: float maps are NaN outside the valid area, flag maps keep their own
+    # no-data coding there
     for k, v in list(maps.items()):
-        if k not in _KEEP_OUTSIDE:
-            v = np.asarray(v, np.float32).copy()
-            v[~good] = np.nan
+        v = np.asarray(v)
+        if v.dtype.kind == "f":
+            v = v.astype(np.float32, copy=True)
+            v[..., ~good] = np.nan
             maps[k] = v
-    prob = np.asarray(maps["source_probability"], np.float32).copy()
-    prob[:, ~good] = np.nan
-    maps["source_probability"] = prob
     ds = result_dataset(maps, sources=diag.sources)
     ds.attrs.update(area_fraction=dict(diag.area_fraction), n_valid=int(diag.n_valid), uses_lag=bool(diag.uses_lag),
                     min_snr=float(min_snr), **diag.settings)

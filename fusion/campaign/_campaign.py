@@ -71,7 +71,7 @@ def run_campaign(config_path, *, out=None, overwrite: bool = False, only=None, s
         result = CampaignOutcome(out=out, runs=outcomes)
         try:
             check_campaign_targets(out)
-            result.frequency, result.report = write_campaign(cfg, out, outcomes, overwrite=True)
+            result.frequency, result.report, result.bands = write_campaign(cfg, out, outcomes, overwrite=True)
         except FusionError as e:
             result.campaign_errors.append(str(e))
     return result
@@ -86,7 +86,7 @@ def check_campaign(config_path) -> list[str]:
     cfg = load_config(config_path)
     lines = [f"{cfg.path}: config valid ({len(cfg.runs)} runs, {len(cfg.laminates)} laminates, "
              f"{len(cfg.materials)} materials)"]
-    for i, run in enumerate(cfg.runs):
-        lines.append(f"  {run.name}: " + check_run_inputs(cfg, run, key=f"run[{i}]"))
+    for run in cfg.runs:
+        lines.append(f"  {run.name}: " + check_run_inputs(cfg, run, key=run.config_key))
     lines.append("ok")
     return lines

@@ -29,6 +29,7 @@ class CampaignOutcome:
     report: Path | None = None
     frequency: Path | None = None
     campaign_errors: list = dataclasses.field(default_factory=list)
+    bands: list = dataclasses.field(default_factory=list)     # one sentence per swept specimen
 
     @property
     def ok(self) -> bool:
@@ -51,6 +52,7 @@ class CampaignOutcome:
         lines.insert(0, f"fusion: {head}; results in {self.out}")
         if self.frequency:
             lines.append(f"  frequency sweep fit: {self.frequency}")
+        lines.extend(f"    {b}" for b in self.bands)
         if self.report:
             lines.append(f"  report: {self.report}")
         return "\n".join(lines)

@@ -10,10 +10,10 @@ import numpy as np
 
 from .. import __version__
 from ..errors import FusionError
-from ..io import atomic_path, read_netcdf
-from ..io._netcdf import _clean_attrs
-from ..mechanics import fit_sweep, fit_sweep_maps, source_coefficients, sweep_dataset
-from ..report import campaign_figures, write_report
+from ..io import read_netcdf
+from ..mechanics import fit_sweep, fit_sweep_maps, source_coefficients
+from ..report import band_sentence, campaign_figures, write_report
+from ._frequency import band_info, band_label, band_pair, write_frequency
 
 log = logging.getLogger(__name__)
 
@@ -137,49 +137,12 @@ def _fit_specimen(cfg, spec, items, datasets):
             "runs": [run.name for run, _ in items]}
 
 
-def _write_frequency(fits: dict, path: Path, *, overwrite=True) -> Path:
-    """frequency.nc: one NetCDF group per specimen (the sweep fit and, where the runs share the
-    infrared grid, the per-pixel maps), written atomically."""
-    import xarray as xr
-
-    with atomic_path(path, overwrite=overwrite) as tmp:
-        root = xr.Dataset(attrs={"title": "frequency-sweep fits of the campaign", "Conventions": "CF-1.10",
-                                 "fusion_version": __version__, "specimens": " ".join(fits)})
-        root.to_netcdf(tmp, engine="netcdf4", mode="w")
-        for spec, f in fits.items():
-            ds = sweep_dataset(f["fit"])
-            ds.attrs.update(specimen=spec, runs=" ".join(f["runs"]), laminate=f["laminate"].name)
-            for name, arr in (f["maps"] or {}).items():
-                a = np.asarray(arr)
-                if a.ndim != 2:
-                    continue
-                units = "m" if "thickness" in name else "Hz" if "frequency" in name else "1"
-                ds[f"map_{name}"] = (("y", "x"), a.astype(np.float32),
-                                     {"units": units, "long_name": f"per-pixel sweep fit: {name.replace('_', ' ')}"})
-            ds.attrs = _clean_attrs(ds.attrs)
-            for v in ds.variables:
-                ds[v].attrs = _clean_attrs(ds[v].attrs)
-                if ds[v].dtype == object:
-                    ds[v] = ds[v].astype(str)
-            ds.to_netcdf(tmp, engine="netcdf4", mode="a", group=_group_name(spec))
-    return path
-
-
-def _group_name(spec: str) -> str:
-    import re
-
-    return re.sub(r"[^A-Za-z0-9_]", "_", spec) or "specimen"
-
-
-def _band(fit):
-    b = getattr(fit, "band", None) or (np.nan, np.nan)
-    if isinstance(b, dict):
-        b = b.get("surface_ply", b.get("laminate", (np.nan, np.nan)))
-    return (float(b[0]), float(b[1]))
-
-
 def write_campaign(cfg, out: Path, outcomes, *, overwrite=True):
-    """Write frequency.nc (when a specimen has a sweep) and report.html; return their paths."""
+    """Write frequency.nc (when a specimen has a sweep) and report.html.
+
+    Returns the paths of frequency.nc and report.html (None when not written) and one
+    sentence per specimen on its recommended loading-frequency band (for the terminal).
+    """
     fits = {}
     loaded = _results(outcomes)
     for spec, (items, datasets) in _sweeps(cfg, outcomes, loaded).items():
@@ -189,7 +152,7 @@ def write_campaign(cfg, out: Path, outcomes, *, overwrite=True):
             log.warning("specimen %s: sweep fit failed (%s)", spec, e)
     freq_path = None
     if fits:
-        freq_path = _write_frequency(fits, out / "frequency.nc", overwrite=overwrite)
+        freq_path = write_frequency(fits, out / "frequency.nc", overwrite=overwrite)
     report_path = None
     if cfg.output.report:
         runs, figures = [], {}
@@ -212,28 +175,35 @@ def write_campaign(cfg, out: Path, outcomes, *, overwrite=True):
                                                   overwrite=True))
         failures = [{"run": o.name, "error": o.error} for o in outcomes if o.status == "failed"]
         campaign = {"name": cfg.campaign.name, "description": cfg.campaign.description,
-                    "config_sha256": cfg.sha256, "version": __version__,
+                    "operator": cfg.campaign.operator, "config_sha256": cfg.sha256, "version": __version__,
                     "date": _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
                     "config_text": cfg.text, "config_path": str(cfg.path) if cfg.path else None,
                     "sweeps": {sp: _sweep_summary(f) for sp, f in fits.items()}}
         report_path = write_report(out / "report.html", campaign=campaign, runs=runs,
                                      campaign_figures=figures, failures=failures, overwrite=True)
-    return freq_path, report_path
+    bands = [band_sentence(band_info(f), frequencies=f["frequencies"], specimen=sp) for sp, f in fits.items()]
+    return freq_path, report_path, bands
 
 
 def _specimen_figure_input(f):
     fit = f["fit"]
     mf, mr = fit.model_curve
+    b = band_info(f)
+    # an edge at the end of the range tried is open: the figure shades to its own edge
+    band = (None if b["source"] is None else
+            (None if b["low_open"] else b["low"], None if b["high_open"] else b["high"]))
     return {"frequency": f["frequencies"], "ratio": f["ratio"], "ratio_std": f["ratio_std"],
             "model": {"frequency": np.asarray(mf), "ratio": np.real(np.asarray(mr))},
-            "adiabatic": f["limits"], "band": _band(fit)}
+            "adiabatic": f["limits"], "band": band, "band_label": band_label(b)}
 
 
 def _sweep_summary(f):
     fit = f["fit"]
+    b = band_info(f)
     return {"runs": f["runs"], "frequencies": [float(x) for x in f["frequencies"]],
             "ratio": [float(x) for x in f["ratio"]],
             "params": {k: float(v) for k, v in fit.params.items()},
             "std_errors": {k: float(v) for k, v in fit.std_errors.items()},
             "low_frequency_source": str(fit.low_frequency_source),
-            "high_frequency_source": str(fit.high_frequency_source), "band": list(_band(fit))}
+            "high_frequency_source": str(fit.high_frequency_source), "band": list(band_pair(fit)),
+            "band_info": b, "band_text": band_sentence(b, frequencies=f["frequencies"])}

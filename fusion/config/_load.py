@@ -17,7 +17,7 @@ from ..mechanics import (
 from . import _schema as s
 from ._schema import Context
 from ._sections import (CampaignSpec, ComputeSpec, DiagnosisSpec, IsotropicSpec, LaminateSpec, LayerRef,
-                        OrthotropicSpec, OutputSpec, PlanSpec, RegistrationSpec, RunSpec, TopLevel)
+                        OrthotropicSpec, OutputSpec, PlanSpec, RegistrationSpec, RunSpec, TopLevel, run_key)
 
 _MAX_CONFIG_BYTES = 4 << 20
 
@@ -150,22 +150,24 @@ def _validate(doc: dict, text: str, path: Path | None, *, base: Path | None = No
         raise ConfigError("run", "expected an array of tables [[run]]", source=ctx.source)
     runs, seen = [], {}
     for i, table in enumerate(top.run):
-        run = s.build(RunSpec, table, f"run[{i}]", ctx)
+        # messages name the run as the user wrote it, not by its place in the file
+        where = run_key(table.get("name") if isinstance(table, dict) else None, i)
+        run = s.build(RunSpec, table, where, ctx)
         low = run.name.lower()
         if low in seen:
-            raise ConfigError(f"run[{i}].name", f"{run.name!r} is used by run[{seen[low]}] already "
+            raise ConfigError(f"{where}.name", f"{run.name!r} is used by run {seen[low]!r} already "
                               "(names become folder names and must be unique, ignoring case)",
                               source=ctx.source)
-        seen[low] = i
+        seen[low] = run.name
         want = run.laminate or "default"
         if want not in laminates:
             if run.laminate is None:
-                raise ConfigError(f"run[{i}].laminate", "no laminate given and the config has no "
+                raise ConfigError(f"{where}.laminate", "no laminate given and the config has no "
                                   "[laminate] table", source=ctx.source)
-            raise ConfigError(f"run[{i}].laminate", f"unknown laminate {run.laminate!r}; known: "
+            raise ConfigError(f"{where}.laminate", f"unknown laminate {run.laminate!r}; known: "
                               f"{sorted(k for k in laminates if k != 'default')}", source=ctx.source)
         if run.registration is None and top.registration is None:
-            raise ConfigError(f"run[{i}].registration", "no [registration] for this run and none at "
+            raise ConfigError(f"{where}.registration", "no [registration] for this run and none at "
                               "the top level (use method = \"identity\" if the grids coincide)",
                               source=ctx.source)
         runs.append(run)

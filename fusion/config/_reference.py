@@ -8,18 +8,17 @@ from ._sections import (CampaignSpec, ComputeSpec, DiagnosisSpec, IsotropicSpec,
 
 
 def markdown_reference() -> str:
-    """The key reference of the config, as Markdown (for configs/README.md)."""
-    parts = [
-        s.markdown_reference(TopLevel, "top level", title="top level"),
-        s.markdown_reference(CampaignSpec, "campaign"),
-        s.markdown_reference(OrthotropicSpec, "materials.NAME", title="materials.NAME (orthotropic ply)"),
-        s.markdown_reference(IsotropicSpec, "materials.NAME", title="materials.NAME (isotropic)"),
-        s.markdown_reference(LaminateSpec, "laminate", title="laminate and laminates.NAME"),
-        s.markdown_reference(RunSpec, "run", title="[[run]]"),
-        s.markdown_reference(RegistrationSpec, "registration"),
-        s.markdown_reference(DiagnosisSpec, "diagnosis"),
-        s.markdown_reference(ComputeSpec, "compute"),
-        s.markdown_reference(OutputSpec, "output"),
-        s.markdown_reference(PlanSpec, "plan"),
-    ]
-    return "\n".join(parts)
+    """The key reference of the config, as Markdown (for configs/README.md): every table once."""
+    return s.markdown_reference([
+        (TopLevel, "top level", "Top level"),
+        (CampaignSpec, "campaign", None),
+        (OrthotropicSpec, "materials.NAME", "`materials.NAME`: an orthotropic ply material"),
+        (IsotropicSpec, "materials.NAME", "`materials.NAME`: an isotropic material"),
+        (LaminateSpec, ["laminate", "laminates.NAME"], None),
+        (RunSpec, "run", "`[[run]]`: one table per run"),
+        (RegistrationSpec, "registration", None),
+        (DiagnosisSpec, "diagnosis", None),
+        (ComputeSpec, "compute", None),
+        (OutputSpec, "output", None),
+        (PlanSpec, "plan", None),
+    ], shallow=(TopLevel,))

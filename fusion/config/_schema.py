@@ -130,6 +130,8 @@ def list_of(item, *, min_len=0, max_len=None):
             raise _err(k, f"expected a list of {n} entries, got {len(value)}", ctx)
         return tuple(item(v, f"{k}[{i}]", ctx) for i, v in enumerate(value))
     parse.type_name = f"list of {getattr(item, 'type_name', 'values')}"
+    if getattr(item, "schema", None) is not None:     # a list of tables: documented once, per entry
+        parse.schema, parse.each = item.schema, True
     return parse
 
 
@@ -200,18 +202,15 @@ def build(cls, table, prefix: str, ctx: Context):
     return obj
 
 
-def markdown_reference(cls, prefix: str, *, title: str | None = None) -> str:
-    """Render the keys of ``cls`` (and nested tables) as Markdown tables."""
-    out = []
-    fields = [f for f in dataclasses.fields(cls) if "key" in f.metadata]
-    nested = []
-    out.append(f"### `{title or prefix}`\n")
-    doc = (cls.__doc__ or "").strip().split("\n\n")[0].replace("\n", " ")
-    if doc:
-        out.append(doc + "\n")
-    out.append("| key | type | unit | default | meaning |")
-    out.append("|---|---|---|---|---|")
-    for f in fields:
+def _cell(text) -> str:
+    """A Markdown table cell: a bare ``|`` would end the cell, so it is escaped."""
+    return str(text).replace("|", "\\|")
+
+
+def _key_table(cls) -> list[str]:
+    """The Markdown rows of the keys of one table."""
+    out = ["| key | type | unit | default | meaning |", "|---|---|---|---|---|"]
+    for f in (f for f in dataclasses.fields(cls) if "key" in f.metadata):
         spec: Key = f.metadata["key"]
         tname = spec.type_name or getattr(spec.parse, "type_name", "")
         if spec.required:
@@ -219,16 +218,83 @@ def markdown_reference(cls, prefix: str, *, title: str | None = None) -> str:
         elif f.default is not MISSING:
             default = "—" if f.default is None else f"`{_show(f.default)}`"
         elif f.default_factory is not MISSING:  # type: ignore[misc]
-            default = "(table)"
+            default = "empty"
         else:
             default = "—"
-        out.append(f"| `{f.name}` | {tname} | {spec.unit or ''} | {default} | {spec.doc} |")
-        sub = getattr(spec.parse, "schema", None)
+        out.append(f"| `{f.name}` | {_cell(tname)} | {_cell(spec.unit or '')} | {_cell(default)} | "
+                   f"{_cell(spec.doc)} |")
+    return out
+
+
+def _nested(cls):
+    """(field name, table class, one table per list entry) of the tables nested in ``cls``."""
+    for f in dataclasses.fields(cls):
+        parse = f.metadata["key"].parse if "key" in f.metadata else None
+        sub = getattr(parse, "schema", None)
         if sub is not None:
-            nested.append((sub, f"{prefix}.{f.name}"))
-    out.append("")
-    for sub, p in nested:
-        out.append(markdown_reference(sub, p))
+            yield f.name, sub, bool(getattr(parse, "each", False))
+
+
+def markdown_reference(roots, *, shallow=()) -> str:
+    """Render the keys of the config tables as Markdown, every table once.
+
+    Parameters
+    ----------
+    roots : sequence of (cls, places, title)
+        Tables in reading order; ``places`` the dotted key paths where the table sits (the
+        first is used for its nested tables), ``title`` the heading (default: the places).
+    shallow : sequence of classes
+        Tables whose nested tables are not listed after them (the top level, whose tables
+        are roots of their own).
+
+    Returns
+    -------
+    str
+        One heading and one table per table class; a table used at several places (the
+        surface layers, the registration of the top level and of a run) appears once, with
+        every place in its heading, right after its first parent.
+    """
+    places: dict = {}
+    order: list = []
+    roots = [(cls, [ps] if isinstance(ps, str) else list(ps), title) for cls, ps, title in roots]
+    root_classes = {cls for cls, _ps, _t in roots}
+
+    def collect(cls, where, title):
+        if cls not in places:
+            places[cls] = {"places": [], "title": title}
+        if cls not in seen:
+            seen.add(cls)
+            order.append(cls)
+        for p in where:
+            if p not in places[cls]["places"]:
+                places[cls]["places"].append(p)
+        if cls in shallow:
+            return
+        for name, sub, each in _nested(cls):
+            place = f"{where[0]}.{name}" + ("[i]" if each else "")
+            if sub in root_classes and sub is not cls:
+                places.setdefault(sub, {"places": [], "title": None})
+                if place not in places[sub]["places"]:
+                    places[sub]["places"].append(place)
+                continue
+            collect(sub, [place], None)
+
+    seen: set = set()
+    for cls, where, title in roots:
+        if cls in places and cls not in seen:
+            # met nested in an earlier root: its own place comes first, where it is rendered
+            places[cls] = {"places": where + places[cls]["places"], "title": title}
+        collect(cls, where, title)
+    out = []
+    for cls in order:
+        entry = places[cls]
+        title = entry["title"] or ", ".join(f"`{p}`" for p in entry["places"])
+        out.append(f"### {title}\n")
+        doc = (cls.__doc__ or "").strip().split("\n\n")[0].replace("\n", " ")
+        if doc:
+            out.append(doc + "\n")
+        out += _key_table(cls)
+        out.append("")
     return "\n".join(out)
 
 

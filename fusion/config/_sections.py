@@ -11,6 +11,14 @@ from . import _schema as s
 from ._schema import key
 
 RUN_NAME_PATTERN = r"[A-Za-z0-9][A-Za-z0-9_.\-]{0,99}"
+
+
+def run_key(name, index: int) -> str:
+    """How messages name a ``[[run]]``: ``run 'CX-2Hz'``, or ``run[3]`` while it has no usable name."""
+    if isinstance(name, str) and 0 < len(name) <= 100 and name.isprintable():
+        return f"run {name!r}"
+    return f"run[{index}]"
+
 # names a run folder cannot take: the campaign's own files, and device names of Windows shares
 _RESERVED = ({"con", "prn", "aux", "nul", "figures", "report.html", "frequency.nc", "summary.json"}
              | {f"com{i}" for i in range(1, 10)} | {f"lpt{i}" for i in range(1, 10)})
@@ -322,6 +330,11 @@ class RunSpec:
     dic: DicSpec = key(s.table_of(DicSpec), "Correlation input.", required=True)
     registration: RegistrationSpec = key(s.table_of(RegistrationSpec), "Per-run registration "
                                          "(replaces the top-level [registration]).")
+
+    @property
+    def config_key(self) -> str:
+        """The dotted-key prefix of this run in messages, e.g. ``run 'CX-2Hz'``."""
+        return run_key(self.name, 0)
 
     def _check(self, prefix, ctx):
         low = self.name.lower()

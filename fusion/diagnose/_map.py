@@ -53,6 +53,10 @@ class Diagnosis:
         combined uncertainty, where either source was not evaluated, or where invalid.
     valid : (Y, X) bool ndarray
         Pixels that were diagnosed (every other pixel is ``no_data``).
+    tied : (Y, X) int8 ndarray
+        At ``indistinguishable`` pixels, the sources that cannot be told apart there: bit
+        ``SOURCES.index(source)`` is set for each (CF ``flag_masks``, see
+        :func:`fusion.datamodel.tie_flags`); 0 at every other pixel.
     flag_values, flag_meanings : tuple
         CF attributes of ``source_layer`` (from :func:`fusion.datamodel.source_flags`).
     area_fraction : dict of str to float
@@ -83,6 +87,7 @@ class Diagnosis:
     area_fraction: dict
     n_valid: int
     uses_lag: bool
+    tied: np.ndarray = None
     settings: dict = field(default_factory=dict)
 
     def category(self, meaning: str) -> np.ndarray:
@@ -98,7 +103,7 @@ class Diagnosis:
         """The diagnosis maps named as variables of ``result.nc``.
 
         Returns ``residual_<source>``, ``zscore_<source>``, ``source_layer``,
-        ``source_probability`` and ``surface_fraction``, ready for
+        ``source_probability``, ``source_tie`` and ``surface_fraction``, ready for
         :func:`fusion.datamodel.result_dataset` (pass ``sources=self.sources``).
         """
         maps = {}
@@ -107,6 +112,8 @@ class Diagnosis:
             maps[f"zscore_{s}"] = self.zscore[s]
         maps["source_layer"] = self.source_layer
         maps["source_probability"] = self.probability
+        if self.tied is not None:
+            maps["source_tie"] = self.tied
         maps["surface_fraction"] = self.surface_fraction
         return maps
 
@@ -274,7 +281,8 @@ def diagnose(measured, measured_std, predictions, prediction_std, *, valid=None,
     3. if another fitting source's prediction lies within ``distinguish`` combined
        standard deviations of the best's -- in the ratio,
        ``|p_k - p_best| < distinguish * sqrt(sigma_m**2 + sigma_k**2 + sigma_best**2)``,
-       and, when used, likewise in the lag -> ``indistinguishable``;
+       and, when used, likewise in the lag -> ``indistinguishable``, and the best source
+       with every such close one is recorded in ``tied``;
     4. otherwise the best source.
 
     The best source is taken among the fitting ones so that the map and the
@@ -335,6 +343,7 @@ def diagnose(measured, measured_std, predictions, prediction_std, *, valid=None,
     lzsc = np.full((n,) + shape, np.nan, np.float32) if lag else None
     prob = np.full((n,) + shape, np.nan, np.float32)
     layer = np.full(shape, NO_DATA, np.int8)
+    tied = np.zeros(shape, np.int8)
     beta = np.full(shape, np.nan, np.float32)
     beta_std = np.full(shape, np.nan, np.float32)
     ok_all = np.zeros(shape, bool)
@@ -400,6 +409,9 @@ def diagnose(measured, measured_std, predictions, prediction_std, *, valid=None,
                           < dist * np.sqrt(slm ** 2 + floor ** 2 + SL ** 2 + slb ** 2))
             others = cand & close & (np.arange(n)[:, None, None] != bi)
             indist = others.any(axis=0)
+            # which sources tie: the best one and those within reach of it (bit per source)
+            members = others | (np.arange(n)[:, None, None] == bi)
+            bits = np.tensordot((1 << codes.astype(np.int64)), members, axes=(0, 0))
 
             if i_sp is not None and i_lam is not None:
                 gap = P[i_sp] - P[i_lam]
@@ -420,6 +432,7 @@ def diagnose(measured, measured_std, predictions, prediction_std, *, valid=None,
         prob[:, sl] = np.where(okb, pr, np.nan)
         lay = np.where(~anyfit, NO_SOURCE_FITS, np.where(indist, INDISTINGUISHABLE, codes[best]))
         layer[sl] = np.where(ok, lay, NO_DATA).astype(np.int8)
+        tied[sl] = np.where(ok & anyfit & indist, bits, 0).astype(np.int8)
         ok_all[sl] = ok
 
     values, meanings = source_flags(sources)
@@ -442,6 +455,6 @@ def diagnose(measured, measured_std, predictions, prediction_std, *, valid=None,
         source_layer=layer, probability=prob, surface_fraction=beta,
         surface_fraction_std=beta_std, valid=ok_all, flag_values=tuple(values),
         flag_meanings=tuple(meanings), area_fraction=area, n_valid=n_valid,
-        uses_lag=bool(lag),
+        uses_lag=bool(lag), tied=tied,
         settings={"fit_threshold": thr, "distinguish": dist, "lag_std_floor": floor},
     )

@@ -8,6 +8,8 @@ atomic_path, atomic_write_text, atomic_write_bytes, sha256_file, safe_child
     Safe output helpers.
 input_file
     An input path checked to be a readable regular file (named in the message).
+product_mark, MARK_KEY
+    Which fusion product a NetCDF or PNG file says it is (so only fusion's own files are replaced).
 open_frames, FrameStack
     Infrared frame stacks (.npy, raw, TIFF, HDF5, NetCDF), lazy and memory-mapped.
 read_load_signal, LoadSignal, read_frame_times
@@ -27,6 +29,7 @@ from ._images import read_image
 from ._frames import FrameStack, open_frames
 from ._guard import input_file
 from ._maps import MAP_QUANTITIES, read_thermal_maps
+from ._marks import MARK_KEY, product_mark
 from ._netcdf import netcdf_form, read_netcdf, write_netcdf
 from ._plausible import (PLAUSIBLE, STRAIN_UNITS, check_load_ranges, check_ratio, check_strain_ranges,
                          check_temperatures)
@@ -37,6 +40,6 @@ __all__ = [
     "netcdf_form", "read_netcdf", "write_netcdf",
     "open_frames", "FrameStack", "read_load_signal", "LoadSignal", "read_frame_times", "read_thermal_maps",
     "MAP_QUANTITIES",
-    "read_dic_field", "read_image",
+    "read_dic_field", "read_image", "product_mark", "MARK_KEY",
     "PLAUSIBLE", "STRAIN_UNITS", "check_strain_ranges", "check_temperatures", "check_ratio", "check_load_ranges",
 ]

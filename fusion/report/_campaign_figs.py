@@ -8,7 +8,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ._figures import FIGURE_WIDTH, category_legend_handles, draw_source_map, new_figure
+from ._figures import FIGURE_WIDTH, _decorate_axes, category_legend_handles, draw_source_map, new_figure
 from ._run_figures import _check_formats, save_figure
 from ._style import (
     CATEGORY_COLOURS, SOURCE_LINESTYLES, attr_float, category_label, engineering_exponent, frequency_text,
@@ -40,13 +40,19 @@ def _band(spec, name):
         return None
     try:
         lo, hi = band
-        lo = float(lo)
+        lo = 0.0 if lo is None else float(lo)
         hi = math.inf if hi is None else float(hi)
     except (TypeError, ValueError) as e:
         raise ValueError(f"specimen {name!r}: band={band!r} must be (f_low, f_high) in Hz") from e
-    if not (0 < lo < hi):
+    if not (0 <= lo < hi) or (lo == 0 and band[0] is not None):
         raise ValueError(f"specimen {name!r}: band={band!r} needs 0 < f_low < f_high (Hz)")
     return lo, hi
+
+
+def _band_label(band) -> str:
+    lo = f"{band[0]:.3g} Hz" if band[0] > 0 else "below the plot"
+    hi = f"{band[1]:.3g} Hz" if math.isfinite(band[1]) else "above the plot"
+    return f"recommended band: {lo} to {hi}"
 
 
 def frequency_figure(name: str, spec: dict):
@@ -61,7 +67,10 @@ def frequency_figure(name: str, spec: dict):
         median over the evaluated region); optional ``ratio_std`` (N,);
         ``model`` dict with ``frequency`` and ``ratio`` (the in-phase surface
         response of the heat model); ``adiabatic`` dict source -> dT/T0 (the
-        limits); ``band`` ``(f_low, f_high)`` Hz, ``f_high`` may be None (open).
+        limits); ``band`` ``(f_low, f_high)`` Hz, either may be None (open: the band
+        runs past the range tried, and the shading past the plot's edge);
+        ``band_label`` the legend text of the band (default "recommended band" with
+        its edges).
 
     Returns
     -------
@@ -92,11 +101,13 @@ def frequency_figure(name: str, spec: dict):
     f_all = np.concatenate([f, mf]) if model is not None else f
     x_lo, x_hi = f_all.min() / 1.5, f_all.max() * 1.5
     if band is not None:
-        x_lo = min(x_lo, band[0] / 1.5)
+        if band[0] > 0:
+            x_lo = min(x_lo, band[0] / 1.5)
         if math.isfinite(band[1]):
             x_hi = max(x_hi, band[1] * 1.5)
-        span = ax.axvspan(band[0], min(band[1], x_hi), color=CATEGORY_COLOURS["surface_ply"], alpha=0.15,
-                          linewidth=0, label="recommended band")
+        label = spec.get("band_label") or _band_label(band)
+        span = ax.axvspan(max(band[0], x_lo), min(band[1], x_hi), color=CATEGORY_COLOURS["surface_ply"],
+                          alpha=0.15, linewidth=0, label=label)
         span.set_gid("band")
     for src, v in limits.items():
         ax.axhline(v, color=CATEGORY_COLOURS.get(src, "0.3"), linestyle=SOURCE_LINESTYLES.get(src, "--"),
@@ -202,8 +213,7 @@ def source_map_grid_figure(datasets: dict, *, ncols: int | None = None):
         for c in draw_source_map(ax, ds):
             if c not in present:
                 present.append(c)
-        ax.set_xticks([])
-        ax.set_yticks([])
+        _decorate_axes(ax, ds)
         f = frequency_text(attr_float(ds, "frequency"))
         ax.set_title(f"{run} · {f}" if f else str(run), fontsize=7)
     for ax in axes.ravel()[n:]:

@@ -15,7 +15,7 @@ import numpy as np
 
 from ..datamodel import SOURCES
 from ._style import (
-    BAD_COLOUR, CATEGORY_COLOURS, DIVERGING_BAD_COLOUR, DIVERGING_CMAP, SEQUENTIAL_CMAP, attr_float, category_label,
+    CATEGORY_COLOURS, DIVERGING_CMAP, NO_DATA_COLOUR, SEQUENTIAL_CMAP, attr_float, category_label,
     engineering_exponent, frequency_text, pixel_size_mm, ratio_axis_label, ratio_formatter,
     ratio_limits, source_categories, symmetric_limit,
 )
@@ -23,7 +23,7 @@ from ._style import (
 __all__ = [
     "measured_vs_predicted_figure", "residuals_figure", "source_map_figure", "overlay_figure",
     "draw_source_map", "category_legend_handles", "present_categories", "evaluated_sources",
-    "map_title", "new_figure",
+    "map_title", "new_figure", "no_data_handle",
 ]
 
 FIGURE_WIDTH = 7.0  # inches: the text width of a two-column report page
@@ -60,9 +60,9 @@ def _grid_shape(n: int, ny: int, nx: int) -> tuple[int, int, tuple[float, float]
     return nrows, ncols, (FIGURE_WIDTH, float(np.clip(height, 2.4, 9.5)))
 
 
-def _scale_length_mm(width_mm: float) -> float:
-    """Largest 1-2-5 length not above a quarter of the field width."""
-    target = width_mm / 4.0
+def _scale_length(width: float) -> float:
+    """Largest 1-2-5 length not above a quarter of the field width (same unit)."""
+    target = width / 4.0
     k = math.floor(math.log10(target))
     best = 10.0 ** k
     for m in (1.0, 2.0, 5.0, 10.0):
@@ -71,29 +71,33 @@ def _scale_length_mm(width_mm: float) -> float:
     return best
 
 
-def _decorate_axes(ax, ds, *, first_col: bool, last_row: bool):
-    """Scale bar in mm when the registration knows the pixel size, else IR pixel axes."""
+def _decorate_axes(ax, ds):
+    """A scale bar: in mm when the registration knows the pixel size, else in IR pixels."""
     from matplotlib.patches import Rectangle
 
     ny, nx = ds.sizes["y"], ds.sizes["x"]
     px = pixel_size_mm(ds)
-    if px is None:
-        if last_row:
-            ax.set_xlabel("IR pixel column")
-        if first_col:
-            ax.set_ylabel("IR pixel row")
-        ax.tick_params(labelsize=7)
-        return
     ax.set_xticks([])
     ax.set_yticks([])
-    length_mm = _scale_length_mm(nx * px)
-    length_px = length_mm / px
+    if px is None:
+        length, unit, per_px = _scale_length(nx), "IR px", 1.0
+    else:
+        length, unit, per_px = _scale_length(nx * px), "mm", px
+    length_px = length / per_px
     x0, y0, h = 0.05 * nx, 0.93 * ny, max(0.012 * ny, 0.6)
     ax.add_patch(Rectangle((x0 - 0.5, y0 - h / 2), length_px, h, facecolor="black",
                            edgecolor="white", linewidth=0.8, gid="scalebar", zorder=5))
-    ax.text(x0 - 0.5 + length_px / 2, y0 - h, f"{length_mm:g} mm", ha="center", va="bottom",
-            fontsize=7, gid="scalebar_label", zorder=5,
-            bbox={"facecolor": "white", "edgecolor": "none", "alpha": 0.8, "pad": 1.0})
+    # the label sits a few points above the bar whatever the size of the panel
+    ax.annotate(f"{length:g} {unit}", (x0 - 0.5 + length_px / 2, y0 - h / 2), xytext=(0, 2.5),
+                textcoords="offset points", ha="center", va="bottom", fontsize=7, gid="scalebar_label",
+                zorder=5, bbox={"facecolor": "white", "edgecolor": "none", "alpha": 0.8, "pad": 1.0})
+
+
+def no_data_handle():
+    """Legend patch of the pixels without valid data (the same colour in every figure)."""
+    from matplotlib.patches import Patch
+
+    return Patch(facecolor=NO_DATA_COLOUR, edgecolor="0.35", linewidth=0.6, label="no data")
 
 
 def _extend(arrays, lo: float, hi: float) -> str:
@@ -103,7 +107,7 @@ def _extend(arrays, lo: float, hi: float) -> str:
     return {(False, False): "neither", (True, False): "min", (False, True): "max"}.get((below, above), "both")
 
 
-def _map_grid(ds, panels, *, norm, cmap, cbar_label, exponent, title, bad=BAD_COLOUR):
+def _map_grid(ds, panels, *, norm, cmap, cbar_label, exponent, title):
     """Draw ``panels`` [(title, array)] on one norm with one colour bar below."""
     import matplotlib
 
@@ -111,7 +115,7 @@ def _map_grid(ds, panels, *, norm, cmap, cbar_label, exponent, title, bad=BAD_CO
     nrows, ncols, size = _grid_shape(len(panels), ny, nx)
     fig = new_figure(*size)
     axes = fig.subplots(nrows, ncols, squeeze=False)
-    colormap = matplotlib.colormaps[cmap].with_extremes(bad=bad)
+    colormap = matplotlib.colormaps[cmap].with_extremes(bad=NO_DATA_COLOUR)
     used = []
     im = None
     for k, ax in enumerate(axes.ravel()):
@@ -122,7 +126,7 @@ def _map_grid(ds, panels, *, norm, cmap, cbar_label, exponent, title, bad=BAD_CO
         im = ax.imshow(np.asarray(data), cmap=colormap, norm=norm, interpolation="nearest")
         im.set_gid(f"map:{name}")
         ax.set_title(name, fontsize=9)
-        _decorate_axes(ax, ds, first_col=k % ncols == 0, last_row=k // ncols == nrows - 1)
+        _decorate_axes(ax, ds)
         used.append(ax)
     cb = fig.colorbar(im, ax=used, location="bottom", shrink=0.7, aspect=35,
                       format=ratio_formatter(exponent),
@@ -130,6 +134,9 @@ def _map_grid(ds, panels, *, norm, cmap, cbar_label, exponent, title, bad=BAD_CO
     cb.set_label(cbar_label, fontsize=8)
     cb.ax.set_gid("colorbar")
     cb.ax.tick_params(labelsize=7)
+    if any(not np.isfinite(np.asarray(p[1], dtype=np.float64)).all() for p in panels):
+        leg = fig.legend(handles=[no_data_handle()], loc="outside lower right", fontsize=7, frameon=False)
+        leg.set_gid("no_data_legend")
     fig.suptitle(title, fontsize=10)
     return fig
 
@@ -216,7 +223,7 @@ def residuals_figure(ds, *, sources=None):
     exponent = engineering_exponent(v)
     return _map_grid(ds, panels, norm=Normalize(-v, v), cmap=DIVERGING_CMAP,
                      cbar_label=ratio_axis_label("residual dT/T0, measured − predicted", exponent),
-                     exponent=exponent, title=f"{map_title(ds)} · residuals", bad=DIVERGING_BAD_COLOUR)
+                     exponent=exponent, title=f"{map_title(ds)} · residuals")
 
 
 def present_categories(ds) -> list[str]:
@@ -288,7 +295,7 @@ def source_map_figure(ds):
     fig = new_figure(FIGURE_WIDTH, max(map_h + 0.9, 2.4))
     ax = fig.subplots()
     present = draw_source_map(ax, ds)
-    _decorate_axes(ax, ds, first_col=True, last_row=True)
+    _decorate_axes(ax, ds)
     leg = fig.legend(handles=category_legend_handles(present, attr_float(ds, "frequency")),
                      loc="outside right upper", title="source of the signal", fontsize=8,
                      title_fontsize=8, frameon=False)
@@ -350,7 +357,7 @@ def overlay_figure(ds, reference_image, *, region_mask=None, alpha: float = 0.6)
         cs.set_gid("region_outline")
         handles.append(Line2D([], [], color=CATEGORY_COLOURS["no_source_fits"], linewidth=1.6,
                               label="correlation region"))
-    _decorate_axes(ax, ds, first_col=True, last_row=True)
+    _decorate_axes(ax, ds)
     cb = fig.colorbar(im, ax=ax, location="bottom", shrink=0.7, aspect=35, format=ratio_formatter(exponent),
                       extend=_extend([measured], lo, hi))
     cb.set_label(ratio_axis_label("measured dT/T0", exponent), fontsize=8)

@@ -14,8 +14,9 @@ from pathlib import Path
 
 from .. import __version__
 from ..io import atomic_write_text
-from ._style import CATEGORY_COLOURS, category_label
-from ._summary import _normalise_warnings, format_percent
+from ._bands import band_sentence
+from ._style import CATEGORY_COLOURS, category_label, engineering_exponent
+from ._summary import REJECTED_SHARE, _normalise_warnings, format_percent
 
 __all__ = ["write_report", "render_report", "CAUTIONS"]
 
@@ -29,6 +30,11 @@ CAUTIONS = (
     "Defer to qualified engineers for any decision about the safety or fitness for service of a structure.",
 )
 
+#: Beside every recommended band: it is the heat model's statement only.
+BAND_CAUTION = ("A recommended band says where the fitted heat model stays near one source; the loading "
+                "frequency must also respect the limits of the rig and of the specimen (self-heating under "
+                "fast cycling) and the applicable test standard.")
+
 _NONE_FIGURES = '<p class="none">No figures for this run.</p>'
 _NONE_CAMPAIGN = '<p class="none">No campaign figures (a sweep needs runs at two or more frequencies).</p>'
 
@@ -38,14 +44,15 @@ _MIME = {".png": "image/png", ".jpg": "image/jpeg", ".jpeg": "image/jpeg", ".svg
 _FIGURES = {
     "measured_vs_predicted": ("Measured dT/T0 beside each prediction",
                               "Measured dT/T0 (first panel) and the dT/T0 predicted for each candidate source, "
-                              "all on one colour scale. Grey: no valid data."),
+                              "all on one colour scale. Dark grey: no valid data."),
     "residuals": ("Residual maps", "Measured minus predicted dT/T0 for each source, on a scale symmetric about "
-                                   "zero: light grey means agreement, dark grey marks invalid pixels."),
+                                   "zero: light grey means agreement, dark grey marks pixels without valid data."),
     "source_map": ("Source-layer map", "The best-supported source of the signal at each pixel; "
-                                       "'indistinguishable' where candidates agree within the uncertainty."),
+                                       "'indistinguishable' where candidates agree within the uncertainty; "
+                                       "dark grey: no valid data."),
     "overlay": ("Measured dT/T0 over the visible image",
                 "Measured dT/T0 laid semi-transparently over the registered visible reference image, with the "
-                "correlation region outlined."),
+                "correlation region outlined; where dT/T0 has no valid data the visible image shows through."),
     "profile": ("Line profile", "Measured dT/T0 with its ±2 standard-deviation band and each prediction along "
                                 "the line A→B drawn on the map."),
     "through_thickness": ("Through-thickness adiabatic profile",
@@ -98,9 +105,9 @@ def _cell(value) -> str:
     return f"<td>{_e(value)}</td>"
 
 
-def _table(caption, header, rows, *, label) -> str:
-    """rows: list of (row header text, [cell html...])."""
-    head = "".join(f'<th scope="col">{_e(h)}</th>' for h in header)
+def _table(caption, header, rows, *, label, raw_header=False) -> str:
+    """rows: list of (row header text, [cell html...]); header cells are HTML when ``raw_header``."""
+    head = "".join(f'<th scope="col">{h if raw_header else _e(h)}</th>' for h in header)
     body = "".join(f'<tr><th scope="row">{r}</th>{"".join(cells)}</tr>' for r, cells in rows)
     return (f'<div class="table-wrap" role="region" aria-label="{_e(label)}" tabindex="0"><table>'
             f"<caption>{_e(caption)}</caption><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table></div>")
@@ -160,22 +167,45 @@ def _warnings_html(warnings) -> str:
     return f'<ul class="warnings">{items}</ul>'
 
 
+def _swatch(category) -> str:
+    colour = CATEGORY_COLOURS.get(category, "#000")
+    return f'<span class="swatch" style="background:{colour}" aria-hidden="true"></span>'
+
+
 def _fractions_table(summary) -> str:
     fractions = summary.get("source_fractions") or {}
     if not fractions:
         return '<p class="none">No source map for this run.</p>'
     f_hz = summary.get("frequency_hz")
+    fits = summary.get("fit_fractions")
+    rejected = set(summary.get("rejected") or ())
+    ties = summary.get("ties") or []
+    shown = [(c, f) for c, f in fractions.items() if f > 0 or (fits and c in fits)]
+    shown.sort(key=lambda cf: -cf[1])
     rows = []
-    for c, f in sorted(fractions.items(), key=lambda kv: -kv[1]):
-        if f <= 0:
-            continue
-        swatch = f'<span class="swatch" style="background:{CATEGORY_COLOURS.get(c, "#000")}" aria-hidden="true"></span>'
-        rows.append((swatch + _e(category_label(c, f_hz)), [f'<td class="num">{_e(format_percent(f))}</td>']))
+    for c, f in shown:
+        cells = [f'<td class="num">{_e(format_percent(f))}</td>']
+        if fits:
+            cells.append(f'<td class="num">{_e(format_percent(fits[c]))}</td>' if c in fits else _cell(None))
+        note = ""
+        if c in rejected:
+            note = "rejected: the measurement rules it out"
+        elif c == "indistinguishable" and ties:
+            note = "; ".join(f"{' and '.join(category_label(x, f_hz) for x in t['sources'])} tie in "
+                             f"{format_percent(t['fraction'])}" for t in ties[:3])
+            if len(ties) > 3:
+                note += f"; other sets in {format_percent(sum(t['fraction'] for t in ties[3:]))}"
+        cells.append(f"<td>{_e(note)}</td>")
+        rows.append((_swatch(c) + _e(category_label(c, f_hz)), cells))
     if not rows:
         return '<p class="none">No valid pixel was assigned a category.</p>'
-    return _table("Share of the valid area assigned to each category of the source map "
-                  "(categories not listed hold no pixel).",
-                  ["Category", "Share of the valid area"], rows, label=f"source fractions of {summary.get('run')}")
+    head = ["Category", "Share of the valid area"] + (["Fits in"] if fits else []) + ["Note"]
+    caption = ("Share of the valid area assigned to each category of the source map"
+               + (", and the share where each source fits the measurement (|z| within the fit threshold); "
+                  f"a source that fits in at most {format_percent(REJECTED_SHARE)} of the valid area is "
+                  "rejected." if fits else
+                  " (categories not listed hold no pixel)."))
+    return _table(caption, head, rows, label=f"source fractions of {summary.get('run')}")
 
 
 def _ratios_table(summary) -> str:
@@ -194,15 +224,75 @@ def _ratios_table(summary) -> str:
                    "Within ±2σ"], rows, label=f"dT/T0 statistics of {summary.get('run')}")
 
 
-def _regions_table(regions, run) -> str:
+_REGION_KNOWN = ("name", "pixels", "measured_mean", "measured_std", "winner", "winner_share")
+
+
+def _scaled(values) -> tuple[int, callable]:
+    """A power of ten (multiple of 3) for a column of ratios, and the cell text at that scale."""
+    finite = [abs(float(v)) for v in values if isinstance(v, (int, float)) and not isinstance(v, bool)
+              and math.isfinite(float(v))]
+    exp = engineering_exponent(max(finite)) if finite else 0
+
+    def cell(v):
+        if v is None or isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(float(v)):
+            return _num(None)
+        return f"{float(v) / 10.0 ** exp:.3g}".replace("-", "−")
+    return exp, cell
+
+
+def _scale_text(exp) -> str:
+    return "" if exp == 0 else f" (×10<sup>{exp}</sup>)".replace("-", "−")
+
+
+def _regions_table(regions, run, frequency=None) -> str:
+    """The region table in two parts that fit the page: what was measured and which category won,
+    then each source's predicted dT/T0 with the mean |z| beneath it."""
     if not regions:
         return '<p class="none">No region table for this run.</p>'
-    cols = []
+    extra = []
     for row in regions:
-        cols += [k for k in row if k != "name" and k not in cols]
-    rows = [(_e(row.get("name", "")), [_cell(row.get(k)) for k in cols]) for row in regions]
-    return _table("Regions of the field (dimensionless ratios unless the column says otherwise).",
-                  ["Region"] + [c.replace("_", " ") for c in cols], rows, label=f"region table of {run}")
+        extra += [k for k in row if k not in _REGION_KNOWN and not k.startswith(("predicted_", "mean_abs_z_"))
+                  and k not in extra]
+    sources = []
+    for row in regions:
+        sources += [k[len("predicted_"):] for k in row if k.startswith("predicted_") and k[len("predicted_"):]
+                    not in sources]
+    m_exp, m_cell = _scaled([row.get(k) for row in regions for k in ("measured_mean", "measured_std")])
+    rows = []
+    for row in regions:
+        winner = row.get("winner")
+        share = row.get("winner_share")
+        cells = [_cell(row.get("pixels")),
+                 f'<td class="num">{m_cell(row.get("measured_mean"))}</td>',
+                 f'<td class="num">{m_cell(row.get("measured_std"))}</td>',
+                 f"<td>{_swatch(winner)}{_e(category_label(winner, frequency))}</td>" if winner else _cell(None),
+                 f'<td class="num">{_e(format_percent(share))}</td>'
+                 if isinstance(share, (int, float)) and math.isfinite(share) else _cell(None)]
+        cells += [_cell(row.get(k)) for k in extra]
+        rows.append((_e(row.get("name", "")), cells))
+    scale = _scale_text(m_exp)
+    head = ["Region", "Valid pixels", f"Measured dT/T0, mean{scale}", f"Spread over the region (std){scale}",
+            "Best-supported category", "Its share of the region"] + [k.replace("_", " ") for k in extra]
+    out = _table("Regions of the field: the measured dT/T0 (dimensionless) and the source-map category "
+                 "that holds most of each region's valid pixels.", head, rows, label=f"region table of {run}",
+                 raw_header=True)
+    if sources:
+        p_exp, p_cell = _scaled([row.get(f"predicted_{s}") for row in regions for s in sources])
+        prow = []
+        for row in regions:
+            cells = []
+            for src in sources:
+                z = row.get(f"mean_abs_z_{src}")
+                z_text = (f'<br><span class="sub">|z| {float(z):.2g}</span>'
+                          if isinstance(z, (int, float)) and math.isfinite(float(z)) else "")
+                cells.append(f'<td class="num">{p_cell(row.get(f"predicted_{src}"))}{z_text}</td>')
+            prow.append((_e(row.get("name", "")), cells))
+        out += _table("Predicted dT/T0 of each source, mean over each region (dimensionless), with the mean "
+                      "|z| of the measurement against it beneath: about 0.8 where the source and the stated "
+                      "uncertainties match, clearly more where they do not.",
+                      ["Region"] + [f"{_e(category_label(src, frequency))}{_scale_text(p_exp)}" for src in sources],
+                      prow, label=f"predictions per region of {run}", raw_header=True)
+    return out
 
 
 def _facts(pairs) -> str:
@@ -269,7 +359,7 @@ def _run_section(run, slug, max_width) -> str:
         f'<p class="verdict">{_e(s.get("verdict"))}</p>{facts}'
         f"<h3>Source of the signal</h3>{_fractions_table(s)}"
         f"<h3>Measured and predicted dT/T0</h3>{_ratios_table(s)}"
-        f"<h3>Regions</h3>{_regions_table(regions, s.get('run'))}"
+        f"<h3>Regions</h3>{_regions_table(regions, s.get('run'), s.get('frequency_hz'))}"
         f"<h3>Strain maps: spatial resolution and noise floor</h3>{_resolution_html(s)}"
         f"<h3>Warnings</h3>{_warnings_html(warnings)}"
         f"<h3>Figures</h3>{figures or _NONE_FIGURES}"
@@ -288,6 +378,16 @@ def _campaign_alt(name) -> tuple[str, str]:
                 "Source-layer maps of all runs, one panel per run, one legend.")
     text = name.replace("_", " ")
     return (f"Campaign figure: {text}.", text)
+
+
+def _band_text(sweep) -> str:
+    """The band sentence of a sweep (capitalised), built from its numbers when it has none."""
+    text = sweep.get("band_text")
+    if not text and sweep.get("band_info"):
+        text = band_sentence(sweep["band_info"], frequencies=sweep.get("frequencies") or ())
+    if not text:
+        return "no band information."
+    return text[0].upper() + text[1:] + "."
 
 
 def render_report(*, campaign: dict, runs: list, campaign_figures=None, failures=None,
@@ -316,6 +416,7 @@ def render_report(*, campaign: dict, runs: list, campaign_figures=None, failures
     toc = ('<nav class="toc" aria-labelledby="toc-h"><h2 id="toc-h">Contents</h2><ol>'
            '<li><a href="#overview">Overview</a></li><li><a href="#cautions">Cautions</a></li>'
            f'<li><a href="#runs">Runs</a><ol>{toc_runs}</ol></li>'
+           '<li><a href="#sweeps">Loading-frequency bands</a></li>'
            '<li><a href="#campaign">Campaign figures</a></li><li><a href="#failures">Failed runs</a></li>'
            '<li><a href="#configuration">Configuration</a></li></ol></nav>')
 
@@ -328,8 +429,16 @@ def render_report(*, campaign: dict, runs: list, campaign_figures=None, failures
     config_text = campaign.get("config_text")
     config_html = (f'<pre class="config" tabindex="0" aria-label="configuration text">{_e(config_text)}</pre>'
                    if config_text else '<p class="none">No configuration text was recorded.</p>')
-    header_facts = _facts([("Configuration SHA-256", f"<code>{_e(sha)}</code>" if sha else _num(None)),
-                           ("fusion version", _e(version)), ("Date", _e(date))])
+    operator = campaign.get("operator")
+    header_facts = _facts(([("Operator", _e(operator))] if operator else [])
+                          + [("Configuration SHA-256", f"<code>{_e(sha)}</code>" if sha else _num(None)),
+                             ("fusion version", _e(version)), ("Date", _e(date))])
+    description = campaign.get("description")
+    header_text = f'<p class="description">{_e(description)}</p>' if description else ""
+    sweeps = campaign.get("sweeps") or {}
+    sweep_html = ("".join(f'<p class="band"><strong>Specimen {_e(sp)}:</strong> {_e(_band_text(sw))}</p>'
+                          for sp, sw in sweeps.items()) + f"<p>{_e(BAND_CAUTION)}</p>"
+                  if sweeps else '<p class="none">No specimen was tested at two or more frequencies.</p>')
     body_runs = "".join(_run_section(r, slug, max_image_width) for r, slug in zip(runs, slugs))
     return (
         "<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n"
@@ -340,12 +449,14 @@ def render_report(*, campaign: dict, runs: list, campaign_figures=None, failures
         f"<title>{_e(name)} · fusion report</title>\n<style>\n{_css()}</style>\n</head>\n<body>\n"
         '<a class="skip-link" href="#main">Skip to the content</a>\n'
         f'<header class="masthead"><p class="kicker">Thermoelastic and strain-field campaign report</p>'
-        f"<h1>{_e(name)}</h1>{header_facts}</header>\n"
+        f"<h1>{_e(name)}</h1>{header_text}{header_facts}</header>\n"
         f'<div class="layout">{toc}\n<main id="main" tabindex="-1">\n'
         f'<section id="overview" aria-labelledby="overview-h"><h2 id="overview-h">Overview</h2>{overview}</section>\n'
         f'<section id="cautions" class="cautions" aria-labelledby="cautions-h"><h2 id="cautions-h">Cautions</h2>'
         f"<ul>{cautions}</ul></section>\n"
         f'<div id="runs">{body_runs}</div>\n'
+        f'<section id="sweeps" aria-labelledby="sweeps-h"><h2 id="sweeps-h">Loading-frequency bands</h2>'
+        f"{sweep_html}</section>\n"
         f'<section id="campaign" aria-labelledby="campaign-h"><h2 id="campaign-h">Campaign figures</h2>'
         f"{camp_figs or _NONE_CAMPAIGN}"
         "</section>\n"
@@ -365,8 +476,10 @@ def write_report(path, *, campaign: dict, runs: list, campaign_figures=None, fai
     path : str or Path
         The ``report.html`` to write (atomically).
     campaign : dict
-        ``name``, ``config_sha256``, ``version``, ``date`` (ISO 8601) and
-        ``config_text``; missing entries are shown as not available.
+        ``name``, ``description``, ``operator``, ``config_sha256``, ``version``,
+        ``date`` (ISO 8601), ``config_text`` and ``sweeps`` (specimen ->
+        ``band_text`` and/or ``band_info`` for :func:`band_sentence` and
+        ``frequencies``); missing entries are shown as not available.
     runs : list of dict
         Per run: ``summary`` (from :func:`summarize_run` or a read
         ``summary.json``), ``figures`` (name -> image file; PNG, JPEG and SVG

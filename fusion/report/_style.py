@@ -17,11 +17,16 @@ import numpy as np
 from ..datamodel import SOURCES, source_flags
 
 __all__ = [
-    "CATEGORY_COLOURS", "SEQUENTIAL_CMAP", "DIVERGING_CMAP", "BAD_COLOUR", "DIVERGING_BAD_COLOUR", "RATIO_PERCENTILES",
+    "CATEGORY_COLOURS", "SEQUENTIAL_CMAP", "DIVERGING_CMAP", "NO_DATA_COLOUR", "RATIO_PERCENTILES",
     "RESIDUAL_PERCENTILE", "category_label", "source_categories", "ratio_limits",
     "symmetric_limit", "engineering_exponent", "ratio_axis_label", "ratio_formatter",
     "attr_float", "frequency_text", "pixel_size_mm",
 ]
+
+#: One colour for pixels without valid data in every map figure: a dark grey, far from every
+#: hue of viridis, coolwarm (whose neutral centre is a light grey) and the categories below,
+#: also for the common colour-vision deficiencies.
+NO_DATA_COLOUR = "#404040"
 
 #: Colour of each source-map category (Okabe & Ito, "Color Universal Design", 2008 hues).
 CATEGORY_COLOURS = {
@@ -32,7 +37,7 @@ CATEGORY_COLOURS = {
     "model": "#CC79A7",              # reddish purple
     "indistinguishable": "#F0E442",  # yellow
     "no_source_fits": "#D55E00",     # vermillion
-    "no_data": "#FFFFFF",            # white: prints as paper
+    "no_data": NO_DATA_COLOUR,
 }
 
 #: Line styles beside the colours, so profiles stay readable in grey print.
@@ -46,10 +51,6 @@ SOURCE_LINESTYLES = {
 
 SEQUENTIAL_CMAP = "viridis"
 DIVERGING_CMAP = "coolwarm"
-#: Light grey for NaN (invalid) pixels on viridis, which holds no grey.
-BAD_COLOUR = "#D0D0D0"
-#: Dark grey for NaN pixels on the diverging map, whose neutral centre is light grey.
-DIVERGING_BAD_COLOUR = "#505050"
 
 #: Percentiles of the pooled finite values that set the shared dT/T0 scale; a few
 #: hot pixels at free edges would otherwise flatten the whole map.

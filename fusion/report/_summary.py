@@ -12,6 +12,7 @@ from pathlib import Path
 import numpy as np
 
 from .. import __version__
+from ..datamodel import SOURCES
 from ..io import atomic_write_text
 from ._figures import evaluated_sources
 from ._resolution import strain_resolution
@@ -19,7 +20,7 @@ from ._style import attr_float, category_label, frequency_text, pixel_size_mm, s
 
 __all__ = [
     "summarize_run", "verdict", "write_summary", "validate_summary", "summary_schema", "format_percent",
-    "WARNING_CODES",
+    "WARNING_CODES", "REJECTED_SHARE",
 ]
 
 WARNING_CODES = ("registration_error", "low_snr", "dissipative_heating", "below_band", "above_band",
@@ -149,7 +150,59 @@ def _fractions(ds, valid) -> dict[str, float]:
     return {name: (float(np.count_nonzero(raw == code)) / n if n else 0.0) for code, name in codes.items()}
 
 
-def _verdict_text(fractions, n_valid, frequency, has_map=True) -> tuple[str, dict | None]:
+#: A source that fits (|z| within the fit threshold) in at most this share of the valid
+#: area is called rejected: the measurement rules it out almost everywhere (our choice).
+REJECTED_SHARE = 0.05
+
+
+def _names(labels) -> str:
+    """``"a"``, ``"a and b"``, ``"a, b and c"``."""
+    labels = list(labels)
+    return labels[0] if len(labels) == 1 else ", ".join(labels[:-1]) + " and " + labels[-1]
+
+
+def _ties(ds, valid) -> list[dict] | None:
+    """Which sources tie at the indistinguishable pixels: sets and their share of the valid area."""
+    if "source_tie" not in ds.data_vars or "source_layer" not in ds.data_vars:
+        return None
+    masks = ds["source_tie"].attrs.get("flag_masks")
+    meanings = ds["source_tie"].attrs.get("flag_meanings")
+    if masks is None or meanings is None:
+        return None
+    meanings = meanings.split() if isinstance(meanings, str) else list(meanings)
+    bits = dict(zip((int(m) for m in np.atleast_1d(masks)), meanings))
+    codes = {name: code for code, name in source_categories(ds).items()}
+    n = int(valid.sum())
+    raw = np.asarray(ds["source_tie"].values).astype(np.int64)[valid & (np.asarray(ds["source_layer"].values)
+                                                                      == codes.get("indistinguishable"))]
+    values, counts = np.unique(raw[raw > 0], return_counts=True)
+    out = [{"sources": [name for bit, name in bits.items() if v & bit], "fraction": float(c) / n}
+           for v, c in zip(values.tolist(), counts.tolist())]
+    out.sort(key=lambda t: (-t["fraction"], [SOURCES.index(x) for x in t["sources"] if x in SOURCES]))
+    return out
+
+
+def _fit_fractions(ds, valid) -> dict[str, float] | None:
+    """Share of the valid area where each evaluated source fits (its probability is above 0)."""
+    if "source_probability" not in ds.data_vars or "source" not in ds.coords:
+        return None
+    p = np.asarray(ds["source_probability"].values)
+    n = int(valid.sum())
+    if not n:
+        return None
+    # the probability is 0 exactly where a source does not fit (fusion.diagnose.diagnose)
+    return {str(src): float(np.count_nonzero(p[i][valid] > 0)) / n for i, src in enumerate(ds["source"].values)}
+
+
+def _rejected(fits, ties) -> list[str] | None:
+    if fits is None:
+        return None
+    tied = {x for t in ties or () for x in t["sources"]}
+    return [src for src in SOURCES if src in fits and fits[src] <= REJECTED_SHARE and src not in tied]
+
+
+def _verdict_text(fractions, n_valid, frequency, has_map=True, *, ties=None,
+                  rejected=None) -> tuple[str, dict | None]:
     at = f" at {frequency_text(frequency)}" if frequency is not None else ""
     if n_valid == 0:
         return (f"no valid data{at}: no pixel has both thermal and strain data of usable quality", None)
@@ -160,21 +213,30 @@ def _verdict_text(fractions, n_valid, frequency, has_map=True) -> tuple[str, dic
         return (f"no pixel of the valid area was assigned a source{at}", None)
     top_f, top = ranked[0]
     dominant = {"category": top, "fraction": top_f}
+    out = (f"; {_names(category_label(c, frequency) for c in rejected)} rejected" if rejected else "")
     if top_f < 0.5:
         parts = ", ".join(f"{category_label(c, frequency)} {format_percent(f)}" for f, c in ranked[:3])
-        return (f"no single source dominates{at}: {parts} of the valid area", dominant)
+        return (f"no single source dominates{at}: {parts} of the valid area{out}", dominant)
     pct = format_percent(top_f)
     if top in _PHRASES:
-        return (f"{_PHRASES[top]} in {pct} of the valid area{at}", dominant)
+        return (f"{_PHRASES[top]} in {pct} of the valid area{at}{out}", dominant)
     if top == "indistinguishable":
-        text = f"candidate sources indistinguishable in {pct} of the valid area{at}"
+        if ties:
+            main = ties[0]
+            text = (f"{_names(category_label(c, frequency) for c in main['sources'])} fit equally "
+                    f"(indistinguishable) in {format_percent(main['fraction'])} of the valid area{at}")
+            other = sum(t["fraction"] for t in ties[1:])
+            if other > 0:
+                text += f", other sets of sources tie in {format_percent(other)}"
+        else:
+            text = f"candidate sources indistinguishable in {pct} of the valid area{at}"
         rest = [(f, c) for f, c in ranked[1:] if c in _PHRASES]
         if rest:
             text += f"; elsewhere mostly the {category_label(rest[0][1], frequency)} ({format_percent(rest[0][0])})"
-        return (text, dominant)
+        return (text + out, dominant)
     if top == "no_source_fits":
         return (f"no candidate source fits the measurement in {pct} of the valid area{at}", dominant)
-    return (f"{category_label(top, frequency)} in {pct} of the valid area{at}", dominant)
+    return (f"{category_label(top, frequency)} in {pct} of the valid area{at}{out}", dominant)
 
 
 def verdict(ds) -> str:
@@ -188,19 +250,26 @@ def verdict(ds) -> str:
     Returns
     -------
     str
-        e.g. ``"signal from the surface ply in 97 % of the valid area at 20 Hz"``;
-        states plainly when the candidates are indistinguishable, when no source
-        fits, when no category holds half the area, and when there is no valid
-        data.
+        e.g. ``"signal from the surface ply in 97 % of the valid area at 20 Hz;
+        coating and resin-rich layer rejected"``; names the sources that tie where
+        the candidates are indistinguishable (``"surface ply and whole laminate fit
+        equally (indistinguishable) in 95 % of the valid area at 20 Hz"``), and
+        states plainly when no source fits, when no category holds half the area,
+        and when there is no valid data.
 
     Notes
     -----
     The fraction is the share of valid pixels assigned to the category by the
-    source map; it says nothing about pixels outside the valid mask.
+    source map; it says nothing about pixels outside the valid mask. The tied
+    sources come from ``source_tie``; a source is rejected when it fits (its
+    ``source_probability`` is above 0) in at most :data:`REJECTED_SHARE` of the
+    valid area. Without those maps (older results) the sentence names neither.
     """
     valid = _valid_mask(ds)
+    ties = _ties(ds, valid)
     text, _ = _verdict_text(_fractions(ds, valid), int(valid.sum()), attr_float(ds, "frequency"),
-                            has_map="source_layer" in ds.data_vars)
+                            has_map="source_layer" in ds.data_vars, ties=ties,
+                            rejected=_rejected(_fit_fractions(ds, valid), ties))
     return text
 
 
@@ -327,7 +396,9 @@ def summarize_run(ds, *, regions=None, warnings=None, meta=None, registration_li
     -------
     dict
         Matches :func:`summary_schema`: ``verdict``, ``dominant``,
-        ``valid_fraction``, ``source_fractions`` (of the valid area),
+        ``valid_fraction``, ``source_fractions`` (of the valid area), ``ties``
+        (the sets of sources that tie and their share of the valid area),
+        ``fit_fractions`` (share where each source fits), ``rejected``,
         ``measured`` and ``predicted`` statistics (dimensionless dT/T0),
         ``frequency_hz``, ``registration_rms_px``, ``warnings``, and
         ``strain_resolution`` (VSG, modelled gains, noise floor of the strain maps; see
@@ -341,7 +412,11 @@ def summarize_run(ds, *, regions=None, warnings=None, meta=None, registration_li
     total = int(valid.size)
     frequency = attr_float(ds, "frequency")
     fractions = _fractions(ds, valid)
-    text, dominant = _verdict_text(fractions, n_valid, frequency, has_map="source_layer" in ds.data_vars)
+    ties = _ties(ds, valid)
+    fits = _fit_fractions(ds, valid)
+    rejected = _rejected(fits, ties)
+    text, dominant = _verdict_text(fractions, n_valid, frequency, has_map="source_layer" in ds.data_vars,
+                                   ties=ties, rejected=rejected)
     measured = np.asarray(ds["ratio_measured"].values, dtype=np.float64)[valid]
     predicted = {s: _prediction(ds, s, valid, measured) for s in evaluated_sources(ds)}
     beta = (_stats(np.asarray(ds["surface_fraction"].values)[valid]) if "surface_fraction" in ds.data_vars else None)
@@ -365,6 +440,9 @@ def summarize_run(ds, *, regions=None, warnings=None, meta=None, registration_li
         "valid_pixels": n_valid,
         "valid_fraction": valid_fraction,
         "source_fractions": fractions,
+        "ties": ties,
+        "fit_fractions": fits,
+        "rejected": rejected,
         "measured": _stats(measured),
         "predicted": predicted,
         "surface_fraction": beta,

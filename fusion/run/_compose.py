@@ -34,8 +34,8 @@ log = logging.getLogger(__name__)
 __all__ = ["compute_run", "RunResult"]
 
 # maps that keep their values outside the valid area (T0 shows the whole scene; the flags
-# and probabilities have their own no-data coding)
-_KEEP_OUTSIDE = ("source_layer", "valid", "source_probability", "T0")
+# and probabilities have their own no-data coding; source_tie is 0 there)
+_KEEP_OUTSIDE = ("source_layer", "source_tie", "valid", "source_probability", "T0")
 
 
 @dataclasses.dataclass
