@@ -10,12 +10,14 @@ import json
 import subprocess
 import sys
 import warnings
+from pathlib import Path
 
 import numpy as np
 import pytest
 
 import fusion
 from fusion.dic import (DicField, correlate, ranges_from_displacement, ranges_from_states, speckle_image)
+from fusion.config import load_config
 from fusion.diagnose import region_mask
 from fusion.io import LoadSignal, read_image
 from fusion.mechanics import (IsotropicMaterial, Laminate, OrthotropicMaterial, SurfaceLayer, model_response,
@@ -123,6 +125,8 @@ def test_printouts_are_short():
     ds = fusion.strain_ranges(table=DicField(x=x, y=x % 7, u=0 * x, v=0 * x, exx=np.full(5000, 1e-3),
                                              eyy=np.zeros(5000), gxy=np.zeros(5000)), noise=1e-5)
     assert len(repr(ds)) < 4000
+    cfg = load_config(Path(fusion.__file__).parent / "data" / "demo.toml")
+    assert len(repr(cfg)) < 600 and "CX-2Hz" in repr(cfg)
 
 
 def test_transfer_coefficients_of_a_laminate_keep_its_faces():

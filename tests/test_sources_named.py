@@ -75,6 +75,7 @@ OTHER_MODULES = {
     "test_api_rebuild.py": "the Python API's steps against the command line's result.nc (two code paths)",
     "test_api_door.py": "error text of the plausibility checks at the Python API's door",
     "test_docs.py": "the API reference, docstring references, README example and package data",
+    "test_demo_foreign_folder.py": "demo.generate on a folder it did not make: file ownership",
 }
 
 LIBRARIES = r"numpy|scipy|scikit-image|skimage|opencv|cv2"
