@@ -8,6 +8,8 @@ can do the same in a notebook.
 
 import ast
 import re
+import subprocess
+import sys
 from pathlib import Path
 
 import numpy as np
@@ -15,7 +17,6 @@ import pytest
 import xarray as xr
 
 import fusion
-from fusion.cli import main
 from fusion.config import load_config
 from fusion.demo import cache_folder, generate
 from fusion.io import open_frames, read_dic_field, read_load_signal, read_netcdf
@@ -39,10 +40,12 @@ def demo(tmp_path_factory):
         config = generate()
         assert config.parent == cache_folder()
         out = tmp_path_factory.mktemp("out")
-        argv = ["-q", "run", str(config), "--out", str(out)]
+        argv = [sys.executable, "-m", "fusion.cli", "-q", "run", str(config), "--out", str(out)]
         for name in RUNS:
             argv += ["--only", name]
-        assert main(argv) == 0
+        # the command line in a process of its own (it sets up logging for itself)
+        done = subprocess.run(argv, capture_output=True, text=True)
+        assert done.returncode == 0, done.stderr
         yield config, out
     finally:
         mp.undo()

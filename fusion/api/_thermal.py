@@ -84,7 +84,10 @@ def lockin_maps(frames, *, frequency=None, frame_rate=None, times=None, load=Non
     -----
     The lock-in of a run's thermal step (:func:`fusion.thermal.lockin`), with the frame
     clock and motion compensation as ``fusion run`` sets them up; the measured ratio and
-    phase lag are those of :func:`fusion.diagnose.measured_ratio`.
+    phase lag are those of :func:`fusion.diagnose.measured_ratio`. ``frequency`` is used as
+    given: ``fusion run`` also checks a configured frequency against the load signal's and
+    takes the load's where they disagree beyond its uncertainty
+    (:func:`fusion.thermal.estimate_frequency` with ``return_std=True`` gives it).
     """
     shape = tuple(getattr(frames, "shape", np.shape(frames)))
     load_v, load_t = _load(load, load_times)
