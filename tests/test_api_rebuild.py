@@ -87,7 +87,8 @@ def test_strain_table_run_rebuilt_step_by_step(demo):
     strain = fusion.strain_ranges(table=read_dic_field(run.dic.strain_ranges))
     reg = cfg.registration_for(run)
     transform = fit_transform(reg.dic_points, reg.ir_points, method=reg.method)
-    on_ir = fusion.registered_strain(strain, transform, thermal)
+    markers = [(c, r, reg.marker_radius + reg.marker_margin) for c, r in reg.ir_points]
+    on_ir = fusion.registered_strain(strain, transform, thermal, markers=markers)
     dg = cfg.diagnosis
     predicted = fusion.predictions(cfg.laminate_for(run), on_ir, frequency=run.frequency,
                                    property_uncertainty=dg.property_uncertainty)
@@ -118,7 +119,8 @@ def test_motion_compensated_run_rebuilt_step_by_step(demo):
     assert motion.dims == ("component", "y", "x") and np.abs(motion).max() > 0
     thermal = fusion.lockin_maps(frames, frequency=run.frequency, frame_rate=run.thermal.frame_rate, load=load,
                                  motion=motion)
-    on_ir = fusion.registered_strain(strain, transform, thermal)
+    markers = [(c, r, reg.marker_radius + reg.marker_margin) for c, r in reg.ir_points]
+    on_ir = fusion.registered_strain(strain, transform, thermal, markers=markers)
     predicted = fusion.predictions(cfg.laminate_for(run), on_ir, frequency=run.frequency)
     found = fusion.diagnosis(thermal, predicted, strain=on_ir)
     _compare(read_netcdf(out / "CX-0p05Hz" / "result.nc"), [thermal, on_ir, predicted, found], rtol=1e-6)

@@ -61,6 +61,7 @@ frames = "nothere.npy"
 frame_rate = "100 Hz"
 [run.dic]
 strain_ranges = "also_missing.csv"
+coordinates = "px"
 ''')
     assert main(["check", str(cfg)]) == 1
     err = capsys.readouterr().err.strip()

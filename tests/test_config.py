@@ -38,6 +38,7 @@ frames = "ir/oh1.npy"
 frame_rate = "200 Hz"
 [run.dic]
 strain_ranges = "dic/oh1.csv"
+coordinates = "px"                 # 'identity': the file's x, y are IR [col, row]
 '''
 
 

@@ -6,6 +6,7 @@ names exists, the package ships ``py.typed``, and the reference's build is wired
 The reference itself is built with Sphinx by .ci/run (``-W``: a warning fails).
 """
 
+import builtins
 import importlib
 import inspect
 import pkgutil
@@ -70,7 +71,7 @@ def _resolve(target, spaces):
             except AttributeError:
                 return False
             return True
-    for space in (*spaces, *_siblings(module)):
+    for space in (*spaces, *_siblings(module), builtins):
         obj = space
         try:
             for p in parts:

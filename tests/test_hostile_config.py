@@ -46,6 +46,7 @@ frames = {frames}
 frame_rate = "100 Hz"
 [run.dic]
 strain_ranges = "strain.csv"
+coordinates = "px"
 '''
 
 

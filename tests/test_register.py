@@ -41,9 +41,10 @@ def test_public_api():
     import fusion.register
 
     assert sorted(fusion.register.__all__) == [
-        "CameraModel", "RegistrationWarning", "Transform2D", "edge_distance_map", "find_fiducials",
-        "fit_camera", "fit_transform", "map_displacement", "match_fiducials", "refine_with_signal",
-        "resample_to_grid"]
+        "CameraModel", "FOOTPRINT_FAIL", "FOOTPRINT_WARN", "FitAssessment", "RegistrationWarning",
+        "Transform2D", "assess_fit", "check_handedness", "disk_mask", "edge_distance_map", "find_fiducials",
+        "fit_camera", "fit_transform", "footprint_share", "handedness", "map_displacement", "match_fiducials",
+        "min_points", "refine_with_signal", "resample_to_grid", "shape_contains", "shape_mask", "warp_support_ok"]
 
 
 # ---------------------------------------------------------------- transforms

@@ -44,6 +44,7 @@ PHYSICS_MODULES = frozenset({
     "test_dic_speckle.py", "test_dic_api.py",
     "test_dic_noise.py", "test_dic_edges.py", "test_dic_resolution.py", "test_dic_settings.py",
     "test_register.py", "test_camera.py", "test_fiducials.py",                  # registration
+    "test_registration_rule.py", "test_registration_checks.py", "test_register_quality.py",
     "test_diagnose.py", "test_sweep.py", "test_plan.py",                        # diagnosis, sweep, plan
     "test_demo.py", "test_end_to_end.py",                                       # whole runs
     "test_input_units.py", "test_frequency_from_load.py", "test_stack_sanity.py",  # input checks

@@ -226,7 +226,7 @@ def test_schema_is_valid_draft_2020_12_and_accepts_a_summary():
     (lambda s: s["measured"].update(n=-1), "measured/n"),
 ])
 def test_write_summary_refuses_what_the_schema_refuses(tmp_path, mutate, where):
-    s = report.summarize_run(result_with_counts({"surface_ply": 10}))
+    s = report.summarize_run(result_with_counts({"surface_ply": 30}))   # above the valid-area limit
     mutate(s)
     path = tmp_path / "summary.json"
     with pytest.raises(ValueError, match=re.escape(f"at '{where}'")):

@@ -9,6 +9,7 @@ from .._bounds import check_ratio
 from ..datamodel import SOURCES, result_dataset
 from ..diagnose import diagnose
 from ..errors import ArgumentError
+from ..register import warp_support_ok
 from ._labels import COMPONENTS
 
 __all__ = ["diagnosis"]
@@ -50,7 +51,8 @@ def diagnosis(measured, predicted, *, strain=None, valid=None, measured_std=None
         The predictions of :func:`fusion.predictions` on the same grid.
     strain : xarray.Dataset, optional
         The registered strain of :func:`fusion.registered_strain`: pixels outside its
-        footprint or without strain are left out, as in a run.
+        footprint or without strain are left out, as in a run; with motion-compensated lock-in
+        maps, so are pixels whose warp reaches pixels without correlation data.
     valid : (Y, X) bool array_like, optional
         Further pixels to leave out (False).
     measured_std : (Y, X) array_like or float, optional
@@ -87,6 +89,12 @@ def diagnosis(measured, predicted, *, strain=None, valid=None, measured_std=None
     if strain is not None:
         if "footprint" in strain:
             good &= np.asarray(strain["footprint"].values).astype(bool)
+        if isinstance(measured, xr.Dataset) and "motion_per_load" in measured and "masked" in strain:
+            # motion-compensated frames: a pixel whose warp over the load swing reaches pixels
+            # without correlation data (or markers) mixes in an edge the data do not describe
+            half = 0.5 * np.asarray(measured["motion_per_load"].values, float) * float(measured.attrs["load_range"])
+            known = ~(np.asarray(strain["missing"].values).astype(bool) | np.asarray(strain["masked"].values).astype(bool))
+            good &= warp_support_ok(known, -np.abs(half), np.abs(half), reach=(1, 2))
         for name, _ in COMPONENTS:
             good &= np.isfinite(np.asarray(strain[name].values))
     if valid is not None:

@@ -69,7 +69,7 @@ def lockin_maps(frames, *, frequency=None, frame_rate=None, times=None, load=Non
         diagnosis takes: ``ratio_measured`` and ``ratio_measured_std`` (dT/T0,
         dimensionless), ``snr``, ``phase_lag_measured`` and ``phase_lag_measured_std``
         (degree, positive when delayed), ``thermal_valid`` (pixel fitted), and with
-        ``motion`` ``motion_amplitude`` (IR px). ``attrs`` hold ``frequency`` (Hz),
+        ``motion`` ``motion_amplitude`` (IR px) and the field itself, ``motion_per_load``. ``attrs`` hold ``frequency`` (Hz),
         ``load_range`` (peak-to-peak load of the fundamental, the load's unit; NaN without a
         load), ``n_frames``, ``frame_rate``, ``reference_phase`` (rad), ``bad_pixels``,
         ``warnings``.
@@ -130,6 +130,12 @@ def lockin_maps(frames, *, frequency=None, frame_rate=None, times=None, load=Non
     if motion is not None:
         maps["motion_amplitude"] = np.asarray(motion_amplitude(m, load_range), np.float32)
     ds = result_dataset(maps)
+    if motion is not None:
+        # kept for the diagnosis: where the warp reaches pixels without data
+        ds["motion_per_load"] = extra(("component", "y", "x"), m, "pixel", "in-plane displacement per unit "
+                                      "load the frames were warped back by, (x, y) = (column, row) IR px per "
+                                      "unit of the load")
+        ds = ds.assign_coords(component=["x", "y"])
     ds["phase_lag_measured_std"] = extra(("y", "x"), lag_std, "degree", "standard deviation of "
                                          "phase_lag_measured")
     ds["thermal_valid"] = flag(("y", "x"), ok, "pixel fitted by the lock-in (no NaN, saturated or dead "

@@ -45,6 +45,9 @@ class CampaignOutcome:
             else:
                 verdict = (r.summary or {}).get("verdict", "")
                 lines.append(f"  done    {r.name} ({r.seconds:.1f} s){': ' + verdict if verdict else ''}")
+                # registration warnings change what the verdict means: shown here, not only in the report
+                lines += [f"          warning ({w['code']}): {w['message']}"
+                          for w in (r.summary or {}).get("warnings", ()) if w["code"].startswith("registration")]
         for e in self.campaign_errors:
             lines.append(f"  FAILED  campaign: {e}")
         n_fail = sum(r.status == "failed" for r in self.runs)

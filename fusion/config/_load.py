@@ -9,11 +9,14 @@ import tomllib
 from dataclasses import dataclass
 from pathlib import Path
 
+import numpy as np
+
 from ..errors import ConfigError
 from ..mechanics import (
     IsotropicMaterial, Laminate, LayupError, MaterialError, OrthotropicMaterial, Ply,
     SurfaceLayer, parse_layup,
 )
+from ..register import check_handedness, fit_transform
 from . import _schema as s
 from ._schema import Context
 from ._sections import (CampaignSpec, ComputeSpec, DiagnosisSpec, IsotropicSpec, LaminateSpec, LayerRef,
@@ -174,8 +177,9 @@ def _validate(doc: dict, text: str, path: Path | None, *, base: Path | None = No
                               f"{sorted(k for k in laminates if k != 'default')}", source=ctx.source)
         if run.registration is None and top.registration is None:
             raise ConfigError(f"{where}.registration", "no [registration] for this run and none at "
-                              "the top level (use method = \"identity\" if the grids coincide)",
-                              source=ctx.source)
+                              "the top level (use method = \"identity\" if the correlation data are "
+                              "already on the IR pixel grid)", source=ctx.source)
+        _check_registration(run, i, top.registration, ctx)
         runs.append(run)
 
     diagnosis = top.diagnosis or DiagnosisSpec()
@@ -195,6 +199,60 @@ def _validate(doc: dict, text: str, path: Path | None, *, base: Path | None = No
                   laminates=laminates, runs=tuple(runs), registration=top.registration,
                   diagnosis=diagnosis, compute=top.compute or ComputeSpec(),
                   output=top.output or OutputSpec(), plan=plan, material_sources=material_sources)
+
+
+def _check_registration(run, i, top_registration, ctx):
+    """The registration of a run against the coordinates of its correlation data."""
+    reg = run.registration or top_registration
+    where = run_key(run.name, i)
+    rk = f"{where}.registration" if run.registration is not None else "registration"
+    d = run.dic
+    images = d.images is not None
+    if reg.method == "identity" and not images:
+        if d.coordinates != "px":
+            raise ConfigError(f"{where}.dic.coordinates", f"method 'identity' takes the file's x, y as IR "
+                              f"pixels [col, row], but the file is in {d.coordinates!r}; set coordinates = "
+                              "\"px\" if it is on the IR pixel grid, else register it with control points "
+                              "(method 'similarity', 'affine' or 'homography')", source=ctx.source)
+        if d.effective_y_axis == "up" and not reg.ir_mirrored:
+            raise ConfigError(f"{where}.dic.y_axis", "method 'identity' takes the file's y as the IR row, "
+                              "which counts down, but y_axis = \"up\": that would mirror the field; set "
+                              "y_axis = \"down\" if y counts image rows (or ir_mirrored = true if the IR "
+                              "image really is mirrored)", source=ctx.source)
+    if reg.method == "camera" and images:
+        raise ConfigError(f"{rk}.method", "method 'camera' needs 3D correlation points (x, y, z); images "
+                          "correlated here give 2D fields: use 'homography'", source=ctx.source)
+    if reg.dic_points_units is not None:
+        if images and reg.dic_points_units == "mm" and d.pixel_size is None:
+            raise ConfigError(f"{rk}.dic_points_units", "'mm' on images means [col, row] times "
+                              "dic.pixel_size, which is not given; give pixel_size or the points in "
+                              "px", source=ctx.source)
+        if not images and reg.dic_points_units != d.coordinates:
+            raise ConfigError(f"{rk}.dic_points_units", f"is {reg.dic_points_units!r} but the correlation "
+                              f"file of run {run.name!r} is in {d.coordinates!r} (dic.coordinates); control "
+                              "points are written in the file's own coordinates", source=ctx.source)
+    if reg.method in ("similarity", "affine", "homography") and reg.dic_points is not None:
+        _check_points(reg, rk, d, ctx)
+
+
+def _check_points(reg, rk, dic, ctx):
+    """Control points that a plane transform cannot fit, or that mirror the field, are refused
+    here, before any data is read (the run checks again on its data)."""
+    pts = np.asarray([p[:2] for p in reg.dic_points], float)
+    if any(len(p) != 2 for p in reg.dic_points):
+        raise ConfigError(f"{rk}.dic_points", f"method {reg.method!r} needs [x, y] points; [x, y, z] "
+                          "points are for method 'camera'", source=ctx.source)
+    m = dic.to_specimen(reg.dic_points_units)
+    src = pts * np.diag(m)[:2]
+    try:
+        t = fit_transform(src, np.asarray(reg.ir_points, float), method=reg.method,
+                          ransac_threshold=reg.ransac_threshold, warn_limit=None)
+    except ValueError as e:
+        raise ConfigError(f"{rk}.dic_points", str(e), source=ctx.source) from e
+    try:
+        check_handedness(t.jacobian(src[t.inliers]), mirrored=reg.ir_mirrored, method=reg.method)
+    except ValueError as e:
+        raise ConfigError(f"{rk}.ir_points", str(e), source=ctx.source) from e
 
 
 def _table(value, k, ctx) -> dict:

@@ -5,6 +5,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 from pathlib import Path
 
+import numpy as np
+
 from ..errors import ConfigError
 from ..io import MAP_QUANTITIES
 from . import _schema as s
@@ -170,21 +172,78 @@ class DicSpec:
     def effective_y_axis(self) -> str:
         return self.y_axis or ("up" if self.coordinates == "mm" else "down")
 
+    def to_specimen(self, points_units=None) -> np.ndarray:
+        """(3, 3) matrix from the coordinates the config uses for these data (control points,
+        exclusions with frame = "dic") to the specimen frame the data are held in (x right,
+        y up; mm or px).
+
+        Files: their own x, y, y negated when the file's y points down. Images: the reference
+        image's (col, row) px, or with ``points_units = "mm"`` (col, row) x pixel size; rows
+        count down, and the data are in mm when ``pixel_size`` is given.
+        """
+        if self.images is None:
+            return np.diag([1.0, -1.0 if self.effective_y_axis == "down" else 1.0, 1.0])
+        k = 1.0 if (points_units == "mm" or self.pixel_size is None) else float(self.pixel_size)
+        return np.diag([k, -k, 1.0])
+
+
+@dataclass(frozen=True)
+class ExcludeSpec:
+    """A region left out of every map and statistic: one rectangle, circle or polygon."""
+
+    rect: tuple = key(s.list_of(s.quantity(""), min_len=4, max_len=4), "[x0, y0, x1, y1]: opposite corners.")
+    circle: tuple = key(s.list_of(s.quantity(""), min_len=3, max_len=3), "[cx, cy, r].")
+    polygon: tuple = key(s.list_of(s.point, min_len=3), "[[x, y], ...]: three or more vertices in order.")
+    frame: str = key(s.choice("ir", "dic"), "Coordinates of the shape: 'ir' = IR pixels [col, row]; "
+                     "'dic' = the correlation data's own coordinates, as for dic_points.", default="ir")
+
+    def _check(self, prefix, ctx):
+        given = [n for n in ("rect", "circle", "polygon") if getattr(self, n) is not None]
+        if len(given) != 1:
+            raise ConfigError(prefix, f"expected exactly one of 'rect', 'circle' or 'polygon', got "
+                              f"{given or 'none'}", source=ctx.source)
+        if self.rect is not None:
+            x0, y0, x1, y1 = self.rect
+            if not (x1 > x0 and y1 > y0):
+                raise ConfigError(f"{prefix}.rect", f"expected x1 > x0 and y1 > y0, got {list(self.rect)!r}",
+                                  source=ctx.source)
+        if self.circle is not None and not self.circle[2] > 0:
+            raise ConfigError(f"{prefix}.circle", f"expected a positive radius, got {self.circle[2]!r}",
+                              source=ctx.source)
+        if self.polygon is not None:
+            x = [v[0] for v in self.polygon]
+            y = [v[1] for v in self.polygon]
+            area = 0.5 * abs(sum(x[i] * y[i - 1] - x[i - 1] * y[i] for i in range(len(x))))
+            span = max(max(x) - min(x), max(y) - min(y))
+            if not area > 1e-9 * span * span:
+                raise ConfigError(f"{prefix}.polygon", "the vertices enclose no area (repeated or on one "
+                                  "line)", source=ctx.source)
+
 
 @dataclass(frozen=True)
 class RegistrationSpec:
     """How correlation coordinates map onto infrared pixels."""
 
     method: str = key(s.choice("homography", "affine", "similarity", "identity", "fiducials", "camera"),
-                      "Transform model; 'fiducials' finds markers automatically, 'camera' fits a "
-                      "pinhole model with distortion to 3D points.", default="homography")
+                      "Transform model; 'identity': the correlation data sit on the IR pixel grid "
+                      "(file x, y = IR col, row); 'fiducials' finds markers automatically; 'camera' "
+                      "fits a pinhole model with distortion to 3D points.", default="homography")
     dic_points: tuple = key(s.list_of(s.either(s.point, s.list_of(s.quantity(""), min_len=3, max_len=3))),
-                            "Control points in the correlation coordinates ([x, y] or [x, y, z]).")
+                            "Control points in the coordinates of the correlation data: the file's "
+                            "own x, y (its unit, its y direction), or for images the reference "
+                            "image's [col, row] ([x, y, z] for 'camera').")
+    dic_points_units: str = key(s.choice("px", "mm"), "Unit of dic_points (default: that of the "
+                                "correlation data; for images 'px'). With images, 'mm' means [col, row] "
+                                "times dic.pixel_size, rows still counting down.")
     ir_points: tuple = key(s.list_of(s.point), "The same points in IR pixels [col, row].")
+    ir_mirrored: bool = key(s.boolean, "The IR image is a mirror image of the visible camera's view "
+                            "(a mirror in its optical path, a flipped read-out): the registration "
+                            "then keeps orientation instead of reversing it.", default=False)
     ransac_threshold: float = key(s.quantity("", positive=True), "Outlier threshold in IR px "
                                   "(RANSAC); none for plain least squares.")
     max_error: float = key(s.quantity("", positive=True), "RMS reprojection error (IR px) above "
-                           "which a warning is raised.", default=0.5)
+                           "which a warning is raised; a control point is called an outlier only "
+                           "when the others place it farther off than this.", default=0.5)
     refine: bool = key(s.boolean, "Refine the transform by enhanced correlation of the measured "
                        "and predicted maps.", default=False)
     max_correction: float = key(s.quantity("", positive=True), "Largest refinement accepted, IR px.",
@@ -203,6 +262,13 @@ class RegistrationSpec:
     max_rotation: float = key(s.quantity("deg", positive=True, high=179), "Largest rotation between the "
                               "cameras (method 'fiducials'; rules out symmetric twins of the marker "
                               "layout).", unit="deg", default=45.0)
+    marker_radius: float = key(s.quantity("", positive=True), "The control points are centres of "
+                               "markers of this radius, IR px: their pixels become no data. Markers "
+                               "found by method 'fiducials' are masked with their measured radius.")
+    marker_margin: float = key(s.quantity("", nonnegative=True), "IR px of no data added around every "
+                               "marker (optics blur, centre error).", default=1.0)
+    exclude: tuple = key(s.list_of(s.table_of(ExcludeSpec)), "Regions to leave out of every map and "
+                         "statistic.", factory=tuple)
 
     def _check(self, prefix, ctx):
         needs_points = self.method in ("homography", "affine", "similarity", "camera")
@@ -215,6 +281,11 @@ class RegistrationSpec:
         if self.method == "fiducials" and self.fiducials is None:
             raise ConfigError(f"{prefix}.fiducials", "method 'fiducials' needs the number of markers",
                               source=ctx.source)
+        if self.marker_radius is not None and self.method not in ("homography", "affine", "similarity",
+                                                                    "camera"):
+            raise ConfigError(f"{prefix}.marker_radius", f"marks markers at the control points; method "
+                              f"{self.method!r} has none (markers found by 'fiducials' are masked "
+                              "with their measured radius)", source=ctx.source)
 
 
 @dataclass(frozen=True)

@@ -52,7 +52,8 @@ def _result(field, window, ranges, stds, valid, method, quadrature=None, extra=N
     attrs = vsg_attrs(field, window)
     attrs.update(noise_floor=_noise_floor(stds, valid), method=method, units_strain="1",
                  pixel_size=field.attrs.get("pixel_size"))
-    if attrs.get("step"):
+    # imported strain tables (window 1) come from settings we do not know: no resolution claimed
+    if attrs.get("step") and window >= 3:
         attrs.update(resolution_attrs(subset=attrs.get("subset") or 0, step=float(attrs["step"]),
                                       window=int(window), pixel_size=attrs.get("pixel_size")))
     if details is not None:

@@ -8,7 +8,7 @@ import cv2
 import numpy as np
 import scipy.linalg
 
-from ._transform import _as_points, _check_repeated
+from ._transform import _as_points, _check_repeated, min_points
 
 __all__ = ["CameraModel", "fit_camera"]
 
@@ -192,7 +192,7 @@ def fit_camera(points3d, image_points, image_shape, *, distortion=True):
     centre = obj.mean(axis=0)
     _, s, vt = np.linalg.svd(obj - centre)
     planar = s[2] <= _PLANAR_RATIO * s[0]
-    need = (8 if distortion else 4) if planar else (10 if distortion else 6)
+    need = min_points("camera", planar=bool(planar), distortion=distortion)
     if len(obj) < need:
         kind = "coplanar" if planar else "non-coplanar"
         raise ValueError(f"fitting a camera{' with distortion' if distortion else ''} to {kind} "

@@ -9,6 +9,8 @@ import scipy.ndimage as ndi
 from scipy.spatial import cKDTree
 from skimage.feature import peak_local_max
 
+from ._transform import _as_points, fit_transform, min_points
+
 __all__ = ["find_fiducials", "match_fiducials"]
 
 _MAD = 1.4826  # MAD to standard deviation for Gaussian data
@@ -277,8 +279,6 @@ def match_fiducials(src, dst, *, method="similarity", tolerance=None, max_rotati
     ----------
     Huttenlocher & Ullman, Int. J. Comput. Vis. 5(2), 195-212 (1990).
     """
-    from ._transform import _as_points, fit_transform
-
     s = _as_points(src, "src")
     d = _as_points(dst, "dst")
     if len(s) < 3 or len(d) < 3:
@@ -343,7 +343,7 @@ def match_fiducials(src, dst, *, method="similarity", tolerance=None, max_rotati
     si = np.array(sorted(p[0] for p in best_key))
     di = np.array([dict(best_key)[i] for i in si])
     for _ in range(3):
-        fit_method = method if len(si) >= {"similarity": 2, "affine": 3, "homography": 4}[method] else "similarity"
+        fit_method = method if len(si) >= min_points(method) else "similarity"
         try:
             t = fit_transform(s[si], d[di], method=fit_method, warn_limit=None)
         except ValueError:  # matched markers on one line: the similarity fit still holds

@@ -31,7 +31,43 @@ def _bbox(points):
     return (points[:, 0].min(), points[:, 0].max(), points[:, 1].min(), points[:, 1].max())
 
 
-def _grid_resample(pts, vals, ok, grid_shape, q):
+def _bilinear(p, i, j):
+    """Positions, cell corners and derivatives of the bilinear grid map at parameters (i, j).
+
+    Outside the grid the boundary cell is extended (a, b beyond [0, 1]).
+    """
+    gy, gx = p.shape[:2]
+    i0 = np.clip(np.floor(i).astype(np.intp), 0, gy - 2)
+    j0 = np.clip(np.floor(j).astype(np.intp), 0, gx - 2)
+    a, b = (i - i0)[:, None], (j - j0)[:, None]
+    p00, p01, p10, p11 = p[i0, j0], p[i0, j0 + 1], p[i0 + 1, j0], p[i0 + 1, j0 + 1]
+    x = (1 - a) * (1 - b) * p00 + (1 - a) * b * p01 + a * (1 - b) * p10 + a * b * p11
+    da_ = (1 - b) * (p10 - p00) + b * (p11 - p01)
+    db_ = (1 - a) * (p01 - p00) + a * (p11 - p10)
+    return x, da_, db_, i0, j0, a, b
+
+
+def _invert(p, q, i, j):
+    """Grid parameters (i, j) of IR positions q by Newton's method from a first guess."""
+    for _ in range(_NEWTON_STEPS):
+        x, da_, db_, *_ = _bilinear(p, i, j)
+        r = q - x
+        det = da_[:, 0] * db_[:, 1] - da_[:, 1] * db_[:, 0]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            step_a = (r[:, 0] * db_[:, 1] - r[:, 1] * db_[:, 0]) / det
+            step_b = (da_[:, 0] * r[:, 1] - da_[:, 1] * r[:, 0]) / det
+        i = i + np.clip(step_a, -1, 1)  # a bounded step keeps cell jumps from overshooting
+        j = j + np.clip(step_b, -1, 1)
+        if np.nanmax(np.abs(r), initial=0.0) < _NEWTON_TOL:
+            break
+    return i, j
+
+
+# pixel corners a hair inside the pixel: on an identity grid a corner then belongs to its own node
+_CORNERS = 0.5 * (1.0 - 1e-6) * np.array([[-1, -1], [-1, 1], [1, -1], [1, 1]], np.float64)
+
+
+def _grid_resample(pts, vals, ok, grid_shape, q, whole_pixels=False):
     """Bilinear interpolation in the source grid's (row, col) parameter space.
 
     The IR position of a grid parameter (i, j) is the bilinear blend of the four node positions
@@ -48,39 +84,31 @@ def _grid_resample(pts, vals, ok, grid_shape, q):
     guess = LinearNDInterpolator(pts, np.column_stack([ii.ravel(), jj.ravel()]).astype(np.float64))(q)
     hit = np.all(np.isfinite(guess), axis=1)
     q, idx = q[hit], np.flatnonzero(hit)
-    i, j = guess[hit, 0].copy(), guess[hit, 1].copy()
-    for _ in range(_NEWTON_STEPS):
-        i0 = np.clip(np.floor(i).astype(np.intp), 0, gy - 2)
-        j0 = np.clip(np.floor(j).astype(np.intp), 0, gx - 2)
-        a, b = (i - i0)[:, None], (j - j0)[:, None]
-        p00, p01, p10, p11 = p[i0, j0], p[i0, j0 + 1], p[i0 + 1, j0], p[i0 + 1, j0 + 1]
-        x = (1 - a) * (1 - b) * p00 + (1 - a) * b * p01 + a * (1 - b) * p10 + a * b * p11
-        da_ = (1 - b) * (p10 - p00) + b * (p11 - p01)
-        db_ = (1 - a) * (p01 - p00) + a * (p11 - p10)
-        r = q - x
-        det = da_[:, 0] * db_[:, 1] - da_[:, 1] * db_[:, 0]
-        with np.errstate(divide="ignore", invalid="ignore"):
-            step_a = (r[:, 0] * db_[:, 1] - r[:, 1] * db_[:, 0]) / det
-            step_b = (da_[:, 0] * r[:, 1] - da_[:, 1] * r[:, 0]) / det
-        i = i + np.clip(step_a, -1, 1)  # a bounded step keeps cell jumps from overshooting
-        j = j + np.clip(step_b, -1, 1)
-        if np.nanmax(np.abs(r), initial=0.0) < _NEWTON_TOL:
-            break
-    i0 = np.clip(np.floor(i).astype(np.intp), 0, gy - 2)
-    j0 = np.clip(np.floor(j).astype(np.intp), 0, gx - 2)
-    a, b = (i - i0)[:, None], (j - j0)[:, None]
-    x = ((1 - a) * (1 - b) * p[i0, j0] + (1 - a) * b * p[i0, j0 + 1] + a * (1 - b) * p[i0 + 1, j0]
-         + a * b * p[i0 + 1, j0 + 1])
+    i, j = _invert(p, q, guess[hit, 0].copy(), guess[hit, 1].copy())
+    x, _, _, i0, j0, a, b = _bilinear(p, i, j)
     eps = 1e-9
     inside = (np.all(np.abs(q - x) < 1e-3, axis=1) & (i >= -eps) & (i <= gy - 1 + eps)
               & (j >= -eps) & (j <= gx - 1 + eps) & cell_ok[i0, j0])
+    if whole_pixels and inside.any():
+        # every part of the pixel nearer to a valid node than to a missing one; past the grid's
+        # outer rows and columns the nearest node is the outermost one (unmeasured, not missing)
+        sel = np.flatnonzero(inside)
+        for corner in _CORNERS:
+            ci, cj = _invert(p, q[sel] + corner, i[sel].copy(), j[sel].copy())
+            ni = np.clip(np.rint(np.nan_to_num(ci, nan=-1.0)), 0, gy - 1).astype(np.intp)
+            nj = np.clip(np.rint(np.nan_to_num(cj, nan=-1.0)), 0, gx - 1).astype(np.intp)
+            inside[sel] &= ok[ni, nj] & np.isfinite(ci) & np.isfinite(cj)
     out = ((1 - a) * (1 - b) * v[i0, j0] + (1 - a) * b * v[i0, j0 + 1] + a * (1 - b) * v[i0 + 1, j0]
            + a * b * v[i0 + 1, j0 + 1])
     return idx[inside], out[inside]
 
 
-def _scattered_resample(pts, vals, q, max_edge):
-    """Delaunay linear interpolation, without triangles that bridge holes or concave edges."""
+def _scattered_resample(pts, vals, q, max_edge, missing=None):
+    """Delaunay linear interpolation, without triangles that bridge holes or concave edges.
+
+    ``missing`` (M, 2): positions of unusable points; a pixel is then kept only when each of
+    its corners is nearer to a usable point than to any of them.
+    """
     try:
         tri = Delaunay(pts)
     except QhullError as e:
@@ -94,12 +122,18 @@ def _scattered_resample(pts, vals, q, max_edge):
     simplex = tri.find_simplex(q)
     inside = simplex >= 0
     inside[inside] = keep[simplex[inside]]
+    if missing is not None and len(missing) and inside.any():
+        sel = np.flatnonzero(inside)
+        good, bad = cKDTree(pts), cKDTree(missing)
+        for corner in _CORNERS:
+            c = q[sel] + corner
+            inside[sel] &= good.query(c)[0] < bad.query(c)[0]
     out = LinearNDInterpolator(tri, vals)(q[inside])
     return np.flatnonzero(inside), out
 
 
 def resample_to_grid(points_ir, values, shape, *, grid_shape=None, valid=None, edge_margin=0.0,
-                     max_edge=None):
+                     max_edge=None, whole_pixels=False):
     """Resample values at correlation points onto every IR pixel centre.
 
     Parameters
@@ -125,14 +159,20 @@ def resample_to_grid(points_ir, values, shape, *, grid_shape=None, valid=None, e
     max_edge : float, optional
         Scattered points only: triangles with an edge longer than this (IR px) are not part of
         the footprint; default 3 x the median nearest-neighbour spacing.
+    whole_pixels : bool
+        Keep a pixel only when all of it lies on usable data: each corner of the pixel must be
+        nearer to a usable point than to an unusable one (past the outermost points of a grid,
+        the outermost point counts). An infrared pixel averages the surface over its area, so
+        one that reaches over a hole or a masked marker mixes in what the strain does not
+        describe.
 
     Returns
     -------
     maps : (K, Y, X) float32 ndarray
         Resampled values, NaN outside ``inside``.
     inside : (Y, X) bool ndarray
-        Pixel centres inside the footprint of the valid points and at least ``edge_margin``
-        from its edge.
+        Pixel centres inside the footprint of the valid points (whole pixels with
+        ``whole_pixels``) and at least ``edge_margin`` from its edge.
 
     Notes
     -----
@@ -186,10 +226,12 @@ def resample_to_grid(points_ir, values, shape, *, grid_shape=None, valid=None, e
                 raise ValueError("points_ir must be finite on a regular grid; mark missing points "
                                  "with valid=False instead")
             q, flat = _pixel_centres((ny, nx), _bbox(pts))
-            sel, out = _grid_resample(pts, vals, ok.reshape(gy, gx), (gy, gx), q)
+            sel, out = _grid_resample(pts, vals, ok.reshape(gy, gx), (gy, gx), q, whole_pixels)
         else:
             q, flat = _pixel_centres((ny, nx), _bbox(pts[ok]))
-            sel, out = _scattered_resample(pts[ok], vals[ok], q, max_edge)
+            located = np.all(np.isfinite(pts), axis=1)
+            missing = pts[located & ~ok] if whole_pixels else None
+            sel, out = _scattered_resample(pts[ok], vals[ok], q, max_edge, missing)
         maps[:, flat[sel]] = out.T.astype(np.float32)
         inside[flat[sel]] = True
     inside = inside.reshape(ny, nx)

@@ -9,12 +9,44 @@ from dataclasses import dataclass, field
 import cv2
 import numpy as np
 
-__all__ = ["Transform2D", "RegistrationWarning", "fit_transform", "map_displacement"]
+__all__ = ["Transform2D", "RegistrationWarning", "fit_transform", "map_displacement", "min_points"]
 
 logger = logging.getLogger(__name__)
 
-#: Minimum number of control-point pairs per transform model.
-MIN_POINTS = {"identity": 0, "similarity": 2, "affine": 3, "homography": 4}
+# control-point pairs that fix each plane model exactly, and its number of parameters
+_PLANE = {"identity": (0, 0), "similarity": (2, 4), "affine": (3, 6), "homography": (4, 8)}
+
+
+def min_points(method: str, *, planar: bool = True, distortion: bool = True) -> int:
+    """Fewest control-point pairs a registration model can be fitted to.
+
+    Parameters
+    ----------
+    method : {"identity", "similarity", "affine", "homography", "camera"}
+    planar, distortion : bool
+        Camera only: coplanar 3D points, and a fit with lens distortion.
+
+    Returns
+    -------
+    int
+        identity 0, similarity 2, affine 3, homography 4 (each then fits its points exactly);
+        camera: coplanar 4 (8 with distortion), non-coplanar 6 (10 with distortion).
+
+    Raises
+    ------
+    ValueError
+        An unknown method.
+    """
+    if method == "camera":
+        return (8 if distortion else 4) if planar else (10 if distortion else 6)
+    if method not in _PLANE:
+        raise ValueError(f"method must be one of {sorted([*_PLANE, 'camera'])!r}; got {method!r}")
+    return _PLANE[method][0]
+
+
+def n_parameters(method: str) -> int:
+    """Free parameters of a plane model (similarity 4, affine 6, homography 8)."""
+    return _PLANE[method][1]
 
 
 class RegistrationWarning(UserWarning):
@@ -62,7 +94,7 @@ def _collinear(points, rel=1e-6):
 
 
 def _check_geometry(src, dst, method):
-    need = MIN_POINTS[method]
+    need = min_points(method)
     n = len(src)
     if n < need:
         raise ValueError(f"method {method!r} needs at least {need} control-point pairs; got {n}")
@@ -348,8 +380,8 @@ def fit_transform(src_points, dst_points, *, method="homography", ransac_thresho
     >>> bool(np.allclose(t.apply([[20, 10]]), [[110, 150]]))
     True
     """
-    if method not in MIN_POINTS:
-        raise ValueError(f"method must be one of {sorted(MIN_POINTS)!r}; got {method!r}")
+    if method not in _PLANE:
+        raise ValueError(f"method must be one of {sorted(_PLANE)!r}; got {method!r}")
     src = _as_points(src_points, "src_points")
     dst = _as_points(dst_points, "dst_points")
     if len(src) != len(dst):
@@ -360,10 +392,10 @@ def fit_transform(src_points, dst_points, *, method="homography", ransac_thresho
     n = len(src)
     inliers = np.ones(n, bool)
     orientation = None
-    if method != "identity" and ransac_threshold is not None and n > MIN_POINTS[method]:
+    if method != "identity" and ransac_threshold is not None and n > min_points(method):
         mask, orientation = _ransac(src, dst, method, ransac_threshold)
-        if mask is None or mask.sum() < MIN_POINTS[method]:
-            raise ValueError(f"RANSAC found fewer than {MIN_POINTS[method]} inliers at threshold "
+        if mask is None or mask.sum() < min_points(method):
+            raise ValueError(f"RANSAC found fewer than {min_points(method)} inliers at threshold "
                              f"{ransac_threshold!r} px; check the control points or raise the threshold")
         inliers = mask
         _check_geometry(src[inliers], dst[inliers], method)

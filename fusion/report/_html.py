@@ -295,6 +295,21 @@ def _regions_table(regions, run, frequency=None) -> str:
     return out
 
 
+def _registration_error(s) -> str:
+    """The registration error as far as it is known: none for an exact fit, else the RMS and the
+    largest leave-one-out error of a control point."""
+    reg = (s.get("meta") or {}).get("registration") or {}
+    if reg.get("error_estimate"):
+        return _e(reg["error_estimate"])
+    if s.get("registration_rms_px") is None:
+        return _num(None)
+    text = f"{_num(s.get('registration_rms_px'))} IR px"
+    loo = [v for v in ((reg.get("assessment") or {}).get("leave_one_out_px") or []) if v is not None]
+    if loo:
+        text += f" (leave-one-out up to {_num(max(loo))} px over {len(loo)} points)"
+    return text
+
+
 def _facts(pairs) -> str:
     return '<dl class="facts">' + "".join(f"<div><dt>{_e(k)}</dt><dd>{v}</dd></div>" for k, v in pairs) + "</dl>"
 
@@ -345,8 +360,7 @@ def _run_section(run, slug, max_width) -> str:
         ("Specimen", _e(s.get("specimen") or "n/a")),
         ("Loading frequency", f"{_num(s.get('frequency_hz'))} Hz" if s.get("frequency_hz") else _num(None)),
         ("Valid area", _e(format_percent(s.get("valid_fraction", 0.0)))),
-        ("Registration RMS error", f"{_num(s.get('registration_rms_px'))} IR px"
-         if s.get("registration_rms_px") is not None else _num(None)),
+        ("Registration RMS error", _registration_error(s)),
         ("Pixel size", f"{_num(grid.get('pixel_size_mm'))} mm" if grid.get("pixel_size_mm") else "not known (IR px)"),
         ("Median SNR", _num(s.get("snr_median"))),
     ])

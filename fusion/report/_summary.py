@@ -13,6 +13,7 @@ import numpy as np
 
 from .. import __version__
 from ..datamodel import SOURCES
+from ..register import FOOTPRINT_WARN
 from ..io import atomic_write_text
 from ._figures import evaluated_sources
 from ._resolution import strain_resolution
@@ -23,8 +24,13 @@ __all__ = [
     "WARNING_CODES", "REJECTED_SHARE",
 ]
 
-WARNING_CODES = ("registration_error", "low_snr", "dissipative_heating", "below_band", "above_band",
+WARNING_CODES = ("registration_error", "registration_exact_fit", "registration_outlier", "registration_footprint",
+                 "registration_refinement", "low_snr", "dissipative_heating", "below_band", "above_band",
                  "low_valid_area", "other")
+
+# the registration step judges its own error (with the reason); the summary's own check of the
+# RMS is for results made without it
+_REGISTRATION_JUDGED = {"registration_error", "registration_exact_fit", "registration_outlier"}
 
 _PHRASES = {
     "coating": "signal from the coating",
@@ -334,10 +340,10 @@ def _normalise_warnings(items):
     return out
 
 
-def _auto_warnings(ds, *, valid_fraction, snr_median, rms, frequency, meta, registration_limit_px,
-                   snr_limit, second_harmonic_limit, valid_area_limit):
+def _auto_warnings(ds, *, n_valid, snr_median, rms, frequency, meta, registration_limit_px,
+                   snr_limit, second_harmonic_limit, valid_area_limit, given):
     out = []
-    if rms is not None and rms > registration_limit_px:
+    if rms is not None and rms > registration_limit_px and not given & _REGISTRATION_JUDGED:
         out.append({"code": "registration_error", "message": (
             f"registration RMS error {rms:.2f} IR px exceeds {registration_limit_px:g} px: strain and "
             "temperature may be compared at different points, worst where gradients are steep")})
@@ -360,15 +366,23 @@ def _auto_warnings(ds, *, valid_fraction, snr_median, rms, frequency, meta, regi
         elif hi is not None and frequency > float(hi):
             out.append({"code": "above_band", "message": (
                 f"loading frequency {frequency:g} Hz is above the recommended band ending at {float(hi):g} Hz")})
-    if valid_fraction < valid_area_limit:
+    usable = (meta.get("footprint") or {}).get("valid_reference_pixels")
+    if usable:
+        share = n_valid / usable
+        where = f"of the {usable} IR px with usable thermal data"
+    else:
+        share = n_valid / ds["ratio_measured"].size if ds["ratio_measured"].size else 0.0
+        where = "of the field"
+    if share < valid_area_limit and "registration_footprint" not in given:
         out.append({"code": "low_valid_area", "message": (
-            f"only {format_percent(valid_fraction)} of the field is valid (limit {format_percent(valid_area_limit)})")})
+            f"only {format_percent(share)} {where} is valid ({n_valid} px; limit {format_percent(valid_area_limit)}): "
+            "strain data missing or masked there, or the signal too weak")})
     return out
 
 
 def summarize_run(ds, *, regions=None, warnings=None, meta=None, registration_limit_px: float = 0.5,
                   snr_limit: float = 3.0, second_harmonic_limit: float = 0.1,
-                  valid_area_limit: float = 0.25) -> dict:
+                  valid_area_limit: float = FOOTPRINT_WARN) -> dict:
     """The numbers of one run for the report and for scripts (``summary.json``).
 
     Parameters
@@ -385,12 +399,19 @@ def summarize_run(ds, *, regions=None, warnings=None, meta=None, registration_li
     meta : dict, optional
         Free metadata kept under ``meta``. Read keys: ``recommended_band_hz``
         ``(f_low, f_high)`` for the band check, ``second_harmonic_ratio``
-        (median ``|2f| / |1f|`` amplitude, also read from the attrs), ``created``.
+        (median ``|2f| / |1f|`` amplitude, also read from the attrs), ``created``,
+        ``footprint`` (``valid_reference_pixels``: IR pixels with usable thermal
+        data outside markers and exclusions, the area the valid area is judged
+        against).
     registration_limit_px, snr_limit, second_harmonic_limit, valid_area_limit : float
         Thresholds of the automatic warnings (IR px; median ``|dT|/std``;
-        fraction of the fundamental; fraction of the field). They are this
+        fraction of the fundamental; share of the usable thermal area, or of
+        the whole field when ``meta`` does not give it). They are this
         project's defaults, not values from a standard; laboratories should set
-        their own.
+        their own. The valid-area rule is the registration's footprint rule
+        (:data:`fusion.register.FOOTPRINT_WARN`); its warning is left out when
+        the registration already reported a small footprint, and the RMS check
+        when the registration judged its own error.
 
     Returns
     -------
@@ -423,9 +444,11 @@ def summarize_run(ds, *, regions=None, warnings=None, meta=None, registration_li
     rms = attr_float(ds, "registration_rms")
     snr_median = _snr(ds, valid)
     valid_fraction = n_valid / total if total else 0.0
-    found = _auto_warnings(ds, valid_fraction=valid_fraction, snr_median=snr_median, rms=rms, frequency=frequency,
+    passed = _normalise_warnings(warnings)
+    found = _auto_warnings(ds, n_valid=n_valid, snr_median=snr_median, rms=rms, frequency=frequency,
                            meta=meta, registration_limit_px=registration_limit_px, snr_limit=snr_limit,
-                           second_harmonic_limit=second_harmonic_limit, valid_area_limit=valid_area_limit)
+                           second_harmonic_limit=second_harmonic_limit, valid_area_limit=valid_area_limit,
+                           given={w["code"] for w in passed})
     created = meta.get("created") or ds.attrs.get("created") or _dt.datetime.now(_dt.timezone.utc).isoformat(
         timespec="seconds")
     sha = ds.attrs.get("config_sha256") or None
@@ -450,7 +473,7 @@ def summarize_run(ds, *, regions=None, warnings=None, meta=None, registration_li
         "registration_rms_px": rms,
         "regions": _jsonable(list(regions or [])),
         "strain_resolution": strain_resolution(ds),
-        "warnings": _normalise_warnings(found + _normalise_warnings(warnings)),
+        "warnings": _normalise_warnings(found + passed),
         "provenance": {"config_sha256": str(sha) if sha else None,
                        "version": str(ds.attrs.get("version") or __version__),
                        "created": str(created)},

@@ -25,7 +25,7 @@ from ..mechanics import ply_profile
 from ..thermal import motion_amplitude
 from ._files import need_file
 from ._predictions import predictions
-from ._registration import refine_registration, registration_side
+from ._registration import check_footprint, motion_support, refine_registration, registration_side
 from ._strain import strain_side
 from ._thermal import motion_field, run_load_range, thermal_side
 
@@ -67,22 +67,24 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
     warnings += t_info.get("warnings", [])
     ir_shape = thermal["T0"].shape
 
-    smaps, inside, reg_report, reg_warn, transform = registration_side(run, reg, ranges, ir_shape,
-                                                                       thermal["T0"])
-    warnings += reg_warn
-    if reg.refine and transform is not None:
-        smaps, inside, reg_report, transform = refine_registration(run, reg, ranges, lam, thermal, t_valid,
-                                                                   smaps, inside, reg_report, transform,
-                                                                   warnings)
+    registered = registration_side(run, reg, ranges, ir_shape, thermal["T0"])
+    if reg.refine and registered.transform is not None:
+        registered = refine_registration(run, reg, ranges, lam, thermal, t_valid, registered, warnings)
+    warnings += registered.warnings
+    smaps, inside, reg_report, transform = (registered.maps, registered.inside, registered.report,
+                                            registered.transform)
     if run.thermal.motion_compensation:
-        thermal, t_valid, t_info = _motion_compensated(run, budget, disp, transform, load_range, ir_shape,
-                                                       progress)
+        thermal, t_valid, t_info, motion = _motion_compensated(run, budget, disp, transform, load_range,
+                                                               ir_shape, progress)
+        inside = inside & motion_support(registered, motion, load_range)
 
     strain = np.moveaxis(smaps[:3], 0, -1).astype(np.float32)          # (Y, X, 3)
     strain_std = np.moveaxis(smaps[3:6], 0, -1).astype(np.float32)
     measured, measured_std, snr, lag, lag_std = _measured(thermal)
-    valid = (t_valid & inside & np.all(np.isfinite(strain), axis=-1) & np.isfinite(measured)
-             & np.isfinite(measured_std) & (snr >= dg.min_snr))
+    thermal_ok = t_valid & np.isfinite(measured) & np.isfinite(measured_std) & (snr >= dg.min_snr)
+    reg_report["footprint"], reg_warn = check_footprint(reg, registered, thermal_ok)
+    warnings += reg_warn
+    valid = thermal_ok & inside & np.all(np.isfinite(strain), axis=-1)
     if not valid.any():
         raise InputError(run.thermal.frames or run.thermal.maps,
                          "no pixel has both usable thermal data and strain data: check the "
@@ -133,7 +135,7 @@ def _motion_compensated(run, budget, disp, transform, load_range, ir_shape, prog
     thermal, t_valid, t_info, _ = thermal_side(run, budget=budget, motion=motion, progress=progress)
     t_info["motion_compensated"] = True
     thermal["motion_amplitude"] = np.asarray(motion_amplitude(motion, load_range), np.float32)
-    return thermal, t_valid, t_info
+    return thermal, t_valid, t_info, motion
 
 
 def _measured(thermal):
@@ -203,6 +205,8 @@ def _meta(run, lam, frequency, reg_report, t_info, ranges, calibration, pinfo, v
         meta["second_harmonic_ratio"] = float(np.nanmedian(np.asarray(harm)[valid]))
     if "pixel_size_mm" in reg_report:
         meta["pixel_size_mm"] = reg_report["pixel_size_mm"]
+    if "footprint" in reg_report:
+        meta["footprint"] = reg_report["footprint"]
     return meta
 
 
@@ -215,7 +219,7 @@ def _attrs(cfg, run, meta, reg_report, ranges, pred, calibration):
         "fusion_version": __version__,
         "run_name": run.name, "specimen": meta["specimen"], "frequency": meta["frequency"],
         "frequency_units": "Hz",
-        "registration_rms": float(reg_report.get("rms", float("nan"))),
+        "registration_rms": float("nan") if reg_report.get("rms") is None else float(reg_report["rms"]),
         "registration_rms_units": "IR pixel",
         "config_text": cfg.text, "config_sha256": cfg.sha256,
         "strain_attrs": dict(ranges.attrs),

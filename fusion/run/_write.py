@@ -18,9 +18,9 @@ def write_run(result: RunResult, folder: Path, *, cfg, run, stamp: str) -> dict:
     ds = result.dataset
     ds.attrs["input_sha256"] = inputs
     write_netcdf(ds, folder / "result.nc")
-    # the IR field usually shows grips and background as well: warn below 10 % valid, not 25 %
+    # the valid area is judged against the usable thermal area (meta["footprint"]), by the
+    # registration's footprint rule: no limit of its own here
     summary = summarize_run(ds, regions=result.regions, warnings=result.warnings, meta=result.meta,
-                            valid_area_limit=0.10,
                             registration_limit_px=cfg.registration_for(run).max_error,
                             snr_limit=cfg.diagnosis.min_snr)
     summary["provenance"].update(stamp=stamp, inputs=inputs)
