@@ -22,6 +22,16 @@ CAUTION = ("Results support engineering judgement; they do not certify a compone
            "standards.")
 
 
+def _positive_int(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        value = 0
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"expected a whole number of at least 1, got {text!r}")
+    return value
+
+
 def _parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(
         prog="fusion",
@@ -42,7 +52,7 @@ def _parser() -> argparse.ArgumentParser:
     r.add_argument("--only", action="append", metavar="NAME", help="process only this run (repeatable)")
     r.add_argument("--scheduler", metavar="ADDRESS",
                    help="Dask scheduler: tcp://HOST:PORT, 'processes', 'threads' or 'synchronous'")
-    r.add_argument("--workers", type=int, metavar="N", help="runs processed at once")
+    r.add_argument("--workers", type=_positive_int, metavar="N", help="runs processed at once")
 
     c = sub.add_parser("check", help="validate a config and its input files without processing")
     c.add_argument("config", type=Path)
@@ -97,15 +107,10 @@ def _setup_logging(debug: bool, quiet: bool) -> None:
 
 
 def _cmd_run(args) -> int:
-    from .campaign._workers import prestart
-
-    # before the campaign's imports: the workers' fork server starts up meanwhile
-    prestart(args.config, workers=args.workers, scheduler=args.scheduler, only=args.only)
     from .campaign import run_campaign
 
     outcome = run_campaign(args.config, out=args.out, overwrite=args.overwrite, only=args.only,
-                           scheduler=args.scheduler, workers=args.workers,
-                           progress=not args.quiet and sys.stderr.isatty())
+                           scheduler=args.scheduler, workers=args.workers, progress=not args.quiet)
     print(outcome.describe())
     return 0 if outcome.ok else 1
 
@@ -138,7 +143,7 @@ def _cmd_gauge(args) -> int:
 def _cmd_demo(args) -> int:
     from .demo import run_demo
 
-    outcome = run_demo(args.out, overwrite=args.overwrite, progress=not args.quiet and sys.stderr.isatty())
+    outcome = run_demo(args.out, overwrite=args.overwrite, progress=not args.quiet)
     print(outcome.describe())
     return 0 if outcome.ok else 1
 
@@ -178,30 +183,19 @@ def main(argv=None) -> int:
         print("fusion: error: out of memory; lower [compute] memory_budget or process fewer runs at once",
               file=sys.stderr)
         return 1
+    except OSError as e:
+        # the system refused a read or write outside a run (disk full, a file-size limit,
+        # a share gone): one line naming the file, not a bug to report
+        if args.debug:
+            raise
+        where = f"{e.filename}: " if e.filename else ""
+        print(f"fusion: error: {where}{e.strerror or e}", file=sys.stderr)
+        return 1
 
 
 def entry() -> None:  # pragma: no cover - exits the process
-    """The console script: :func:`main`, then a quick exit.
-
-    Once the command is done and its output flushed, the interpreter's own teardown
-    (freeing every module of numba, LLVM, matplotlib, xarray, ...) takes about a
-    second and does nothing the user needs. So the exit handlers run (logging,
-    multiprocessing, temporary files) and the process ends with ``os._exit``. When a
-    thread other than daemons is still running, the normal exit waits for it instead.
-    """
-    import atexit
-    import os
-    import threading
-
-    code = main()
-    sys.stdout.flush()
-    sys.stderr.flush()
-    if any(t.is_alive() and not t.daemon for t in threading.enumerate() if t is not threading.main_thread()):
-        sys.exit(code)
-    atexit._run_exitfuncs()
-    sys.stdout.flush()
-    sys.stderr.flush()
-    os._exit(code)
+    """The console script: :func:`main`, its return value as the exit code."""
+    sys.exit(main())
 
 
 if __name__ == "__main__":  # pragma: no cover

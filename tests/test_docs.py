@@ -79,7 +79,10 @@ def _resolve(target, spaces):
             return True
         except AttributeError:
             continue
-    return False
+    # an instance attribute the class sets on its objects (self.name = ...)
+    classes = [s for s in spaces if inspect.isclass(s)]
+    return len(parts) == 1 and any(re.search(rf"\bself\.{parts[0]}\b[^=\n]*=", inspect.getsource(c))
+                                   for c in classes)
 
 
 def test_every_docstring_reference_exists():

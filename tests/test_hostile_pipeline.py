@@ -5,7 +5,7 @@ linked into a small campaign of its quick runs with figures and the report off.
 Each case asserts the exit code, that the message names the offending file or
 key, and that no partial output remains: a run folder is either whole (result.nc
 opens, summary.json validates against its schema) or absent, and the hidden
-``.NAME.partial-*`` folders are never visible as runs. The cases and their
+``.NAME.fusion-partial-*`` folders are never visible as runs. The cases and their
 outcomes are tabulated in DEVELOPERS.md ("Bad input: cases tried").
 """
 
@@ -25,7 +25,7 @@ import numpy as np
 import pytest
 
 from fusion.cli import main
-from fusion.io import read_netcdf
+from fusion.io import parse_temp_name, read_netcdf, this_host
 from fusion.campaign import LOCK_NAME, campaign_lock
 from fusion.report import validate_summary
 
@@ -123,8 +123,7 @@ def assert_clean(out: Path, done=(), absent=()):
         whole_run(out / name)
     for name in absent:
         assert not (out / name).exists(), name
-    leftovers = [p.name for p in out.iterdir() if ".partial-" in p.name or ".trash-" in p.name
-                 or p.name.endswith(".tmp")]
+    leftovers = [p.name for p in out.iterdir() if parse_temp_name(p.name)]
     assert not leftovers, leftovers
 
 
@@ -300,22 +299,33 @@ def test_interrupt_while_computing_leaves_no_folder(demo, tmp_path, capsys, monk
     assert_clean(tmp_path / "out", absent=("CQ-0p05Hz",))
 
 
+def _dead_pid():
+    proc = subprocess.Popen([sys.executable, "-c", "pass"])
+    proc.wait()
+    return proc.pid
+
+
 def test_leftovers_of_an_interrupted_batch_are_removed(demo, tmp_path, capsys):
+    # fusion's own temporary entries of a process that is gone are removed; look-alikes of
+    # other programs (and of older versions) are someone else's and stay
     out = tmp_path / "out"
     outside = tmp_path / "outside"
     outside.mkdir()
     (outside / "keep.txt").write_text("mine")
-    (out / "figures").mkdir(parents=True)
-    (out / ".CQ-0p05Hz.partial-abc").mkdir()
-    (out / ".CQ-0p05Hz.partial-abc" / "result.nc").write_bytes(b"half")
-    (out / ".report.html.k2j3.tmp").write_text("<html>half")
-    (out / "figures" / ".frequency_CQ.png.x9.tmp").write_bytes(b"\x89PNG")
-    (out / ".CQ-150Hz.partial-lnk").symlink_to(outside, target_is_directory=True)
+    out.mkdir()
+    tag = f"{this_host()}-{_dead_pid()}-0123abcd"
+    (out / f".CQ-0p05Hz.fusion-partial-{tag}").mkdir()
+    (out / f".CQ-0p05Hz.fusion-partial-{tag}" / "result.nc").write_bytes(b"half")
+    (out / f".report.html.fusion-tmp-{tag}").write_text("<html>half")
+    (out / f".CQ-150Hz.fusion-partial-{tag}").symlink_to(outside, target_is_directory=True)
+    foreign = [".CQ-0p05Hz.partial-abc", ".report.html.k2j3.tmp", ".CQ-150Hz.trash-12"]
+    for name in foreign:
+        (out / name).write_text("not fusion's")
     cfg = campaign(demo, tmp_path / "in", ("CQ-0p05Hz",))
     code, _, _ = fusion_run(capsys, cfg, out)
     assert code == 0
     assert_clean(out, done=("CQ-0p05Hz",))
-    assert not list((out / "figures").glob(".*.tmp"))
+    assert all((out / name).read_text() == "not fusion's" for name in foreign)
     assert (outside / "keep.txt").read_text() == "mine"    # a planted link is never followed
 
 
@@ -343,7 +353,7 @@ def test_run_folder_linked_inside_is_refused(demo, tmp_path, capsys):
     cfg = campaign(demo, tmp_path / "in", ("CQ-0p05Hz",))
     code, stdout, _ = fusion_run(capsys, cfg, out)
     assert code == 1
-    assert "is not a result folder" in failed_line(stdout, "CQ-0p05Hz")
+    assert "is a symbolic link" in failed_line(stdout, "CQ-0p05Hz")
     assert not list((out / "elsewhere").iterdir())
 
 
@@ -448,7 +458,7 @@ def _visible_state_is_whole(out: Path):
     """After a kill: every visible run folder whole, campaign files whole or absent."""
     for p in out.iterdir():
         if p.name.startswith("."):
-            continue                      # hidden partials: invisible as runs, removed next time
+            continue                      # hidden temporary entries: invisible as runs, handled next time
         if p.is_dir():
             whole_run(p)
         elif p.name == "frequency.nc":

@@ -430,10 +430,13 @@ def test_reference_pass_is_the_numpy_sum(rng):
     assert np.array_equal(reference_pass(b, frame_chunks=True), b.sum(axis=0, dtype=np.int64))
 
 
-def test_progress_is_silent_off_a_terminal(rng, capsys):
+def test_progress_off_a_terminal_is_plain_lines_and_off_is_silent(rng, capsys):
     # not a physics check: progress output
     frames = forward(np.arange(64) / 40.0, (4, 4), rng, f=6.0, phi=0.0)
     lockin(frames, frame_rate=40.0, frequency=6.0, progress=True)
+    lines = capsys.readouterr().err.splitlines()
+    assert lines and lines[-1] == "lock-in: 100 % (64/64 frames)" and "\r" not in "".join(lines)
+    lockin(frames, frame_rate=40.0, frequency=6.0)
     assert capsys.readouterr().err == ""
 
 

@@ -73,10 +73,12 @@ OTHER_MODULES = {
     "test_import_graph.py": "the import structure of the package",
     "test_report_resolution.py": "resolution attributes through result.nc, summary.json and the report",
     "test_campaign_products.py": "frequency.nc, the band sentences and the report of a small campaign",
+    "test_ownership.py": "what in an output folder is fusion's: publishing, recovery, refusals",
+    "test_progress.py": "the progress display",
+    "test_quoting.py": "file content quoted in messages",
     "test_api_rebuild.py": "the Python API's steps against the command line's result.nc (two code paths)",
     "test_api_door.py": "error text of the plausibility checks at the Python API's door",
     "test_docs.py": "the API reference, docstring references, README example and package data",
-    "test_demo_foreign_folder.py": "demo.generate on a folder it did not make: file ownership",
 }
 
 LIBRARIES = r"numpy|scipy|scikit-image|skimage|opencv|cv2"

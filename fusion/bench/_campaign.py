@@ -82,10 +82,8 @@ def bench_campaign(*, quick: bool = False, repeats: int | None = None) -> dict:
 
     Notes
     -----
-    Worker processes are forked from a fork server that imports what a run needs
-    while the campaign process validates the config (:mod:`fusion.campaign._workers`); that
-    start-up (about 2.5 s on the 2-core development machine) is still as long as two
-    demo-sized runs (about a second each, figures included), so the speed-up grows
+    Worker processes are spawned and import what a run needs before their first run;
+    with demo-sized runs that start-up is as long as a few runs, so the speed-up grows
     with the size of the runs. Sequential runs use both cores inside their numba
     kernels, which caps what two workers can gain on two cores.
     """

@@ -57,7 +57,7 @@ def bench_dic(*, quick=False, repeats=3):
     import cv2
     import numba
 
-    from ..dic import _icgn as K
+    from ..dic import _icgn
     from ..dic import correlate, speckle_image
 
     n = 256 if quick else 1024
@@ -72,8 +72,8 @@ def bench_dic(*, quick=False, repeats=3):
 
     # refinement alone: the kernel on every grid point from integer starts
     half = subset // 2
-    coef = K.prefilter(dfm)
-    gx, gy = K.reference_gradients(K.prefilter(ref))
+    coef = _icgn.prefilter(dfm)
+    gx, gy = _icgn.reference_gradients(_icgn.prefilter(ref))
     refd = ref.astype(np.float64)
     grid = np.arange(half + 2, n - half - 4, step)
     rows, cols = (a.ravel().astype(np.int64) for a in np.meshgrid(grid, grid, indexing="ij"))
@@ -82,7 +82,7 @@ def bench_dic(*, quick=False, repeats=3):
     mask = np.ones(ref.shape, dtype=bool)
 
     def refine():
-        return K.icgn_batch(refd, gx, gy, coef, mask, rows, cols, p0, half, 50, 1e-4, 0.8, 0.6)
+        return _icgn.icgn_batch(refd, gx, gy, coef, mask, rows, cols, p0, half, 50, 1e-4, 0.8, 0.6)
 
     t_refine, _ = _best(refine, repeats)
     t_seeded, res = _best(lambda: correlate(ref, dfm, subset=subset, step=step,

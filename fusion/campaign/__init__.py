@@ -19,13 +19,17 @@ run_stamp
     The hash of everything that determines a run's result.
 campaign_lock, LOCK_NAME
     The exclusive lock of an output folder.
+mark_folder, is_marked_folder, publish, recover, foreign_message
+    What in a folder is fusion's: the marker of a folder it made, publishing such a
+    folder in place of fusion's old one, putting back what a crash left, and the
+    sentence that refuses anything else.
 """
 
 from ._campaign import check_campaign, run_campaign
-from ._folders import LOCK_NAME, campaign_lock
+from ._folders import LOCK_NAME, campaign_lock, foreign_message, is_marked_folder, mark_folder, publish, recover
 from ._outcome import CampaignOutcome, RunOutcome
 from ._process import process_run
 from ._provenance import run_stamp
 
-__all__ = ["CampaignOutcome", "LOCK_NAME", "RunOutcome", "campaign_lock", "check_campaign", "process_run",
-           "run_campaign", "run_stamp"]
+__all__ = ["CampaignOutcome", "LOCK_NAME", "RunOutcome", "campaign_lock", "check_campaign", "foreign_message",
+           "is_marked_folder", "mark_folder", "process_run", "publish", "recover", "run_campaign", "run_stamp"]

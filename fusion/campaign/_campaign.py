@@ -1,12 +1,12 @@
 """The campaign pipeline: every ``[[run]]`` of a config through every step, safely.
 
-:func:`run_campaign` processes the runs of a config (one task per run, locally
-or on a Dask scheduler), writes each run's folder atomically (a run's folder
-appears complete or not at all), skips runs whose inputs and config are
-unchanged, keeps going when a run fails, and then writes the campaign
-products: ``frequency.nc`` for specimens tested at two or more frequencies and
-``report.html``. :func:`check_campaign` validates a config and its inputs
-without processing.
+:func:`run_campaign` validates the config, then processes its runs (one task per
+run, on local worker processes or a Dask cluster), publishes each run's folder
+whole (a run's folder appears complete or not at all), skips runs whose inputs
+and settings are unchanged, keeps going when a run fails, and then rebuilds the
+campaign products from every complete run folder: ``frequency.nc`` for specimens
+tested at two or more frequencies, the campaign figures and ``report.html``.
+:func:`check_campaign` validates a config and its inputs without processing.
 """
 
 from __future__ import annotations
@@ -19,8 +19,8 @@ from ..run import check_run_inputs
 from ._folders import campaign_lock, check_campaign_targets
 from ._outcome import CampaignOutcome
 from ._products import write_campaign
+from ._provenance import DigestCache
 from ._schedule import schedule_runs
-from ._workers import prestart
 
 __all__ = ["run_campaign", "check_campaign"]
 
@@ -55,25 +55,38 @@ def run_campaign(config_path, *, out=None, overwrite: bool = False, only=None, s
         local processes for more.
     workers : int, optional
         Runs processed at once (default ``[compute] workers``, else the number of cores).
+    progress : bool
+        A campaign bar (and step bars) on a terminal, else a log line per finished run.
 
     Returns
     -------
     CampaignOutcome
         Per-run outcomes and the campaign files written.
     """
-    prestart(config_path, workers=workers, scheduler=scheduler, only=only)   # no-op when started
-    cfg = load_config(config_path)
+    if workers is not None and (isinstance(workers, bool) or not isinstance(workers, int) or workers < 1):
+        raise ConfigError("--workers", f"expected a whole number of at least 1, got {workers!r}")
+    cfg = load_config(config_path)      # validated before anything starts
     out = Path(cfg.output_folder(out))
     runs = _select(cfg, only)
     with campaign_lock(out):
+        digests = DigestCache.load(out)
         outcomes = schedule_runs(cfg, runs, out, overwrite=overwrite, scheduler=scheduler or cfg.compute.scheduler,
-                                 workers=workers or cfg.compute.workers, progress=progress)
+                                 workers=workers or cfg.compute.workers, progress=progress, digests=digests)
         result = CampaignOutcome(out=out, runs=outcomes)
         try:
             check_campaign_targets(out)
-            result.frequency, result.report, result.bands = write_campaign(cfg, out, outcomes, overwrite=True)
+            result.frequency, result.report, result.bands = write_campaign(cfg, out, outcomes,
+                                                                           digests=digests)
         except FusionError as e:
             result.campaign_errors.append(str(e))
+        except OSError as e:
+            # disk full, the file-size limit, a share gone: the file being written is left as it was
+            where = e.filename or out
+            result.campaign_errors.append(f"{where}: {e.strerror or e} (that file left as it was)")
+        try:
+            digests.save(out)
+        except OSError as e:
+            result.campaign_errors.append(f"{out}: cannot keep the input digests ({e.strerror or e})")
     return result
 
 

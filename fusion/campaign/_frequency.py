@@ -14,7 +14,6 @@ from pathlib import Path
 import numpy as np
 
 from .. import __version__
-from ..io import atomic_path
 from ..io._netcdf import _clean_attrs
 from ..mechanics import FIT_PARAMETERS, sweep_dataset
 from ..report import band_sentence
@@ -22,26 +21,27 @@ from ..report import band_sentence
 __all__ = ["write_frequency", "band_info", "band_label", "band_pair"]
 
 
-def write_frequency(fits: dict, path: Path, *, overwrite=True) -> Path:
+def write_frequency(fits: dict, path: Path) -> Path:
     """frequency.nc: a flat summary of every specimen's sweep in the root group (opens with
     plain ``xarray.open_dataset``), and one NetCDF group per specimen with the full sweep fit
-    and, where the runs share the infrared grid, the per-pixel maps; written atomically."""
-    with atomic_path(path, overwrite=overwrite) as tmp:
-        root = _flat_summary(fits)
-        root.to_netcdf(tmp, engine="netcdf4", mode="w")
-        for spec, f in fits.items():
-            ds = sweep_dataset(f["fit"])
-            ds.attrs.update(specimen=spec, runs=" ".join(f["runs"]), laminate=f["laminate"].name,
-                            band_text=band_sentence(band_info(f), frequencies=f["frequencies"]))
-            for name, arr in (f["maps"] or {}).items():
-                a = np.asarray(arr)
-                if a.ndim != 2:
-                    continue
-                units = "m" if "thickness" in name else "Hz" if "frequency" in name else "1"
-                ds[f"map_{name}"] = (("y", "x"), a.astype(np.float32),
-                                     {"units": units, "long_name": f"per-pixel sweep fit: {name.replace('_', ' ')}"})
-            _clean(ds)
-            ds.to_netcdf(tmp, engine="netcdf4", mode="a", group=_group_name(spec))
+    and, where the runs share the infrared grid, the per-pixel maps. Written at ``path`` as it
+    is: the caller publishes it (:func:`fusion.campaign._folders.product_path`)."""
+    tmp = Path(path)
+    root = _flat_summary(fits)
+    root.to_netcdf(tmp, engine="netcdf4", mode="w")
+    for spec, f in fits.items():
+        ds = sweep_dataset(f["fit"])
+        ds.attrs.update(specimen=spec, runs=" ".join(f["runs"]), laminate=f["laminate"].name,
+                        band_text=band_sentence(band_info(f), frequencies=f["frequencies"]))
+        for name, arr in (f["maps"] or {}).items():
+            a = np.asarray(arr)
+            if a.ndim != 2:
+                continue
+            units = "m" if "thickness" in name else "Hz" if "frequency" in name else "1"
+            ds[f"map_{name}"] = (("y", "x"), a.astype(np.float32),
+                                 {"units": units, "long_name": f"per-pixel sweep fit: {name.replace('_', ' ')}"})
+        _clean(ds)
+        ds.to_netcdf(tmp, engine="netcdf4", mode="a", group=_group_name(spec))
     return path
 
 

@@ -10,7 +10,11 @@ __all__ = ["RunOutcome", "CampaignOutcome"]
 
 @dataclasses.dataclass
 class RunOutcome:
-    """What became of one run: ``status`` is "done", "skipped" or "failed"."""
+    """What became of one run: ``status`` is "done", "skipped" or "failed".
+
+    ``digests`` holds the input digests the run's process computed (for the output
+    folder's digest cache, kept by the campaign process).
+    """
 
     name: str
     status: str
@@ -18,6 +22,7 @@ class RunOutcome:
     error: str | None = None
     seconds: float = 0.0
     summary: dict | None = None
+    digests: dict | None = None
 
 
 @dataclasses.dataclass

@@ -1,4 +1,4 @@
-"""What the fork server of the local workers loads before it forks any (see :mod:`fusion.campaign._workers`).
+"""What the fork server of the local workers loads before it forks any (see :mod:`fusion.campaign._schedule`).
 
 Imported by that server only: the libraries and fusion modules a run imports,
 the unit registry, and one tiny figure drawn off screen so that the font cache

@@ -3,19 +3,17 @@
 from __future__ import annotations
 
 import logging
-import os
 import shutil
-import tempfile
 import time
 from pathlib import Path
 
 from ..config import Config, load_config
 from ..errors import ConfigError, FusionError, InputError
-from ..io import safe_child
+from ..io import make_temp_folder, safe_child
 from ..run import compute_run, write_run
-from ._folders import publish
+from ._folders import is_marked_folder, mark_folder, publish, refuse_foreign
 from ._outcome import RunOutcome
-from ._provenance import read_stamp, read_summary, run_stamp
+from ._provenance import DigestCache, read_stamp, read_summary, run_stamp
 
 log = logging.getLogger(__name__)
 
@@ -36,29 +34,29 @@ def process_run(config_path, run_name: str, out, *, overwrite: bool = False,
             raise ConfigError("run", f"no run named {run_name!r}")
         out = Path(out)
         folder = safe_child(out, run.name)
-        stamp = run_stamp(cfg, run)
-        if folder.exists() or folder.is_symlink():
-            if folder.is_symlink() or not folder.is_dir():
-                raise InputError(folder, "exists and is not a result folder; remove it or choose another --out")
-            if not overwrite:
-                if read_stamp(folder) == stamp:
-                    return RunOutcome(run.name, "skipped", folder, seconds=time.perf_counter() - t0,
-                                      summary=read_summary(folder))
-                raise InputError(folder, "holds a result made from other inputs or settings; pass "
-                                 "--overwrite to replace it")
-        tmp = Path(tempfile.mkdtemp(prefix=f".{run.name}.partial-", dir=out))
-        # mkdtemp makes the folder private (0700); a published result follows the umask
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o777 & ~umask)
+        ours = is_marked_folder(folder, run.name)
+        if not ours:
+            refuse_foreign(folder, run.name)   # nothing there, or someone else's: never replaced
+        digests = DigestCache.load(out)        # the campaign process keeps it; read only here
+        stamp = run_stamp(cfg, run, digests=digests)
+        if ours and not overwrite:
+            if read_stamp(folder) == stamp:
+                return RunOutcome(run.name, "skipped", folder, seconds=time.perf_counter() - t0,
+                                  summary=read_summary(folder), digests=digests.new)
+            raise InputError(folder, "holds a result made from other inputs or settings; pass "
+                             "--overwrite to replace it")
+        tmp = make_temp_folder(out, run.name, "partial")
         try:
             result = compute_run(cfg, run, progress=progress)
             summary = write_run(result, tmp, cfg=cfg, run=run, stamp=stamp)
-            publish(tmp, folder)
+            digests.check_unchanged()          # the stamp names what was read
+            mark_folder(tmp, run.name)         # last: a marked folder is a complete one
+            publish(tmp, folder, run.name)
         except BaseException:
             shutil.rmtree(tmp, ignore_errors=True)
             raise
-        return RunOutcome(run.name, "done", folder, seconds=time.perf_counter() - t0, summary=summary)
+        return RunOutcome(run.name, "done", folder, seconds=time.perf_counter() - t0, summary=summary,
+                          digests=digests.new)
     except FusionError as e:
         log.info("run %s failed: %s", run_name, e)
         return RunOutcome(run_name, "failed", error=str(e), seconds=time.perf_counter() - t0)

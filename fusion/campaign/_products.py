@@ -1,23 +1,34 @@
-"""Campaign products: the frequency-sweep fit (frequency.nc) and the report (report.html)."""
+"""Campaign products: the frequency-sweep fit (frequency.nc), the campaign figures and the report.
+
+They are rebuilt from every complete run folder of the campaign on disk (the
+config's runs, whatever ``--only`` selected), never from the runs of one
+invocation alone; a run whose folder holds a result made from other inputs than
+the config names now is shown with a warning. When no run of the campaign has a
+complete folder, the products are left as they are.
+"""
 
 from __future__ import annotations
 
 import datetime as _dt
 import logging
+import shutil
 from pathlib import Path
 
 import numpy as np
 
 from .. import __version__
 from ..errors import FusionError
-from ..io import read_netcdf
+from ..io import make_temp_folder, read_netcdf
 from ..mechanics import fit_sweep, fit_sweep_maps, source_coefficients
 from ..report import band_sentence, campaign_figures, write_report
+from ._folders import is_marked_folder, mark_folder, product_path, publish, refuse_foreign, remove_product
 from ._frequency import band_info, band_label, band_pair, write_frequency
+from ._outcome import RunOutcome
+from ._provenance import read_stamp, read_summary, run_stamp
 
 log = logging.getLogger(__name__)
 
-__all__ = ["write_campaign", "sweep_points"]
+__all__ = ["write_campaign", "sweep_points", "runs_on_disk"]
 
 
 def _load(folder: Path):
@@ -137,12 +148,47 @@ def _fit_specimen(cfg, spec, items, datasets):
             "runs": [run.name for run, _ in items]}
 
 
-def write_campaign(cfg, out: Path, outcomes, *, overwrite=True):
-    """Write frequency.nc (when a specimen has a sweep) and report.html.
+def runs_on_disk(cfg, out: Path, outcomes, digests=None):
+    """The runs of the config with a complete folder of fusion's in ``out``, as outcomes.
 
-    Returns the paths of frequency.nc and report.html (None when not written) and one
-    sentence per specimen on its recommended loading-frequency band (for the terminal).
+    Runs processed now keep their outcome; the others are read from their folder. A
+    folder whose stamp differs from the run's present one gets a warning in its
+    summary's ``warnings``. Returns (outcomes in config order, failures of this call).
     """
+    now = {o.name: o for o in outcomes}
+    found, failures = [], []
+    for run in cfg.runs:
+        o = now.get(run.name)
+        if o is not None and o.status == "failed":
+            failures.append({"run": run.name, "error": o.error})
+        folder = Path(out) / run.name
+        if not is_marked_folder(folder, run.name) or not (folder / "result.nc").is_file():
+            continue
+        summary = read_summary(folder)
+        if summary is None:
+            continue
+        current = o is not None and o.status in ("done", "skipped")    # stamped by this call
+        if not current and read_stamp(folder) != run_stamp(cfg, run, digests=digests):
+            summary = dict(summary)
+            summary["warnings"] = list(summary.get("warnings") or []) + [
+                "this result was made from other inputs or settings than the config names now; "
+                "rerun with --overwrite to update it"]
+        found.append(RunOutcome(run.name, "done", folder, summary=summary))
+    return found, failures
+
+
+def write_campaign(cfg, out: Path, outcomes, *, digests=None):
+    """Rebuild frequency.nc, the campaign figures and report.html from the run folders on disk.
+
+    Returns the paths of frequency.nc and report.html (None for what was not written) and one
+    sentence per specimen on its recommended loading-frequency band (for the terminal).
+    Leaves every product as it is when no run of the campaign has a complete folder.
+    """
+    out = Path(out)
+    outcomes, failures = runs_on_disk(cfg, out, outcomes, digests)
+    if not outcomes:
+        log.warning("no run of the campaign has a complete result folder: campaign files left as they are")
+        return None, None, []
     fits = {}
     loaded = _results(outcomes)
     for spec, (items, datasets) in _sweeps(cfg, outcomes, loaded).items():
@@ -152,14 +198,16 @@ def write_campaign(cfg, out: Path, outcomes, *, overwrite=True):
             log.warning("specimen %s: sweep fit failed (%s)", spec, e)
     freq_path = None
     if fits:
-        freq_path = write_frequency(fits, out / "frequency.nc", overwrite=overwrite)
+        with product_path(out, "frequency.nc") as tmp:
+            write_frequency(fits, tmp)
+        freq_path = out / "frequency.nc"
+    else:
+        remove_product(out, "frequency.nc")      # an old sweep fit no run supports any more
     report_path = None
     if cfg.output.report:
         runs, figures = [], {}
         results = {}
         for o in outcomes:
-            if o.status == "failed" or o.folder is None:
-                continue
             summary = o.summary or {}
             figs = {k: o.folder / v for k, v in (summary.get("figures") or {}).items()}
             runs.append({"summary": summary, "figures": figs, "regions": summary.get("regions", []),
@@ -167,22 +215,37 @@ def write_campaign(cfg, out: Path, outcomes, *, overwrite=True):
             ds = loaded.get(o.name)
             if ds is not None and not isinstance(ds, Exception):
                 results[o.name] = ds
-        fig_dir = out / "figures"
         if cfg.output.figures:
             specimens = {sp: _specimen_figure_input(f) for sp, f in fits.items()}
             if specimens or results:
-                figures.update(campaign_figures(specimens, fig_dir, dpi=150, datasets=results or None,
-                                                  overwrite=True))
-        failures = [{"run": o.name, "error": o.error} for o in outcomes if o.status == "failed"]
+                figures.update(_write_figures(out, specimens, results))
         campaign = {"name": cfg.campaign.name, "description": cfg.campaign.description,
                     "operator": cfg.campaign.operator, "config_sha256": cfg.sha256, "version": __version__,
                     "date": _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
                     "config_text": cfg.text, "config_path": str(cfg.path) if cfg.path else None,
                     "sweeps": {sp: _sweep_summary(f) for sp, f in fits.items()}}
-        report_path = write_report(out / "report.html", campaign=campaign, runs=runs,
-                                     campaign_figures=figures, failures=failures, overwrite=True)
+        with product_path(out, "report.html") as tmp:
+            write_report(tmp, campaign=campaign, runs=runs, campaign_figures=figures, failures=failures,
+                         overwrite=True)
+        report_path = out / "report.html"
     bands = [band_sentence(band_info(f), frequencies=f["frequencies"], specimen=sp) for sp, f in fits.items()]
     return freq_path, report_path, bands
+
+
+def _write_figures(out: Path, specimens, results) -> dict:
+    """The campaign figures, made in a temporary folder and published as ``out/figures``."""
+    target = out / "figures"
+    if not is_marked_folder(target, "figures"):
+        refuse_foreign(target, "figures")
+    tmp = make_temp_folder(out, "figures", "partial")
+    try:
+        made = campaign_figures(specimens, tmp, dpi=150, datasets=results or None, overwrite=True)
+        mark_folder(tmp, "figures")
+        publish(tmp, target, "figures")
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    return {k: target / Path(v).name for k, v in made.items()}
 
 
 def _specimen_figure_input(f):

@@ -1,4 +1,4 @@
-"""One task per run: in-process, on local Dask workers, or on a dask.distributed cluster.
+"""One task per run: in this process, on local worker processes, or on a dask.distributed cluster.
 
 Each task is :func:`fusion.campaign.process_run` with plain arguments (config path,
 run name, output folder), so it pickles to any worker; the worker reads the
@@ -13,44 +13,50 @@ How many runs at once
 and by memory: ``min(workers, runs, max(1, available // (memory_budget +
 WORKER_BASELINE)))``, where ``available`` is the memory the operating system
 reports as available and ``WORKER_BASELINE`` what a worker holds besides its frame
-chunks. With more than one, Dask's local scheduler feeds that many worker processes
-(forked from a fork server that has the run's modules loaded already, on Linux; see
-:mod:`fusion.campaign._workers`), each run's numba and OpenCV kernels on
-``max(1, cores // workers)`` threads so that workers do not fight over cores.
-Worker processes exit when the campaign process dies; when one dies, the runs in
-flight fail and the others go on. The ``threads`` kind runs one run at a time: the
-netCDF/HDF5 library and numba's default thread pool are not safe for two runs in
-one process. A dask.distributed cluster sets its
-own concurrency (threads per worker); its memory limits are only checked.
+chunks. With more than one, a :class:`concurrent.futures.ProcessPoolExecutor` of
+that many worker processes takes the runs, one at a time each, with each run's
+numba and OpenCV kernels on ``max(1, cores // workers)`` threads so that workers do
+not fight over cores. On Linux the workers are forked from a fork server
+(:mod:`multiprocessing`'s ``forkserver``) that has imported what a run needs
+(:mod:`fusion.campaign._preload`), so that each worker does not import it again;
+elsewhere they are spawned. Either way no worker is a plain fork of this process,
+whose threads and open files are not fork-safe. Worker processes exit when the campaign process
+dies; when one dies, the runs in flight fail and the others go on in new worker
+processes. The ``threads`` kind runs one run at a time: the netCDF/HDF5 library
+and numba's default thread pool are not safe for two runs in one process. A
+dask.distributed cluster (a ``tcp://`` address) sets its own concurrency (threads
+per worker); its memory limits are only checked.
 
 Progress
 --------
-With ``progress=True`` and a terminal on stderr, one campaign bar is drawn and
-redrawn as runs finish (a line per finished run is printed above it); runs
-processed one after the other also draw the bars of their long steps (the
-lock-in). Otherwise each run gives exactly one log line when it finishes.
+With ``progress=True`` a campaign bar on a terminal (a line per finished run
+printed above it; runs processed one after the other also show the bars of their
+long steps), else one log line per finished run (:class:`fusion._progress.Progress`).
 """
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import logging
 import math
+import multiprocessing
 import os
 import re
 import sys
 import threading
-import time
 import uuid
+from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from concurrent.futures.process import BrokenProcessPool
 from pathlib import Path
 
+from .._progress import Progress
 from ..errors import ConfigError, FusionError, InputError
 from ..io import safe_child
-from ._folders import LOCK_NAME
+from ._folders import LOCK_NAME, is_marked_folder
 from ._outcome import RunOutcome
 from ._process import process_run
 from ._provenance import read_stamp, read_summary, run_stamp
-from ._workers import context, watch_campaign_process
 
 log = logging.getLogger(__name__)
 
@@ -131,69 +137,6 @@ def _size(b) -> str:
 
 
 # --------------------------------------------------------------------------- progress
-class _CampaignBar:
-    """A one-line campaign bar on stderr that lets whole lines be printed above it."""
-
-    def __init__(self, total, enabled, stream=None):
-        self.stream = stream if stream is not None else sys.stderr
-        self.enabled = bool(enabled) and hasattr(self.stream, "isatty") and self.stream.isatty()
-        self.total, self.done, self.failed = total, 0, 0
-        self.t0 = time.perf_counter()
-        self._lock = threading.Lock()
-        self._shown = False
-
-    def _line(self):
-        width = 24
-        fill = int(width * self.done / max(self.total, 1))
-        failed = f", {self.failed} failed" if self.failed else ""
-        return (f"campaign [{'#' * fill}{'.' * (width - fill)}] {self.done}/{self.total} runs{failed}, "
-                f"{time.perf_counter() - self.t0:.0f} s")
-
-    def draw(self):
-        if self.enabled:
-            with self._lock:
-                self.stream.write("\r" + self._line() + "\x1b[K")
-                self.stream.flush()
-                self._shown = True
-
-    def clear(self):
-        """Erase the bar (a line is about to be printed in its place)."""
-        if self.enabled and self._shown:
-            with self._lock:
-                self.stream.write("\r\x1b[K")
-                self.stream.flush()
-                self._shown = False
-
-    def freeze(self):
-        """Leave the bar as it is and move below it, where a step draws its own bar."""
-        if not self._shown:
-            self.draw()
-        if self.enabled:
-            with self._lock:
-                self.stream.write("\n")
-                self.stream.flush()
-                self._shown = False
-
-    def note(self, text):
-        """Print ``text`` as a line above the bar."""
-        self.clear()
-        if self.enabled:
-            with self._lock:
-                self.stream.write(text + "\n")
-        self.draw()
-
-    def advance(self, outcome):
-        self.done += 1
-        self.failed += outcome.status == "failed"
-
-    def close(self):
-        if self.enabled and self._shown:
-            with self._lock:
-                self.stream.write("\n")
-                self.stream.flush()
-                self._shown = False
-
-
 def _describe(o, i, n):
     if o.status == "failed":
         return f"[{i}/{n}] {o.name} failed: {o.error}"
@@ -209,20 +152,27 @@ class _Report:
         self.names = list(names)
         self.index = {name: i for i, name in enumerate(self.names)}
         self.outcomes = [None] * len(self.names)
-        self.bar = _CampaignBar(len(self.names), progress)
-        self.count = 0
+        self.bar = Progress(len(self.names), desc="campaign", unit="runs", enabled=progress, leave=True,
+                            lines=False)
+        self.count = self.failed = 0
+        self._lock = threading.Lock()
 
     def add(self, outcome):
-        i = self.index[outcome.name]
-        if self.outcomes[i] is not None:
-            return
-        self.outcomes[i] = outcome
-        self.count += 1
-        self.bar.advance(outcome)
-        text = _describe(outcome, self.count, len(self.names))
-        if self.bar.enabled:
+        with self._lock:
+            i = self.index[outcome.name]
+            if self.outcomes[i] is not None:
+                return
+            self.outcomes[i] = outcome
+            self.count += 1
+            self.failed += outcome.status == "failed"
+            count = self.count
+        text = _describe(outcome, count, len(self.names))
+        if self.bar.is_bar:
             log.debug("%s", text)
             self.bar.note(text)
+            if self.failed:
+                self.bar.postfix(f"{self.failed} failed")
+            self.bar.update()
         elif outcome.status == "failed":
             log.warning("%s", text)
         else:
@@ -260,21 +210,33 @@ def _distributed_threads():
         return None
 
 
+def _wait_for_campaign_process():
+    parent = multiprocessing.parent_process()
+    if parent is not None:
+        parent.join()   # returns when the campaign process is gone (its sentinel closes)
+        os._exit(1)
+
+
 def _worker_init():
-    watch_campaign_process()
+    """In a worker: exit as soon as the campaign process is gone (killed with SIGKILL, say).
+
+    A worker orphaned by ``kill -9`` would otherwise go on computing a run that no one
+    waits for, and race the next ``fusion run`` on the same output folder.
+    """
+    threading.Thread(target=_wait_for_campaign_process, daemon=True, name="fusion-parent-watch").start()
 
 
-def _already_done(cfg, run, out):
-    """The outcome "skipped" when the run's folder holds a result with the same stamp, else None.
+def _already_done(cfg, run, out, digests):
+    """The outcome "skipped" when the run's folder holds fusion's result with the same stamp, else None.
 
     Checked here so that a resumed batch sends no task (and starts no worker) for a
     finished run; :func:`fusion.campaign.process_run` makes the same check again.
     """
     try:
         folder = safe_child(Path(out), run.name)
-        if folder.is_symlink() or not folder.is_dir() or not (folder / "result.nc").is_file():
+        if not is_marked_folder(folder, run.name) or not (folder / "result.nc").is_file():
             return None
-        if read_stamp(folder) != run_stamp(cfg, run):
+        if read_stamp(folder) != run_stamp(cfg, run, digests=digests):
             return None
     except (FusionError, OSError):
         return None  # the task reports the problem with the run
@@ -282,7 +244,8 @@ def _already_done(cfg, run, out):
 
 
 # --------------------------------------------------------------------------- entry
-def schedule_runs(cfg, runs, out, *, overwrite=False, scheduler=None, workers=None, progress=False):
+def schedule_runs(cfg, runs, out, *, overwrite=False, scheduler=None, workers=None, progress=False,
+                  digests=None):
     """Process ``runs`` and return their :class:`~fusion.campaign.RunOutcome` in config order.
 
     Parameters
@@ -306,6 +269,9 @@ def schedule_runs(cfg, runs, out, *, overwrite=False, scheduler=None, workers=No
         :func:`plan_workers`).
     progress : bool
         Campaign bar and step bars on a terminal (see the module notes).
+    digests : DigestCache, optional
+        Input digests of the output folder (saved there before any task starts, so that
+        the workers find them).
 
     Returns
     -------
@@ -327,17 +293,26 @@ def schedule_runs(cfg, runs, out, *, overwrite=False, scheduler=None, workers=No
     report = _Report([r.name for r in runs], progress)
     todo = []
     for run in runs:
-        done = None if overwrite else _already_done(cfg, run, out)
+        done = None if overwrite else _already_done(cfg, run, out, digests)
         if done is not None:
             report.add(done)
         else:
             todo.append(run)
+    if digests is not None:
+        try:
+            digests.save(out)
+        except OSError as e:      # only a cache: the workers hash their inputs themselves
+            log.warning("cannot keep the input digests in %s (%s)", out, e.strerror or e)
     try:
         if todo:
             _dispatch(cfg, todo, Path(out), report, overwrite=overwrite, scheduler=scheduler,
                       workers=workers, progress=progress)
     finally:
         report.bar.close()
+        if digests is not None:
+            for o in report.outcomes:
+                if o is not None:
+                    digests.merge(o.digests)
     return report.outcomes
 
 
@@ -362,7 +337,6 @@ def _dispatch(cfg, todo, out, report, *, overwrite, scheduler, workers, progress
 def _sequential(cfg, todo, out, report, *, overwrite, progress):
     for run in todo:
         log.debug("%s ...", run.name)
-        report.bar.freeze()  # the run's step bars (lock-in) draw on the next line
         o = process_run(cfg.path, run.name, out, overwrite=overwrite, progress=progress, config=cfg)
         report.add(o)
 
@@ -383,68 +357,113 @@ def _preload_products():
             log.debug("preloading %s failed", name, exc_info=True)
 
 
-def _process_pool(n):
-    from concurrent.futures import ProcessPoolExecutor
+#: Native thread pools limited to one thread in the worker processes (their numba and OpenCV
+#: threads are set per run): two workers on two cores must not start four BLAS threads.
+_THREAD_ENV = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "BLIS_NUM_THREADS",
+               "NUMEXPR_NUM_THREADS", "VECLIB_MAXIMUM_THREADS")
 
-    # never a plain fork of this process: its numba thread pool and open files are not
-    # fork-safe; workers come from the preloaded fork server (Linux) or are spawned
-    return ProcessPoolExecutor(n, mp_context=context(), initializer=_worker_init)
+
+@contextlib.contextmanager
+def _one_native_thread():
+    """While the pool lives: workers (and the fork server) start with one thread per native pool
+    (they inherit the environment when started); this process's own is restored afterwards."""
+    saved = {k: os.environ.get(k) for k in _THREAD_ENV}
+    try:
+        for k in _THREAD_ENV:
+            os.environ[k] = "1"
+        yield
+    finally:
+        for k, v in saved.items():
+            if v is None:
+                os.environ.pop(k, None)
+            else:
+                os.environ[k] = v
+
+
+#: The module the fork server of the local workers imports before it forks any.
+PRELOAD_MODULE = "fusion.campaign._preload"
+
+
+def _context():
+    """Linux: the fork server with the run's modules preloaded (started with the first worker,
+    inside :func:`_one_native_thread`); elsewhere spawn."""
+    if sys.platform.startswith("linux") and "forkserver" in multiprocessing.get_all_start_methods():
+        ctx = multiprocessing.get_context("forkserver")
+        ctx.set_forkserver_preload([PRELOAD_MODULE])
+        return ctx
+    return multiprocessing.get_context("spawn")
+
+
+def _process_pool(n):
+    return ProcessPoolExecutor(n, mp_context=_context(), initializer=_worker_init)
+
+
+_DIED = ("a worker process died while processing this run (killed, or out of memory: lower [compute] "
+         "memory_budget or --workers); rerun to retry")
+
+
+def _outcome(fut, run):
+    """The outcome of a finished task; a task that failed outside process_run is a bug."""
+    try:
+        return fut.result()
+    except BrokenProcessPool:
+        raise
+    except Exception as e:  # a result that cannot be unpickled, say
+        return RunOutcome(run.name, "failed", error=f"internal error ({type(e).__name__}: {e}); rerun with "
+                          "--debug and report it")
 
 
 def _local(cfg, todo, out, report, *, n, overwrite):
-    """Runs on Dask's local scheduler over ``n`` local worker processes.
+    """Runs on ``n`` local worker processes, one run per worker at a time.
 
     Runs are processed in worker processes only, although this process could take one
     and save a process start: a run that crashes its process (a C library on a damaged
     file, the out-of-memory killer) then fails, with the runs in flight beside it,
-    instead of ending the campaign.
+    instead of ending the campaign. At most ``n`` runs are handed out at once, so the
+    runs in flight are exactly those a dead worker's pool loses.
     """
-    import dask
-    from concurrent.futures.process import BrokenProcessPool
-    from dask.callbacks import Callback
-
     config_path, out_s = str(Path(cfg.path).resolve()), str(out.resolve())
     threads = max(1, (os.cpu_count() or 1) // n)
     threading.Thread(target=_preload_products, daemon=True, name="fusion-preload").start()
     remaining = list(todo)
     while remaining:
-        keys = {f"fusion-run-{i}": r for i, r in enumerate(remaining)}
-        tasks = [dask.delayed(_task, pure=False)(config_path, r.name, out_s, overwrite, threads, dask_key_name=k)
-                 for k, r in keys.items()]
-        started = set()
-
-        def pretask(key, dsk, state):
-            started.add(key)
-
-        def posttask(key, result, dsk, state, worker_id):
-            report.add(result)
-
-        report.bar.draw()
-        pool = _process_pool(min(n, len(remaining)))
-        try:
-            with Callback(pretask=pretask, posttask=posttask):
-                # chunksize 1: a free worker takes the next run (dask's default sends batches of 6)
-                dask.compute(*tasks, scheduler="processes", pool=pool, chunksize=1)
-        except BrokenProcessPool:
-            # one worker died and the pool stopped the others: the runs in flight are lost
-            # (each leaves at most a hidden partial folder); the runs not started go on
-            missing = set(report.missing())
-            for key in sorted(started):
-                if keys[key].name in missing:
-                    report.add(RunOutcome(keys[key].name, "failed", error="a worker process died while "
-                                          "processing this run (killed, or out of memory: lower [compute] "
-                                          "memory_budget or --workers); rerun to retry"))
-            log.warning("a worker process died; the runs not started go on in new worker processes")
-        except BaseException:
-            # interrupted: stop the workers now rather than after their current run (partial
-            # folders are hidden and removed when the campaign runs next)
-            for proc in list((getattr(pool, "_processes", None) or {}).values()):
-                proc.terminate()
-            raise
-        finally:
-            pool.shutdown(wait=True, cancel_futures=True)
+        with _one_native_thread():
+            _run_pool(config_path, out_s, remaining, report, n=n, overwrite=overwrite, threads=threads)
         missing = set(report.missing())
         remaining = [r for r in remaining if r.name in missing]
+
+
+def _run_pool(config_path, out_s, remaining, report, *, n, overwrite, threads):
+    """One pool of ``n`` workers over ``remaining`` until they are done or a worker dies."""
+    queue = list(remaining)
+    pool = _process_pool(min(n, len(queue)))
+    in_flight = {}
+    try:
+        while queue or in_flight:
+            while queue and len(in_flight) < n:
+                run = queue.pop(0)
+                in_flight[pool.submit(_task, config_path, run.name, out_s, overwrite, threads)] = run
+            finished, _ = wait(in_flight, return_when=FIRST_COMPLETED)
+            for fut in finished:
+                report.add(_outcome(fut, in_flight[fut]))   # BrokenProcessPool: a worker died
+                del in_flight[fut]
+    except BrokenProcessPool:
+        # one worker died and the pool stopped the others: the runs in flight are lost
+        # (each leaves at most a temporary folder); the runs not started go on
+        for fut, run in in_flight.items():
+            try:
+                report.add(_outcome(fut, run) if fut.done() else RunOutcome(run.name, "failed", error=_DIED))
+            except BrokenProcessPool:
+                report.add(RunOutcome(run.name, "failed", error=_DIED))
+        log.warning("a worker process died; the runs not started go on in new worker processes")
+    except BaseException:
+        # interrupted: stop the workers now rather than after their current run (their
+        # temporary folders are removed when the campaign runs next)
+        for proc in list((getattr(pool, "_processes", None) or {}).values()):
+            proc.terminate()
+        raise
+    finally:
+        pool.shutdown(wait=True, cancel_futures=True)
 
 
 # --------------------------------------------------------------------------- distributed
@@ -514,7 +533,6 @@ def _distributed(address, cfg, todo, out, report, overwrite):
         config_path = str(Path(cfg.path).resolve())
         futures = {client.submit(_task, config_path, r.name, str(out.resolve()), overwrite, None,
                                  key=f"fusion-run-{r.name}-{token}", pure=False): r.name for r in todo}
-        report.bar.draw()
         for fut in as_completed(futures, loop=client.loop):
             try:
                 o = fut.result()

@@ -17,7 +17,7 @@ from ..mechanics import (
     SurfaceLayer, parse_layup,
 )
 from ..register import check_handedness, fit_transform
-from . import _schema as s
+from . import _schema
 from ._schema import Context
 from ._sections import (CampaignSpec, ComputeSpec, DiagnosisSpec, IsotropicSpec, LaminateSpec, LayerRef,
                         OrthotropicSpec, OutputSpec, PlanSpec, RegistrationSpec, RunSpec, TopLevel, run_key)
@@ -83,7 +83,11 @@ def _read_toml(path: Path, key_name: str, ctx: Context | None) -> tuple[dict, st
         if size > _MAX_CONFIG_BYTES:
             raise ConfigError(key_name, f"{str(path)!r} is {size} bytes; a config is at most "
                               f"{_MAX_CONFIG_BYTES} bytes", source=where)
-        raw = path.read_bytes()
+        with open(path, "rb") as fh:
+            raw = fh.read(_MAX_CONFIG_BYTES + 1)   # a file that grew since: still bounded
+        if len(raw) > _MAX_CONFIG_BYTES:
+            raise ConfigError(key_name, f"{str(path)!r} is more than {_MAX_CONFIG_BYTES} bytes; a config "
+                              f"is at most {_MAX_CONFIG_BYTES} bytes", source=where)
     except FileNotFoundError as e:
         raise ConfigError(key_name, f"file {str(path)!r} does not exist", source=where) from e
     except PermissionError as e:
@@ -127,7 +131,7 @@ def loads_config(text: str, *, base=".") -> Config:
 
 def _validate(doc: dict, text: str, path: Path | None, *, base: Path | None = None) -> Config:
     ctx = Context(source=str(path) if path else None, base=(path.parent if path else base or Path(".")))
-    top = s.build(TopLevel, doc, "", ctx)
+    top = _schema.build(TopLevel, doc, "", ctx)
 
     raw_materials: dict = {}
     library = top.material_library
@@ -152,7 +156,7 @@ def _validate(doc: dict, text: str, path: Path | None, *, base: Path | None = No
         if not re.fullmatch(r"[A-Za-z0-9_.\-]{1,60}", name):
             raise ConfigError(f"laminates.{name}", "laminate names use letters, digits, - _ . only",
                               source=ctx.source)
-        laminate_specs[name] = (f"laminates.{name}", s.build(LaminateSpec, table, f"laminates.{name}", ctx))
+        laminate_specs[name] = (f"laminates.{name}", _schema.build(LaminateSpec, table, f"laminates.{name}", ctx))
     laminates = {name: _laminate(name, spec, k, materials, ctx) for name, (k, spec) in laminate_specs.items()}
 
     if not isinstance(top.run, (list, tuple)):
@@ -161,7 +165,7 @@ def _validate(doc: dict, text: str, path: Path | None, *, base: Path | None = No
     for i, table in enumerate(top.run):
         # messages name the run as the user wrote it, not by its place in the file
         where = run_key(table.get("name") if isinstance(table, dict) else None, i)
-        run = s.build(RunSpec, table, where, ctx)
+        run = _schema.build(RunSpec, table, where, ctx)
         low = run.name.lower()
         if low in seen:
             raise ConfigError(f"{where}.name", f"{run.name!r} is used by run {seen[low]!r} already "
@@ -273,7 +277,7 @@ def _material(name, table, ctx):
         raise ConfigError(k, "expected an orthotropic ply (E1 E2 G12 nu12 alpha1 alpha2 density "
                           "specific_heat k1 k2 k3) or an isotropic material (E nu alpha density "
                           "specific_heat k)", source=ctx.source)
-    spec = s.build(spec_cls, table, k, ctx)
+    spec = _schema.build(spec_cls, table, k, ctx)
     values = {f.name: getattr(spec, f.name) for f in dataclasses.fields(spec) if f.name != "source"}
     try:
         return cls(name=name, **values), spec.source

@@ -2,14 +2,14 @@
 
 from __future__ import annotations
 
-from . import _schema as s
+from . import _schema
 from ._sections import (CampaignSpec, ComputeSpec, DiagnosisSpec, IsotropicSpec, LaminateSpec,
                         OrthotropicSpec, OutputSpec, PlanSpec, RegistrationSpec, RunSpec, TopLevel)
 
 
 def markdown_reference() -> str:
     """The key reference of the config, as Markdown (for configs/README.md): every table once."""
-    return s.markdown_reference([
+    return _schema.markdown_reference([
         (TopLevel, "top level", "Top level"),
         (CampaignSpec, "campaign", None),
         (OrthotropicSpec, "materials.NAME", "`materials.NAME`: an orthotropic ply material"),

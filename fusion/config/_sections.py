@@ -9,7 +9,7 @@ import numpy as np
 
 from ..errors import ConfigError
 from ..io import MAP_QUANTITIES
-from . import _schema as s
+from . import _schema
 from ._schema import key
 
 RUN_NAME_PATTERN = r"[A-Za-z0-9][A-Za-z0-9_.\-]{0,99}"
@@ -32,30 +32,30 @@ _DEVICE_STEMS = {"con", "prn", "aux", "nul"} | {f"com{i}" for i in range(1, 10)}
 class LayerRef:
     """A surface layer: an isotropic material from ``[materials]`` and its thickness."""
 
-    material: str = key(s.string(), "Name of an isotropic material in [materials].", required=True)
-    thickness: float = key(s.quantity("m", positive=True), "Layer thickness.", unit="m", required=True)
+    material: str = key(_schema.string(), "Name of an isotropic material in [materials].", required=True)
+    thickness: float = key(_schema.quantity("m", positive=True), "Layer thickness.", unit="m", required=True)
 
 
 @dataclass(frozen=True)
 class LaminateSpec:
     """A laminate: plies listed from the viewed face inward, and optional surface layers."""
 
-    layup: tuple = key(s.either(s.string(), s.list_of(s.quantity("deg"), min_len=1)),
+    layup: tuple = key(_schema.either(_schema.string(), _schema.list_of(_schema.quantity("deg"), min_len=1)),
                        "Ply angles in degrees from the viewed face inward, or a compact code such "
                        "as \"[45/0/-45/90]s\", \"[0/90]2s\", \"[±45]s\".", required=True)
-    ply_material: str = key(s.string(), "Name of an orthotropic material in [materials].", required=True)
-    ply_thickness: float = key(s.quantity("m", positive=True), "Cured ply thickness.", unit="m",
+    ply_material: str = key(_schema.string(), "Name of an orthotropic material in [materials].", required=True)
+    ply_thickness: float = key(_schema.quantity("m", positive=True), "Cured ply thickness.", unit="m",
                                required=True)
-    zero_direction: float = key(s.quantity("deg", low=-360, high=360),
+    zero_direction: float = key(_schema.quantity("deg", low=-360, high=360),
                                 "Angle of the laminate 0° direction from specimen x, CCW.",
                                 unit="deg", default=0.0)
-    resin_layer: LayerRef = key(s.table_of(LayerRef), "Resin-rich layer on the viewed face.")
-    coating: LayerRef = key(s.table_of(LayerRef), "Paint or coating on the viewed face (outermost).")
-    back_layer: LayerRef = key(s.table_of(LayerRef), "Resin-rich layer on the back face (heat model).")
-    convection_front: float = key(s.quantity("W/m^2/K", nonnegative=True),
+    resin_layer: LayerRef = key(_schema.table_of(LayerRef), "Resin-rich layer on the viewed face.")
+    coating: LayerRef = key(_schema.table_of(LayerRef), "Paint or coating on the viewed face (outermost).")
+    back_layer: LayerRef = key(_schema.table_of(LayerRef), "Resin-rich layer on the back face (heat model).")
+    convection_front: float = key(_schema.quantity("W/m^2/K", nonnegative=True),
                                   "Heat-transfer coefficient of the viewed face (0: adiabatic).",
                                   unit="W/(m2 K)", default=0.0)
-    convection_back: float = key(s.quantity("W/m^2/K", nonnegative=True),
+    convection_back: float = key(_schema.quantity("W/m^2/K", nonnegative=True),
                                  "Heat-transfer coefficient of the back face (0: adiabatic).",
                                  unit="W/(m2 K)", default=0.0)
 
@@ -64,36 +64,36 @@ class LaminateSpec:
 class ThermalSpec:
     """Infrared input of a run: exactly one of ``frames`` (raw stack) or ``maps`` (precomputed)."""
 
-    frames: Path = key(s.path, "Frame stack (frame, row, col): .npy, .raw/.bin, .tif, .h5, .nc.")
-    maps: Path = key(s.path, "Precomputed maps (NetCDF/TIFF/CSV) with T0 and delta_T (or magnitude "
+    frames: Path = key(_schema.path, "Frame stack (frame, row, col): .npy, .raw/.bin, .tif, .h5, .nc.")
+    maps: Path = key(_schema.path, "Precomputed maps (NetCDF/TIFF/CSV) with T0 and delta_T (or magnitude "
                      "and phase); see \"Input files\" above.")
-    delta_T_convention: str = key(s.choice("peak-to-peak", "amplitude"), "What the maps' delta_T (and "
+    delta_T_convention: str = key(_schema.choice("peak-to-peak", "amplitude"), "What the maps' delta_T (and "
                                   "magnitude, quadrature, std) hold: the peak-to-peak range (maximum minus "
                                   "minimum load) or the amplitude (half of it). Required with 'maps'.")
-    variables: dict = key(s.either(s.mapping_of_strings, s.list_of(s.choice(*MAP_QUANTITIES), min_len=2)),
+    variables: dict = key(_schema.either(_schema.mapping_of_strings, _schema.list_of(_schema.choice(*MAP_QUANTITIES), min_len=2)),
                           "Map our quantity names (" + ", ".join(MAP_QUANTITIES) + ") to the maps "
                           "file's variable or column names, e.g. { delta_T = \"dT\" }; for a TIFF the page "
                           "order as a list.")
-    frame_rate: float = key(s.quantity("Hz", positive=True), "Camera frame rate.", unit="Hz")
-    times: Path = key(s.path, "Optional file of frame times in s (.npy or one-column CSV).")
-    load: Path = key(s.path, "Load signal CSV (columns time, load), per frame or on its own clock.")
-    time_column: str = key(s.string(), "Name of the time column of the load file.", default="time")
-    load_column: str = key(s.string(), "Name of the load column of the load file.", default="load")
-    dataset: str = key(s.string(), "Dataset or variable name inside .h5/.nc frame stacks.")
-    dtype: str = key(s.choice("uint8", "int16", "uint16", "int32", "uint32", "float32", "float64"),
+    frame_rate: float = key(_schema.quantity("Hz", positive=True), "Camera frame rate.", unit="Hz")
+    times: Path = key(_schema.path, "Optional file of frame times in s (.npy or one-column CSV).")
+    load: Path = key(_schema.path, "Load signal CSV (columns time, load), per frame or on its own clock.")
+    time_column: str = key(_schema.string(), "Name of the time column of the load file.", default="time")
+    load_column: str = key(_schema.string(), "Name of the load column of the load file.", default="load")
+    dataset: str = key(_schema.string(), "Dataset or variable name inside .h5/.nc frame stacks.")
+    dtype: str = key(_schema.choice("uint8", "int16", "uint16", "int32", "uint32", "float32", "float64"),
                      "Element type of a headerless raw stack.")
-    shape: tuple = key(s.list_of(s.integer(low=1), min_len=3, max_len=3),
+    shape: tuple = key(_schema.list_of(_schema.integer(low=1), min_len=3, max_len=3),
                        "Shape [frames, rows, cols] of a headerless raw stack.")
-    byte_order: str = key(s.choice("little", "big"), "Byte order of a raw stack.", default="little")
-    header_bytes: int = key(s.integer(low=0), "Bytes to skip at the start of a raw stack.", default=0)
-    values: str = key(s.choice("kelvin", "counts"), "Frames hold kelvin, or detector counts "
+    byte_order: str = key(_schema.choice("little", "big"), "Byte order of a raw stack.", default="little")
+    header_bytes: int = key(_schema.integer(low=0), "Bytes to skip at the start of a raw stack.", default=0)
+    values: str = key(_schema.choice("kelvin", "counts"), "Frames hold kelvin, or detector counts "
                       "calibrated as gain*counts + offset.", default="kelvin")
-    gain: float = key(s.quantity("K", positive=True), "Kelvin per count (values = \"counts\").",
+    gain: float = key(_schema.quantity("K", positive=True), "Kelvin per count (values = \"counts\").",
                       unit="K", default=1.0)
-    offset: float = key(s.quantity("K"), "Kelvin at zero counts (values = \"counts\").", unit="K",
+    offset: float = key(_schema.quantity("K"), "Kelvin at zero counts (values = \"counts\").", unit="K",
                         default=0.0)
-    saturation: float = key(s.quantity(""), "Raw value at or above which a pixel is saturated.")
-    motion_compensation: bool = key(s.boolean, "Warp frames back to the unloaded configuration "
+    saturation: float = key(_schema.quantity(""), "Raw value at or above which a pixel is saturated.")
+    motion_compensation: bool = key(_schema.boolean, "Warp frames back to the unloaded configuration "
                                     "from the correlation displacement before the lock-in.",
                                     default=False)
 
@@ -121,37 +121,37 @@ class ThermalSpec:
 class DicSpec:
     """Correlation input of a run: exactly one of ``strain_ranges``, ``states``, ``series`` or ``images``."""
 
-    strain_ranges: Path = key(s.path, "Field of peak-to-peak strain ranges (columns x, y, exx, eyy, gxy).")
-    states: tuple = key(s.list_of(s.path, min_len=2, max_len=2),
+    strain_ranges: Path = key(_schema.path, "Field of peak-to-peak strain ranges (columns x, y, exx, eyy, gxy).")
+    states: tuple = key(_schema.list_of(_schema.path, min_len=2, max_len=2),
                         "Displacement fields at minimum and maximum load (columns x, y, u, v).")
-    series: tuple = key(s.list_of(s.path, min_len=3),
+    series: tuple = key(_schema.list_of(_schema.path, min_len=3),
                         "Displacement fields at several loads (with 'loads'): slope fit.")
-    images: tuple = key(s.list_of(s.path, min_len=2),
+    images: tuple = key(_schema.list_of(_schema.path, min_len=2),
                         "Speckle images: the reference (minimum load) first, then loaded states.")
-    loads: tuple = key(s.list_of(s.quantity("N")), "Load of each state, series entry or image.", unit="N")
-    coordinates: str = key(s.choice("mm", "px"), "Units of the x, y columns.", default="mm")
-    y_axis: str = key(s.choice("up", "down"), "Direction of the file's y axis (default: up for mm, "
+    loads: tuple = key(_schema.list_of(_schema.quantity("N")), "Load of each state, series entry or image.", unit="N")
+    coordinates: str = key(_schema.choice("mm", "px"), "Units of the x, y columns.", default="mm")
+    y_axis: str = key(_schema.choice("up", "down"), "Direction of the file's y axis (default: up for mm, "
                       "down for px).")
-    shear: str = key(s.choice("engineering", "tensor"), "Shear column holds gamma_xy or eps_xy.",
+    shear: str = key(_schema.choice("engineering", "tensor"), "Shear column holds gamma_xy or eps_xy.",
                      default="engineering")
-    strain_unit: str = key(s.choice("1", "%", "microstrain"), "Unit of the strain columns: plain strain "
+    strain_unit: str = key(_schema.choice("1", "%", "microstrain"), "Unit of the strain columns: plain strain "
                            "(\"1\", the default), percent or microstrain. A NetCDF/HDF5 variable's own "
                            "units attribute is honoured and must agree.")
-    columns: dict = key(s.mapping_of_strings, "Map our column names (x, y, z, u, v, exx, eyy, gxy, "
+    columns: dict = key(_schema.mapping_of_strings, "Map our column names (x, y, z, u, v, exx, eyy, gxy, "
                         "valid) to the file's header names.")
-    subset: int = key(s.integer(low=7, high=301), "Subset size in px (images); `fusion gauge` "
+    subset: int = key(_schema.integer(low=7, high=301), "Subset size in px (images); `fusion gauge` "
                       "shows what each choice resolves.", default=25)
-    step: int = key(s.integer(low=1, high=200), "Grid step in px (images).", default=3)
-    strain_window: int = key(s.integer(low=3, high=51), "Points per side of the strain fit window "
+    step: int = key(_schema.integer(low=1, high=200), "Grid step in px (images).", default=3)
+    strain_window: int = key(_schema.integer(low=3, high=51), "Points per side of the strain fit window "
                              "(defaults: a hole of 60 px radius resolved at gain 0.9).", default=7)
-    strain_order: int = key(s.integer(low=1, high=2), "Polynomial order of the strain fit.", default=1)
-    pixel_size: float = key(s.quantity("mm", positive=True), "Size of a visible-camera pixel on the "
+    strain_order: int = key(_schema.integer(low=1, high=2), "Polynomial order of the strain fit.", default=1)
+    pixel_size: float = key(_schema.quantity("mm", positive=True), "Size of a visible-camera pixel on the "
                             "specimen (images; turns px into mm).", unit="mm")
-    roi: tuple = key(s.list_of(s.integer(low=0), min_len=4, max_len=4),
+    roi: tuple = key(_schema.list_of(_schema.integer(low=0), min_len=4, max_len=4),
                      "Region of interest [row0, col0, row1, col1] in image px.")
-    mask: Path = key(s.path, "Mask image, same size as the speckle images: non-zero where to "
+    mask: Path = key(_schema.path, "Mask image, same size as the speckle images: non-zero where to "
                      "correlate (leave out markers, holes, background).")
-    reference_image: Path = key(s.path, "Visible reference image for the overlay figure.")
+    reference_image: Path = key(_schema.path, "Visible reference image for the overlay figure.")
 
     def _check(self, prefix, ctx):
         given = [n for n in ("strain_ranges", "states", "series", "images") if getattr(self, n) is not None]
@@ -191,10 +191,10 @@ class DicSpec:
 class ExcludeSpec:
     """A region left out of every map and statistic: one rectangle, circle or polygon."""
 
-    rect: tuple = key(s.list_of(s.quantity(""), min_len=4, max_len=4), "[x0, y0, x1, y1]: opposite corners.")
-    circle: tuple = key(s.list_of(s.quantity(""), min_len=3, max_len=3), "[cx, cy, r].")
-    polygon: tuple = key(s.list_of(s.point, min_len=3), "[[x, y], ...]: three or more vertices in order.")
-    frame: str = key(s.choice("ir", "dic"), "Coordinates of the shape: 'ir' = IR pixels [col, row]; "
+    rect: tuple = key(_schema.list_of(_schema.quantity(""), min_len=4, max_len=4), "[x0, y0, x1, y1]: opposite corners.")
+    circle: tuple = key(_schema.list_of(_schema.quantity(""), min_len=3, max_len=3), "[cx, cy, r].")
+    polygon: tuple = key(_schema.list_of(_schema.point, min_len=3), "[[x, y], ...]: three or more vertices in order.")
+    frame: str = key(_schema.choice("ir", "dic"), "Coordinates of the shape: 'ir' = IR pixels [col, row]; "
                      "'dic' = the correlation data's own coordinates, as for dic_points.", default="ir")
 
     def _check(self, prefix, ctx):
@@ -224,50 +224,50 @@ class ExcludeSpec:
 class RegistrationSpec:
     """How correlation coordinates map onto infrared pixels."""
 
-    method: str = key(s.choice("homography", "affine", "similarity", "identity", "fiducials", "camera"),
+    method: str = key(_schema.choice("homography", "affine", "similarity", "identity", "fiducials", "camera"),
                       "Transform model; 'identity': the correlation data sit on the IR pixel grid "
                       "(file x, y = IR col, row); 'fiducials' finds markers automatically; 'camera' "
                       "fits a pinhole model with distortion to 3D points.", default="homography")
-    dic_points: tuple = key(s.list_of(s.either(s.point, s.list_of(s.quantity(""), min_len=3, max_len=3))),
+    dic_points: tuple = key(_schema.list_of(_schema.either(_schema.point, _schema.list_of(_schema.quantity(""), min_len=3, max_len=3))),
                             "Control points in the coordinates of the correlation data: the file's "
                             "own x, y (its unit, its y direction), or for images the reference "
                             "image's [col, row] ([x, y, z] for 'camera').")
-    dic_points_units: str = key(s.choice("px", "mm"), "Unit of dic_points (default: that of the "
+    dic_points_units: str = key(_schema.choice("px", "mm"), "Unit of dic_points (default: that of the "
                                 "correlation data; for images 'px'). With images, 'mm' means [col, row] "
                                 "times dic.pixel_size, rows still counting down.")
-    ir_points: tuple = key(s.list_of(s.point), "The same points in IR pixels [col, row].")
-    ir_mirrored: bool = key(s.boolean, "The IR image is a mirror image of the visible camera's view "
+    ir_points: tuple = key(_schema.list_of(_schema.point), "The same points in IR pixels [col, row].")
+    ir_mirrored: bool = key(_schema.boolean, "The IR image is a mirror image of the visible camera's view "
                             "(a mirror in its optical path, a flipped read-out): the registration "
                             "then keeps orientation instead of reversing it.", default=False)
-    ransac_threshold: float = key(s.quantity("", positive=True), "Outlier threshold in IR px "
+    ransac_threshold: float = key(_schema.quantity("", positive=True), "Outlier threshold in IR px "
                                   "(RANSAC); none for plain least squares.")
-    max_error: float = key(s.quantity("", positive=True), "RMS reprojection error (IR px) above "
+    max_error: float = key(_schema.quantity("", positive=True), "RMS reprojection error (IR px) above "
                            "which a warning is raised; a control point is called an outlier only "
                            "when the others place it farther off than this.", default=0.5)
-    refine: bool = key(s.boolean, "Refine the transform by enhanced correlation of the measured "
+    refine: bool = key(_schema.boolean, "Refine the transform by enhanced correlation of the measured "
                        "and predicted maps.", default=False)
-    max_correction: float = key(s.quantity("", positive=True), "Largest refinement accepted, IR px.",
+    max_correction: float = key(_schema.quantity("", positive=True), "Largest refinement accepted, IR px.",
                                 default=2.0)
-    fiducials: int = key(s.integer(low=4, high=50), "Number of markers (method 'fiducials').")
-    fiducial_radius_ir: tuple = key(s.list_of(s.quantity("", positive=True), min_len=2, max_len=2),
+    fiducials: int = key(_schema.integer(low=4, high=50), "Number of markers (method 'fiducials').")
+    fiducial_radius_ir: tuple = key(_schema.list_of(_schema.quantity("", positive=True), min_len=2, max_len=2),
                                     "Marker radius range [min, max] in IR px (method 'fiducials').",
                                     default=(1.5, 8.0))
-    fiducial_radius_visible: tuple = key(s.list_of(s.quantity("", positive=True), min_len=2, max_len=2),
+    fiducial_radius_visible: tuple = key(_schema.list_of(_schema.quantity("", positive=True), min_len=2, max_len=2),
                                          "Marker radius range [min, max] in visible px; keep min "
                                          "above the speckle size.", default=(6.0, 40.0))
-    fiducial_polarity_ir: str = key(s.choice("auto", "bright", "dark"), "Markers warmer ('bright') or "
+    fiducial_polarity_ir: str = key(_schema.choice("auto", "bright", "dark"), "Markers warmer ('bright') or "
                                     "colder ('dark') than the surface in the T0 map.", default="auto")
-    fiducial_polarity_visible: str = key(s.choice("auto", "bright", "dark"), "Markers lighter or darker "
+    fiducial_polarity_visible: str = key(_schema.choice("auto", "bright", "dark"), "Markers lighter or darker "
                                          "than the speckle in the visible image.", default="auto")
-    max_rotation: float = key(s.quantity("deg", positive=True, high=179), "Largest rotation between the "
+    max_rotation: float = key(_schema.quantity("deg", positive=True, high=179), "Largest rotation between the "
                               "cameras (method 'fiducials'; rules out symmetric twins of the marker "
                               "layout).", unit="deg", default=45.0)
-    marker_radius: float = key(s.quantity("", positive=True), "The control points are centres of "
+    marker_radius: float = key(_schema.quantity("", positive=True), "The control points are centres of "
                                "markers of this radius, IR px: their pixels become no data. Markers "
                                "found by method 'fiducials' are masked with their measured radius.")
-    marker_margin: float = key(s.quantity("", nonnegative=True), "IR px of no data added around every "
+    marker_margin: float = key(_schema.quantity("", nonnegative=True), "IR px of no data added around every "
                                "marker (optics blur, centre error).", default=1.0)
-    exclude: tuple = key(s.list_of(s.table_of(ExcludeSpec)), "Regions to leave out of every map and "
+    exclude: tuple = key(_schema.list_of(_schema.table_of(ExcludeSpec)), "Regions to leave out of every map and "
                          "statistic.", factory=tuple)
 
     def _check(self, prefix, ctx):
@@ -292,11 +292,11 @@ class RegistrationSpec:
 class RegionSpec:
     """A named region of the IR grid for the region table: a rectangle, a circle or a mask image."""
 
-    name: str = key(s.string(pattern=r"[^\x00-\x1f]{1,60}", hint="1-60 printable characters"),
+    name: str = key(_schema.string(pattern=r"[^\x00-\x1f]{1,60}", hint="1-60 printable characters"),
                     "Label in tables.", required=True)
-    rect: tuple = key(s.list_of(s.quantity(""), min_len=4, max_len=4), "[x0, y0, x1, y1] in IR px.")
-    circle: tuple = key(s.list_of(s.quantity(""), min_len=3, max_len=3), "[cx, cy, r] in IR px.")
-    mask: Path = key(s.path, "Image (non-zero inside) on the IR grid.")
+    rect: tuple = key(_schema.list_of(_schema.quantity(""), min_len=4, max_len=4), "[x0, y0, x1, y1] in IR px.")
+    circle: tuple = key(_schema.list_of(_schema.quantity(""), min_len=3, max_len=3), "[cx, cy, r] in IR px.")
+    mask: Path = key(_schema.path, "Image (non-zero inside) on the IR grid.")
 
     def _check(self, prefix, ctx):
         if sum(v is not None for v in (self.rect, self.circle, self.mask)) != 1:
@@ -307,43 +307,43 @@ class RegionSpec:
 class CalibrationSpec:
     """Calibrate the infrared measurement on a region whose source is known."""
 
-    region: str = key(s.string(), "Name of a region in diagnosis.regions.", required=True)
-    source: str = key(s.choice("coating", "resin_layer", "surface_ply", "laminate", "model"),
+    region: str = key(_schema.string(), "Name of a region in diagnosis.regions.", required=True)
+    source: str = key(_schema.choice("coating", "resin_layer", "surface_ply", "laminate", "model"),
                       "The source known to dominate there.", required=True)
 
 
-_SOURCE = s.choice("coating", "resin_layer", "surface_ply", "laminate", "model")
+_SOURCE = _schema.choice("coating", "resin_layer", "surface_ply", "laminate", "model")
 
 
 @dataclass(frozen=True)
 class DiagnosisSpec:
     """How measurement and predictions are compared."""
 
-    sources: tuple = key(s.list_of(_SOURCE, min_len=1), "Sources to evaluate (default: every source "
+    sources: tuple = key(_schema.list_of(_SOURCE, min_len=1), "Sources to evaluate (default: every source "
                          "the laminate has, and the heat model).")
-    property_uncertainty: float = key(s.quantity("", nonnegative=True, high=1.0),
+    property_uncertainty: float = key(_schema.quantity("", nonnegative=True, high=1.0),
                                       "Relative standard uncertainty of the material properties.",
                                       default=0.05)
-    fit_threshold: float = key(s.quantity("", positive=True), "|z| above which a source does not fit.",
+    fit_threshold: float = key(_schema.quantity("", positive=True), "|z| above which a source does not fit.",
                                default=3.0)
-    distinguish: float = key(s.quantity("", positive=True), "Predictions closer than this many "
+    distinguish: float = key(_schema.quantity("", positive=True), "Predictions closer than this many "
                              "combined sigmas are indistinguishable.", default=1.0)
-    min_snr: float = key(s.quantity("", nonnegative=True), "Pixels below this lock-in SNR are invalid.",
+    min_snr: float = key(_schema.quantity("", nonnegative=True), "Pixels below this lock-in SNR are invalid.",
                          default=2.0)
-    regions: tuple = key(s.list_of(s.table_of(RegionSpec)), "Named regions for the region table.",
+    regions: tuple = key(_schema.list_of(_schema.table_of(RegionSpec)), "Named regions for the region table.",
                          factory=tuple)
-    calibration: CalibrationSpec = key(s.table_of(CalibrationSpec), "Optional calibration region.")
+    calibration: CalibrationSpec = key(_schema.table_of(CalibrationSpec), "Optional calibration region.")
 
 
 @dataclass(frozen=True)
 class ComputeSpec:
     """Where and how runs are computed."""
 
-    workers: int = key(s.integer(low=1, high=1024), "Runs processed at once (default: the cores, "
+    workers: int = key(_schema.integer(low=1, high=1024), "Runs processed at once (default: the cores, "
                        "limited to available memory / (memory_budget + 400 MB)).")
-    memory_budget: float = key(s.quantity("B", positive=True), "Memory a run may use for frame "
+    memory_budget: float = key(_schema.quantity("B", positive=True), "Memory a run may use for frame "
                                "chunks.", unit="B", default=2e9)
-    scheduler: str = key(s.string(pattern=r"(tcp|tls|inproc)://\S+|processes|threads|synchronous",
+    scheduler: str = key(_schema.string(pattern=r"(tcp|tls|inproc)://\S+|processes|threads|synchronous",
                                   hint="expected tcp://HOST:PORT, 'processes', 'threads' or 'synchronous'"),
                          "Dask scheduler: 'processes' (local worker processes, the default for more "
                          "than one run), 'synchronous' (one by one in this process), 'threads' (runs "
@@ -356,50 +356,50 @@ class ComputeSpec:
 class OutputSpec:
     """Where results go and which figures are made."""
 
-    folder: Path = key(s.path, "Output folder (default: 'results' beside the config).")
-    figures: bool = key(s.boolean, "Write figures.", default=True)
-    formats: tuple = key(s.list_of(s.choice("png", "pdf"), min_len=1), "Figure formats.",
+    folder: Path = key(_schema.path, "Output folder (default: 'results' beside the config).")
+    figures: bool = key(_schema.boolean, "Write figures.", default=True)
+    formats: tuple = key(_schema.list_of(_schema.choice("png", "pdf"), min_len=1), "Figure formats.",
                          default=("png",))
-    dpi: int = key(s.integer(low=50, high=1200), "Figure resolution.", default=300)
-    profile_line: tuple = key(s.list_of(s.point, min_len=2, max_len=2),
+    dpi: int = key(_schema.integer(low=50, high=1200), "Figure resolution.", default=300)
+    profile_line: tuple = key(_schema.list_of(_schema.point, min_len=2, max_len=2),
                               "Line [[x0, y0], [x1, y1]] in IR px for the profile figure.")
-    report: bool = key(s.boolean, "Write report.html.", default=True)
+    report: bool = key(_schema.boolean, "Write report.html.", default=True)
 
 
 @dataclass(frozen=True)
 class PlanSpec:
     """The strain state and frequencies of ``fusion plan``."""
 
-    strain: float = key(s.quantity("", positive=True), "Strain range along the load axis "
+    strain: float = key(_schema.quantity("", positive=True), "Strain range along the load axis "
                         "(\"1000 microstrain\").", default=1e-3)
-    direction: float = key(s.quantity("deg"), "Load axis, degrees from specimen x.", unit="deg",
+    direction: float = key(_schema.quantity("deg"), "Load axis, degrees from specimen x.", unit="deg",
                            default=0.0)
-    f_min: float = key(s.quantity("Hz", positive=True), "Lowest frequency.", unit="Hz", default=0.1)
-    f_max: float = key(s.quantity("Hz", positive=True), "Highest frequency.", unit="Hz", default=200.0)
-    count: int = key(s.integer(low=3, high=2000), "Number of log-spaced frequencies.", default=121)
-    tolerance: float = key(s.quantity("", positive=True, high=0.5), "Band tolerance (relative).",
+    f_min: float = key(_schema.quantity("Hz", positive=True), "Lowest frequency.", unit="Hz", default=0.1)
+    f_max: float = key(_schema.quantity("Hz", positive=True), "Highest frequency.", unit="Hz", default=200.0)
+    count: int = key(_schema.integer(low=3, high=2000), "Number of log-spaced frequencies.", default=121)
+    tolerance: float = key(_schema.quantity("", positive=True, high=0.5), "Band tolerance (relative).",
                            default=0.02)
-    laminate: str = key(s.string(), "Laminate to plan (default: [laminate]).")
+    laminate: str = key(_schema.string(), "Laminate to plan (default: [laminate]).")
 
 
 @dataclass(frozen=True)
 class RunSpec:
     """One paired infrared/correlation run."""
 
-    name: str = key(s.string(pattern=RUN_NAME_PATTERN, hint="letters, digits, - _ . only, "
+    name: str = key(_schema.string(pattern=RUN_NAME_PATTERN, hint="letters, digits, - _ . only, "
                              "starting with a letter or digit, at most 100 characters"),
                     "Run name; becomes its output folder name.", required=True)
-    specimen: str = key(s.string(pattern=r"[^\x00-\x1f]{1,100}", hint="1-100 printable characters"),
+    specimen: str = key(_schema.string(pattern=r"[^\x00-\x1f]{1,100}", hint="1-100 printable characters"),
                         "Specimen; runs of one specimen at several frequencies form a sweep.")
-    frequency: float = key(s.quantity("Hz", positive=True), "Loading frequency, checked against the "
+    frequency: float = key(_schema.quantity("Hz", positive=True), "Loading frequency, checked against the "
                            "load signal (replaced by its estimate when they differ beyond its "
                            "uncertainty and within 10 %); optional with a load signal sampled at least "
                            "twice as fast as the frames.", unit="Hz")
-    laminate: str = key(s.string(), "Name of a laminate in [laminates] (default: [laminate]).")
-    description: str = key(s.string(), "Free text for the report.")
-    thermal: ThermalSpec = key(s.table_of(ThermalSpec), "Infrared input.", required=True)
-    dic: DicSpec = key(s.table_of(DicSpec), "Correlation input.", required=True)
-    registration: RegistrationSpec = key(s.table_of(RegistrationSpec), "Per-run registration "
+    laminate: str = key(_schema.string(), "Name of a laminate in [laminates] (default: [laminate]).")
+    description: str = key(_schema.string(), "Free text for the report.")
+    thermal: ThermalSpec = key(_schema.table_of(ThermalSpec), "Infrared input.", required=True)
+    dic: DicSpec = key(_schema.table_of(DicSpec), "Correlation input.", required=True)
+    registration: RegistrationSpec = key(_schema.table_of(RegistrationSpec), "Per-run registration "
                                          "(replaces the top-level [registration]).")
 
     @property
@@ -425,57 +425,57 @@ class RunSpec:
 class CampaignSpec:
     """Labels for the report."""
 
-    name: str = key(s.string(), "Campaign title.", default="fusion campaign")
-    description: str = key(s.string(), "Free text for the report header.", default="")
-    operator: str = key(s.string(), "Who ran the tests (optional).")
+    name: str = key(_schema.string(), "Campaign title.", default="fusion campaign")
+    description: str = key(_schema.string(), "Free text for the report header.", default="")
+    operator: str = key(_schema.string(), "Who ran the tests (optional).")
 
 
 @dataclass(frozen=True)
 class TopLevel:
     """The keys a config file may hold at its top level."""
 
-    campaign: CampaignSpec = key(s.table_of(CampaignSpec), "Labels for the report.")
-    material_library: tuple = key(s.either(s.list_of(s.path), s.path), "TOML file(s) with more "
+    campaign: CampaignSpec = key(_schema.table_of(CampaignSpec), "Labels for the report.")
+    material_library: tuple = key(_schema.either(_schema.list_of(_schema.path), _schema.path), "TOML file(s) with more "
                                   "[materials.NAME] tables (e.g. materials.toml).")
     materials: dict = key(lambda v, k, c: v, "Material tables [materials.NAME] (see below).",
                           type_name="tables", factory=dict)
-    laminate: LaminateSpec = key(s.table_of(LaminateSpec), "The default laminate.")
+    laminate: LaminateSpec = key(_schema.table_of(LaminateSpec), "The default laminate.")
     laminates: dict = key(lambda v, k, c: v, "Further named laminates [laminates.NAME].",
                           type_name="tables", factory=dict)
     run: tuple = key(lambda v, k, c: v, "The runs [[run]].", type_name="array of tables", factory=tuple)
-    registration: RegistrationSpec = key(s.table_of(RegistrationSpec), "Registration for all runs.")
-    diagnosis: DiagnosisSpec = key(s.table_of(DiagnosisSpec), "Diagnosis settings.")
-    compute: ComputeSpec = key(s.table_of(ComputeSpec), "Compute settings.")
-    output: OutputSpec = key(s.table_of(OutputSpec), "Output settings.")
-    plan: PlanSpec = key(s.table_of(PlanSpec), "Settings of `fusion plan`.")
+    registration: RegistrationSpec = key(_schema.table_of(RegistrationSpec), "Registration for all runs.")
+    diagnosis: DiagnosisSpec = key(_schema.table_of(DiagnosisSpec), "Diagnosis settings.")
+    compute: ComputeSpec = key(_schema.table_of(ComputeSpec), "Compute settings.")
+    output: OutputSpec = key(_schema.table_of(OutputSpec), "Output settings.")
+    plan: PlanSpec = key(_schema.table_of(PlanSpec), "Settings of `fusion plan`.")
 
 
 @dataclass(frozen=True)
 class OrthotropicSpec:
     """An orthotropic ply material (UD ply in its material axes, 1 along the fibres)."""
 
-    E1: float = key(s.quantity("Pa"), "Modulus along the fibres.", unit="Pa", required=True)
-    E2: float = key(s.quantity("Pa"), "Transverse modulus.", unit="Pa", required=True)
-    G12: float = key(s.quantity("Pa"), "In-plane shear modulus.", unit="Pa", required=True)
-    nu12: float = key(s.quantity(""), "Major Poisson ratio.", required=True)
-    alpha1: float = key(s.quantity("1/K"), "Expansion coefficient along the fibres.", unit="1/K", required=True)
-    alpha2: float = key(s.quantity("1/K"), "Transverse expansion coefficient.", unit="1/K", required=True)
-    density: float = key(s.quantity("kg/m^3"), "Density.", unit="kg/m3", required=True)
-    specific_heat: float = key(s.quantity("J/kg/K"), "Specific heat.", unit="J/(kg K)", required=True)
-    k1: float = key(s.quantity("W/m/K"), "Conductivity along the fibres.", unit="W/(m K)", required=True)
-    k2: float = key(s.quantity("W/m/K"), "Transverse in-plane conductivity.", unit="W/(m K)", required=True)
-    k3: float = key(s.quantity("W/m/K"), "Through-thickness conductivity.", unit="W/(m K)", required=True)
-    source: str = key(s.string(), "Where the values come from (shown in reports).")
+    E1: float = key(_schema.quantity("Pa"), "Modulus along the fibres.", unit="Pa", required=True)
+    E2: float = key(_schema.quantity("Pa"), "Transverse modulus.", unit="Pa", required=True)
+    G12: float = key(_schema.quantity("Pa"), "In-plane shear modulus.", unit="Pa", required=True)
+    nu12: float = key(_schema.quantity(""), "Major Poisson ratio.", required=True)
+    alpha1: float = key(_schema.quantity("1/K"), "Expansion coefficient along the fibres.", unit="1/K", required=True)
+    alpha2: float = key(_schema.quantity("1/K"), "Transverse expansion coefficient.", unit="1/K", required=True)
+    density: float = key(_schema.quantity("kg/m^3"), "Density.", unit="kg/m3", required=True)
+    specific_heat: float = key(_schema.quantity("J/kg/K"), "Specific heat.", unit="J/(kg K)", required=True)
+    k1: float = key(_schema.quantity("W/m/K"), "Conductivity along the fibres.", unit="W/(m K)", required=True)
+    k2: float = key(_schema.quantity("W/m/K"), "Transverse in-plane conductivity.", unit="W/(m K)", required=True)
+    k3: float = key(_schema.quantity("W/m/K"), "Through-thickness conductivity.", unit="W/(m K)", required=True)
+    source: str = key(_schema.string(), "Where the values come from (shown in reports).")
 
 
 @dataclass(frozen=True)
 class IsotropicSpec:
     """An isotropic material (resin, paint, metal)."""
 
-    E: float = key(s.quantity("Pa"), "Young's modulus.", unit="Pa", required=True)
-    nu: float = key(s.quantity(""), "Poisson ratio.", required=True)
-    alpha: float = key(s.quantity("1/K"), "Expansion coefficient.", unit="1/K", required=True)
-    density: float = key(s.quantity("kg/m^3"), "Density.", unit="kg/m3", required=True)
-    specific_heat: float = key(s.quantity("J/kg/K"), "Specific heat.", unit="J/(kg K)", required=True)
-    k: float = key(s.quantity("W/m/K"), "Thermal conductivity.", unit="W/(m K)", required=True)
-    source: str = key(s.string(), "Where the values come from (shown in reports).")
+    E: float = key(_schema.quantity("Pa"), "Young's modulus.", unit="Pa", required=True)
+    nu: float = key(_schema.quantity(""), "Poisson ratio.", required=True)
+    alpha: float = key(_schema.quantity("1/K"), "Expansion coefficient.", unit="1/K", required=True)
+    density: float = key(_schema.quantity("kg/m^3"), "Density.", unit="kg/m3", required=True)
+    specific_heat: float = key(_schema.quantity("J/kg/K"), "Specific heat.", unit="J/(kg K)", required=True)
+    k: float = key(_schema.quantity("W/m/K"), "Thermal conductivity.", unit="W/(m K)", required=True)
+    source: str = key(_schema.string(), "Where the values come from (shown in reports).")

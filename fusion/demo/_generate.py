@@ -31,10 +31,11 @@ from pathlib import Path
 import numpy as np
 
 from .. import __version__
-from ..campaign import run_campaign
+from ..campaign import foreign_message, is_marked_folder, mark_folder, publish, run_campaign
 from ..config import load_config
 from ..dic import speckle_image
-from ..io import write_netcdf
+from ..errors import InputError
+from ..io import make_temp_folder, write_netcdf
 from ..mechanics import engineering_constants, thermal_layers, transfer_coefficients
 from ._physics import (apply_homography, coupon_mask, demo_homography, fiducial_centres,
                             kirsch_displacement, kirsch_strain)
@@ -44,6 +45,8 @@ log = logging.getLogger(__name__)
 __all__ = ["generate", "run_demo", "DEMO_RUNS", "cache_folder"]
 
 DATA = Path(__file__).parent.parent / "data"
+#: The name in the marker of a demo folder made by :func:`generate`.
+_DEMO_MARK = "demo"
 
 # geometry (m) and loading
 HALF_WIDTH, HALF_HEIGHT, RADIUS = 15e-3, 21e-3, 4e-3
@@ -298,20 +301,27 @@ def generate(folder=None, *, force=False) -> Path:
     """Write the demo inputs and config into ``folder`` (default :func:`cache_folder`).
 
     Deterministic: fixed seeds, so the same version always makes the same data.
-    Returns the path of the demo config inside the folder.
+    Returns the path of the demo config inside the folder. ``folder`` must be new,
+    empty, or a demo folder made here before (it holds fusion's marker): a folder
+    with anything else in it is refused, never replaced.
     """
     folder = Path(folder) if folder is not None else cache_folder()
     cfg_path = folder / "demo.toml"
-    if cfg_path.is_file() and (folder / "truth.json").is_file() and not force:
+    ours = is_marked_folder(folder, _DEMO_MARK)
+    if ours and cfg_path.is_file() and (folder / "truth.json").is_file() and not force:
         return cfg_path
-    tmp = folder.with_name(folder.name + f".partial-{os.getpid()}")
-    shutil.rmtree(tmp, ignore_errors=True)
-    tmp.mkdir(parents=True)
+    if not ours and os.path.lexists(folder):
+        if folder.is_dir() and not folder.is_symlink() and not any(folder.iterdir()):
+            folder.rmdir()       # an empty folder holds nothing to lose
+        else:
+            raise InputError(folder, foreign_message("is not empty and is not a demo folder fusion made "
+                                                     "(no marker inside)"))
+    folder.parent.mkdir(parents=True, exist_ok=True)
+    tmp = make_temp_folder(folder.parent, folder.name, "partial")
     try:
         _generate_into(tmp)
-        if folder.exists():
-            shutil.rmtree(folder)
-        os.replace(tmp, folder)
+        mark_folder(tmp, _DEMO_MARK)
+        publish(tmp, folder, _DEMO_MARK)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise

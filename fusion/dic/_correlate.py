@@ -11,7 +11,8 @@ from numba import njit
 
 from .._bounds import check_pixel_size
 from .._conventions import as_mask, renamed_keyword, short_repr
-from . import _icgn as K
+from .._progress import Progress
+from . import _icgn
 from ._field import DicField
 from ._seed import global_shift, integer_search
 from ._subset_noise import translation_std
@@ -19,7 +20,7 @@ from ._subset_noise import translation_std
 __all__ = ["CorrelationResult", "correlate", "REASON_CODES", "DEFAULT_SUBSET", "DEFAULT_STEP",
            "DEFAULT_WINDOW"]
 
-REASON_CODES = K.REASON_CODES
+REASON_CODES = _icgn.REASON_CODES
 
 _PROPAGATIONS = ("reliability", "seeded")
 _TODO, _GOOD, _FAILED, _EXCLUDED = 0, 1, 2, 3
@@ -89,7 +90,7 @@ class CorrelationResult:
     @property
     def valid(self) -> np.ndarray:
         """Points with a good solution, ``reason == 0``."""
-        return self.reason == K.OK
+        return self.reason == _icgn.OK
 
     def to_field(self, *, pixel_size=None) -> DicField:
         """The displacement field in the specimen frame (x right, y up).
@@ -244,33 +245,34 @@ class _Solver:
 
     def __init__(self, ref, deformed, mask, rows, cols, half, opts):
         self.ref, self.deformed, self.mask = ref, deformed, mask
-        self.coef = K.prefilter(deformed)
-        self.gx, self.gy = K.reference_gradients(K.prefilter(ref))
+        self.coef = _icgn.prefilter(deformed)
+        self.gx, self.gy = _icgn.reference_gradients(_icgn.prefilter(ref))
         self.rows, self.cols, self.half, self.opts = rows, cols, half, opts
         shape = rows.shape
         self.p = np.full(shape + (6,), np.nan)
         self.zncc = np.full(shape, np.nan)
         self.iters = np.zeros(shape, dtype=np.int32)
-        self.reason = np.full(shape, K.UNREACHED, dtype=np.int8)
+        self.reason = np.full(shape, _icgn.UNREACHED, dtype=np.int8)
         self.sssig = np.full(shape + (2,), np.nan)
         self.noise = np.full(shape + (4,), np.nan)
         self.status = np.full(shape, _TODO, dtype=np.int8)
         outside = ~mask[rows, cols]
         self.status[outside] = _EXCLUDED
-        self.reason[outside] = K.OUTSIDE_ROI
+        self.reason[outside] = _icgn.OUTSIDE_ROI
         # flat subsets (saturated or painted-over areas) can neither seed nor guide:
         # flag them before propagation instead of letting them fail one by one
         var = _box_variance(ref, rows, cols, half)
         flat = ~outside & (var <= 1e-10 * max(float(ref.var()), 1e-300))
         self.status[flat] = _EXCLUDED
-        self.reason[flat] = K.LOW_CONTRAST
+        self.reason[flat] = _icgn.LOW_CONTRAST
+        self.bar = None       # a Progress of the points solved, when one is shown
 
     def refine(self, flat, p0):
         """IC-GN on the flat grid indices ``flat`` from guesses ``p0``; returns good flags."""
         o = self.opts
         r = self.rows.ravel()[flat].astype(np.int64)
         c = self.cols.ravel()[flat].astype(np.int64)
-        p, z, it, reason, ss, noise = K.icgn_batch(
+        p, z, it, reason, ss, noise = _icgn.icgn_batch(
             self.ref, self.gx, self.gy, self.coef, self.mask, r, c,
             np.ascontiguousarray(p0, dtype=np.float64), self.half, o["max_iterations"],
             o["tolerance"], o["min_zncc"], o["min_fill"])
@@ -282,8 +284,10 @@ class _Solver:
         self.reason[ii, jj] = reason
         self.sssig[ii, jj] = ss
         self.noise[ii, jj] = noise
-        good = reason == K.OK
+        good = reason == _icgn.OK
         self.status[ii, jj] = np.where(good, _GOOD, _FAILED)
+        if self.bar is not None:
+            self.bar.advance_to(int(np.count_nonzero((self.status == _GOOD) | (self.status == _FAILED))))
         return good
 
     def seed(self, flat, centre):
@@ -299,7 +303,7 @@ class _Solver:
             if not z >= o["min_zncc"] * 0.5:  # a loose gate: IC-GN decides
                 keep[k] = False
                 self.status[i, j] = _FAILED
-                self.reason[i, j] = K.SEED_FAILED
+                self.reason[i, j] = _icgn.SEED_FAILED
                 self.zncc[i, j] = z
         if keep.any():
             good = self.refine(flat[keep], p0[keep])
@@ -308,11 +312,11 @@ class _Solver:
             weak = good & ~(z >= max(o["min_zncc"], _SEED_ZNCC))
             wi, wj = np.divmod(flat[keep][weak], self.rows.shape[1])
             self.status[wi, wj] = _FAILED
-            self.reason[wi, wj] = K.SEED_FAILED
+            self.reason[wi, wj] = _icgn.SEED_FAILED
             good &= ~weak
             bad = flat[keep][~good]
             bi, bj = np.divmod(bad, self.rows.shape[1])
-            self.reason[bi, bj] = np.where(self.reason[bi, bj] == K.OK, K.SEED_FAILED,
+            self.reason[bi, bj] = np.where(self.reason[bi, bj] == _icgn.OK, _icgn.SEED_FAILED,
                                            self.reason[bi, bj])
             return flat[keep][good]
         return flat[:0]
@@ -358,7 +362,7 @@ def _seed_candidates(status, count):
 
 def correlate(reference, deformed, *, subset=DEFAULT_SUBSET, step=DEFAULT_STEP, region=None,
               seeds=None, max_iterations=50, tolerance=1e-4, min_zncc=0.8, propagation="reliability",
-              search=None, min_fill=0.6, roi=None, seed_points=None):
+              search=None, min_fill=0.6, progress=False, roi=None, seed_points=None):
     """Displacements between two speckle images by subset correlation.
 
     Parameters
@@ -403,6 +407,9 @@ def correlate(reference, deformed, *, subset=DEFAULT_SUBSET, step=DEFAULT_STEP, 
         shift found by phase correlation; default ``max(subset, 16)``.
     min_fill : float
         Fraction of a subset's pixels that must lie inside the mask.
+    progress : bool
+        Points solved so far: a bar on stderr when it is a terminal, else a line at
+        every quarter.
     roi, seed_points
         Deprecated spellings of ``region`` (as ``(row0, col0, row1, col1)``) and
         ``seeds`` (as ``(row, col)``); they warn and are removed in the next
@@ -514,6 +521,8 @@ def correlate(reference, deformed, *, subset=DEFAULT_SUBSET, step=DEFAULT_STEP, 
     else:
         count = 4 if propagation == "reliability" else max(3, min(8, min(ny, nx) // 4))
         picked = _seed_candidates(solver.status, count)
+    solver.bar = Progress(int(np.count_nonzero(solver.status == _TODO)), desc="correlation", unit="points",
+                          enabled=progress)
     good = solver.seed(picked, centre)
     if good.size == 0 and seeds is None:
         good = solver.seed(_seed_candidates(solver.status, 6), centre)
@@ -540,16 +549,17 @@ def correlate(reference, deformed, *, subset=DEFAULT_SUBSET, step=DEFAULT_STEP, 
         picks = rest[np.linspace(0, rest.size - 1, min(4, rest.size)).astype(np.int64)]
         solver.seed(np.unique(picks), centre)
     left = solver.status == _TODO
-    solver.reason[left] = K.UNREACHED
+    solver.reason[left] = _icgn.UNREACHED
+    solver.bar.close()
 
-    good_mask = solver.reason == K.OK
+    good_mask = solver.reason == _icgn.OK
     p = np.where(good_mask[..., None], solver.p, np.nan)
     attrs = dict(subset=subset, step=step, propagation=propagation, tolerance=float(tolerance),
                  max_iterations=max_iterations, min_zncc=float(min_zncc),
                  image_shape=(h, w), global_shift=centre,
                  method="IC-GN, first-order shape function, bicubic B-spline interpolation, "
                         "zero-normalised criterion")
-    converged = np.isin(solver.reason, (K.OK, K.LOW_ZNCC))
+    converged = np.isin(solver.reason, (_icgn.OK, _icgn.LOW_ZNCC))
     nz = solver.noise
     u_std, v_std = translation_std(np.where(good_mask, solver.zncc, np.nan), nz[..., 2], nz[..., 3],
                                    nz[..., 0], nz[..., 1], p[..., 0], p[..., 3])

@@ -6,6 +6,10 @@ write_netcdf, read_netcdf, netcdf_form
     Results through xarray, written atomically; the in-memory form of a written file.
 atomic_path, atomic_write_text, atomic_write_bytes, sha256_file, safe_child
     Safe output helpers.
+temp_name, parse_temp_name, make_temp_folder, this_host
+    Names of fusion's own temporary entries (host and process id inside).
+content_digest
+    A fast hash of a file's content (change detection).
 input_file
     An input path checked to be a readable regular file (named in the message).
 product_mark, MARK_KEY
@@ -23,7 +27,8 @@ PLAUSIBLE, STRAIN_UNITS, check_strain_ranges, check_temperatures, check_ratio, c
     likely unit slip with one sentence naming the file, the key and the unit.
 """
 
-from ._atomic import atomic_path, atomic_write_bytes, atomic_write_text, safe_child, sha256_file
+from ._atomic import (atomic_path, atomic_write_bytes, atomic_write_text, content_digest, make_temp_folder,
+                      parse_temp_name, safe_child, sha256_file, temp_name, this_host)
 from ._dic import read_dic_field
 from ._images import read_image
 from ._frames import FrameStack, open_frames
@@ -37,6 +42,7 @@ from ._signals import LoadSignal, read_frame_times, read_load_signal
 
 __all__ = [
     "atomic_path", "atomic_write_bytes", "atomic_write_text", "safe_child", "sha256_file", "input_file",
+    "temp_name", "parse_temp_name", "make_temp_folder", "this_host", "content_digest",
     "netcdf_form", "read_netcdf", "write_netcdf",
     "open_frames", "FrameStack", "read_load_signal", "LoadSignal", "read_frame_times", "read_thermal_maps",
     "MAP_QUANTITIES",

@@ -1,8 +1,14 @@
-"""Atomic file writing and output-folder safety.
+"""Atomic file writing, names of fusion's own temporary entries, and output-folder safety.
 
 Every output is written to a temporary name in the destination folder and
 renamed into place (``os.replace`` is atomic on POSIX within one file system),
 so a reader never sees a half-written file.
+
+A temporary entry carries a name of fusion's own making, with the host and the
+process that made it (:func:`temp_name`, :func:`parse_temp_name`): start-up
+cleanup removes only such entries, and only when their process is gone. Files
+and folders are created with the default modes (``0o666``/``0o777``), so the
+user's umask decides their permissions exactly as for any other program.
 """
 
 from __future__ import annotations
@@ -10,12 +16,55 @@ from __future__ import annotations
 import contextlib
 import hashlib
 import os
-import tempfile
+import re
+import secrets
+import socket
 from pathlib import Path
+
+import xxhash
 
 from ..errors import InputError
 
-__all__ = ["atomic_path", "atomic_write_text", "atomic_write_bytes", "sha256_file", "safe_child"]
+__all__ = ["atomic_path", "atomic_write_text", "atomic_write_bytes", "sha256_file", "safe_child",
+           "temp_name", "parse_temp_name", "make_temp_folder", "this_host", "content_digest"]
+
+#: Kinds of temporary entries: a file being written, a run folder being built, a
+#: result moved aside while its replacement is put in place.
+TEMP_KINDS = ("tmp", "partial", "old")
+_TEMP = re.compile(r"\.(?P<base>.+)\.fusion-(?P<kind>tmp|partial|old)-(?P<host>[A-Za-z0-9-]{1,40})"
+                   r"-(?P<pid>[0-9]{1,10})-(?P<token>[0-9a-f]{8})")
+
+
+def this_host() -> str:
+    """This machine's name as it appears in temporary names (letters, digits and ``-``)."""
+    return re.sub(r"[^A-Za-z0-9-]", "-", socket.gethostname())[:40] or "host"
+
+
+def temp_name(base: str, kind: str) -> str:
+    """A hidden name of fusion's own for a temporary entry beside ``base``.
+
+    ``.BASE.fusion-KIND-HOST-PID-TOKEN``: the host and process id tell start-up
+    cleanup whether the process that made it is still alive; the random token
+    keeps two entries of one process apart.
+    """
+    if kind not in TEMP_KINDS:
+        raise ValueError(f"kind: expected one of {TEMP_KINDS!r}, got {kind!r}")
+    return f".{base}.fusion-{kind}-{this_host()}-{os.getpid()}-{secrets.token_hex(4)}"
+
+
+def parse_temp_name(name: str):
+    """``(base, kind, host, pid)`` of a name made by :func:`temp_name`, else None."""
+    m = _TEMP.fullmatch(name)
+    if m is None:
+        return None
+    return m["base"], m["kind"], m["host"], int(m["pid"])
+
+
+def make_temp_folder(parent, base: str, kind: str = "partial") -> Path:
+    """Create an empty folder named by :func:`temp_name` in ``parent`` (permissions from the umask)."""
+    path = Path(parent) / temp_name(base, kind)
+    os.mkdir(path, 0o777)
+    return path
 
 
 @contextlib.contextmanager
@@ -33,13 +82,9 @@ def atomic_path(path, *, overwrite: bool = False):
     if path.exists() and not overwrite:
         raise InputError(path, "exists already; pass --overwrite to replace it")
     path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    os.close(fd)
-    tmp = Path(tmp)
-    # mkstemp makes the file private (0600); results should follow the user's umask
-    umask = os.umask(0)
-    os.umask(umask)
-    os.chmod(tmp, 0o666 & ~umask)
+    tmp = path.parent / temp_name(path.name, "tmp")
+    # O_EXCL | O_NOFOLLOW: never write through an entry that is there already
+    os.close(os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL | os.O_NOFOLLOW, 0o666))
     try:
         yield tmp
         os.replace(tmp, path)
@@ -59,6 +104,19 @@ def atomic_write_bytes(path, data: bytes, *, overwrite: bool = False) -> Path:
 def atomic_write_text(path, text: str, *, overwrite: bool = False) -> Path:
     """Write UTF-8 ``text`` to ``path`` atomically; returns ``path``."""
     return atomic_write_bytes(path, text.encode("utf-8"), overwrite=overwrite)
+
+
+def content_digest(path, *, chunk: int = 1 << 22) -> str:
+    """Hex XXH3-128 digest of a file's bytes, read in chunks (constant memory).
+
+    A fast non-cryptographic hash: it tells whether content changed, not whether
+    someone forged it (the provenance of a result keeps SHA-256, :func:`sha256_file`).
+    """
+    h = xxhash.xxh3_128()
+    with open(path, "rb") as f:
+        while block := f.read(chunk):
+            h.update(block)
+    return h.hexdigest()
 
 
 def sha256_file(path, *, chunk: int = 1 << 22) -> str:

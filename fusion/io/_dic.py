@@ -14,7 +14,7 @@ import numpy as np
 
 from ..dic._field import DicField
 from ..errors import InputError
-from ._guard import MAX_READ_BYTES, check_bytes, decoding, h5_dataset, hdf5_stays_inside, input_file
+from ._guard import MAX_READ_BYTES, check_bytes, clip, decoding, h5_dataset, hdf5_stays_inside, input_file
 from ._matfile import check_mat5
 from ._plausible import STRAIN_UNITS
 
@@ -94,7 +94,7 @@ def _load_csv(path, names, max_bytes):
         table = pd.read_csv(path, sep=sep, comment="#", skipinitialspace=True, engine="c"
                             if sep != r"\s+" else "python", encoding="utf-8-sig")
     except (pd.errors.ParserError, UnicodeDecodeError, ValueError) as e:
-        raise InputError(path, f"could not be parsed as a delimited table ({e})") from e
+        raise InputError(path, f"could not be parsed as a delimited table ({clip(e)})") from e
     n_last = _last_row_fields(path, sep)
     if len(table) and n_last is not None and n_last < len(first):
         # pandas pads a short last row with NaN: a copy cut mid-line would pass as a missing point

@@ -30,13 +30,28 @@ import numpy as np
 
 from ..errors import InputError
 
-__all__ = ["MAX_READ_BYTES", "input_file", "check_bytes", "npy_header", "h5_dataset", "hdf5_stays_inside",
-           "decoding", "quiet_logger", "text_rows_warning"]
+__all__ = ["MAX_READ_BYTES", "QUOTE_CHARS", "input_file", "check_bytes", "npy_header", "h5_dataset",
+           "hdf5_stays_inside", "decoding", "quiet_logger", "text_rows_warning", "clip", "quote"]
 
 #: Largest array a reader materialises in memory at once, bytes (2 GiB, the default
 #: ``[compute] memory_budget``). Frame stacks are memory-mapped or streamed and are not
 #: bound by it; maps, correlation fields and images are.
 MAX_READ_BYTES = 2 * 1024**3
+#: Most characters of a file's content (a header row, a parser's complaint) quoted in a message.
+QUOTE_CHARS = 80
+
+
+def clip(text, limit: int = QUOTE_CHARS) -> str:
+    """``text`` cut to ``limit`` characters, saying how long it was (messages quote files)."""
+    text = str(text)
+    if len(text) <= limit:
+        return text
+    return f"{text[:limit]}... ({len(text)} characters)"
+
+
+def quote(value, limit: int = QUOTE_CHARS) -> str:
+    """``repr(value)`` cut to ``limit`` characters (see :func:`clip`)."""
+    return clip(repr(value), limit)
 
 
 def input_file(path, what: str, *, missing: str = "does not exist") -> Path:
@@ -71,8 +86,12 @@ def input_file(path, what: str, *, missing: str = "does not exist") -> Path:
         raise InputError(path, f"is not a regular file (a pipe, device or socket); expected {what}")
     try:
         # open once: permissions, and files a network share lists but cannot serve
-        with open(path, "rb"):
-            pass
+        with open(path, "rb") as fh:
+            if st.st_size == 0 and fh.read(1):
+                # a size of 0 with content: a file the system makes up when read (/proc, /sys),
+                # such as a process's environment; never read, never quoted
+                raise InputError(path, f"is a file of the operating system (no size, content made up when "
+                                 f"read, as in /proc); expected {what}")
     except PermissionError:
         raise InputError(path, f"cannot be read: permission denied (expected {what})") from None
     except OSError as e:
@@ -228,7 +247,7 @@ def decoding(path, what: str):
         raise InputError(path, f"decoding it as {what} needs more memory than is available; the "
                          "file may be corrupt or larger than expected") from e
     except Exception as e:  # noqa: BLE001 - corrupt input makes decoders raise anything
-        text = str(e).strip() or type(e).__name__
+        text = clip(str(e).strip() or type(e).__name__)      # a decoder may quote the file
         raise InputError(path, f"cannot be read as {what} ({text})") from e
 
 

@@ -28,7 +28,8 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import InputError
-from ._guard import check_bytes, decoding, hdf5_stays_inside, input_file, quiet_logger, text_rows_warning
+from ._guard import (check_bytes, clip, decoding, hdf5_stays_inside, input_file, quiet_logger, quote,
+                     text_rows_warning)
 from ._plausible import check_temperatures
 
 __all__ = ["read_thermal_maps", "MAP_QUANTITIES"]
@@ -149,7 +150,7 @@ def _read_grid(path):
         with text_rows_warning():
             grid = np.loadtxt(path, delimiter=delim, ndmin=2, comments="#", encoding="utf-8-sig")
     except (ValueError, UnicodeDecodeError) as e:
-        raise InputError(path, f"expected a headerless numeric grid, one image row per line ({e})") from e
+        raise InputError(path, f"expected a headerless numeric grid, one image row per line ({clip(e)})") from e
     if grid.size == 0:
         raise InputError(path, "is empty; expected a headerless numeric grid, one image row per line")
     return grid
@@ -162,13 +163,13 @@ def _read_long_csv(path, variables, max_bytes):
     line, delim, names = _header(path)
     low = [n.lower() for n in names]
     if "row" not in low or "col" not in low:
-        raise InputError(path, f"a map table needs columns row, col and T0, delta_T...; columns are {names!r}. "
+        raise InputError(path, f"a map table needs columns row, col and T0, delta_T...; columns are {quote(names)}. "
                          "For one grid per quantity pass a mapping {quantity: path}")
     wanted = _names(variables)
     present = {q: names[low.index(n.lower())] for q, n in wanted.items() if n.lower() in low}
     missing = [q for q in (*_REQUIRED, _missing_range(present)) if q is not None and q not in present]
     if missing:
-        raise InputError(path, f"has no column {wanted[missing[0]]!r} for {missing[0]}; columns are {names!r} "
+        raise InputError(path, f"has no column {wanted[missing[0]]!r} for {missing[0]}; columns are {quote(names)} "
                          f"(map the names with thermal.variables)")
     cols = [low.index("row"), low.index("col")] + [names.index(present[q]) for q in present]
     try:
@@ -176,7 +177,7 @@ def _read_long_csv(path, variables, max_bytes):
             data = np.loadtxt(path, delimiter=delim, skiprows=line + 1, usecols=cols, ndmin=2, comments="#",
                               encoding="utf-8-sig")
     except ValueError as e:
-        raise InputError(path, f"expected numbers in columns {[names[c] for c in cols]!r} ({e})") from e
+        raise InputError(path, f"expected numbers in columns {quote([names[c] for c in cols])} ({clip(e)})") from e
     if data.shape[0] == 0:
         raise InputError(path, "has a header but no data rows; expected one row per IR pixel")
     rc = data[:, :2]

@@ -22,6 +22,7 @@ import struct
 import zlib
 
 from ..errors import InputError
+from ._guard import clip
 
 __all__ = ["check_mat5"]
 
@@ -112,4 +113,4 @@ def check_mat5(path, wanted, *, max_bytes: int):
     except InputError:  # a ValueError too: already says what is wrong
         raise
     except (ValueError, struct.error, zlib.error) as e:
-        raise InputError(path, f"is a damaged MAT-file ({e})") from e
+        raise InputError(path, f"is a damaged MAT-file ({clip(e)})") from e

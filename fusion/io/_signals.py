@@ -15,7 +15,7 @@ import numpy as np
 
 from ..errors import InputError
 from .._conventions import short_repr
-from ._guard import MAX_READ_BYTES, check_bytes, input_file, npy_header, text_rows_warning
+from ._guard import MAX_READ_BYTES, check_bytes, clip, input_file, npy_header, quote, text_rows_warning
 
 __all__ = ["LoadSignal", "read_load_signal", "read_frame_times"]
 
@@ -110,7 +110,7 @@ def _header(path):
 def _column(path, names, want, role):
     low = [n.lower() for n in names]
     if want.lower() not in low:
-        raise InputError(path, f"has no {role} column {want!r}; columns are {names!r}")
+        raise InputError(path, f"has no {role} column {want!r}; columns are {quote(names)}")
     return low.index(want.lower())
 
 
@@ -158,7 +158,7 @@ def read_load_signal(path, *, time_column="time", load_column="load", frame_colu
             data = np.loadtxt(path, delimiter=delim, skiprows=line + 1, usecols=cols, ndmin=2, comments="#",
                               converters=conv, encoding="utf-8-sig", dtype=np.float64)
     except ValueError as e:
-        raise InputError(path, f"expected numbers in columns {[names[c] for c in cols]!r} ({e})") from e
+        raise InputError(path, f"expected numbers in columns {quote([names[c] for c in cols])} ({clip(e)})") from e
     if data.shape[0] < _MIN_SAMPLES:
         raise InputError(path, f"has {data.shape[0]} data rows; at least {_MIN_SAMPLES} are needed")
     t, v = data[:, 0].copy(), data[:, 1].copy()
@@ -204,7 +204,7 @@ def read_frame_times(path, *, column="time", n_frames=None) -> np.ndarray:
         try:
             t = np.load(path, allow_pickle=False)
         except (ValueError, EOFError, OSError) as e:
-            raise InputError(path, f"expected a 1-D numeric array of frame times ({e})") from e
+            raise InputError(path, f"expected a 1-D numeric array of frame times ({clip(e)})") from e
     else:
         _text_file(path, "frame times (.npy, or a text file with one time per line)")
         line, delim, names = _header(path)
@@ -219,7 +219,7 @@ def read_frame_times(path, *, column="time", n_frames=None) -> np.ndarray:
                 t = np.loadtxt(path, delimiter=delim, skiprows=0 if first_is_data else line + 1, ndmin=1,
                                comments="#", usecols=col)
         except ValueError as e:
-            raise InputError(path, f"expected numeric frame times ({e})") from e
+            raise InputError(path, f"expected numeric frame times ({clip(e)})") from e
     t = np.asarray(t)
     if t.ndim != 1 or t.dtype.kind not in "iuf":
         raise InputError(path, f"expected a 1-D list of frame times, got shape {t.shape!r} dtype {t.dtype!s}")

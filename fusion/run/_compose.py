@@ -59,7 +59,7 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
     warnings: list[str] = []
 
     load_range = run_load_range(run)
-    ranges, disp = strain_side(run, load_range=load_range)
+    ranges, disp = strain_side(run, load_range=load_range, progress=progress)
 
     budget = cfg.compute.memory_budget
     thermal, t_valid, t_info, _ = thermal_side(run, budget=budget, progress=progress)

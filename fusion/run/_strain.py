@@ -68,7 +68,7 @@ def _ranges(path, fn, *args, **kw):
         raise InputError(path, f"no strain ranges from this field: {e}") from e
 
 
-def strain_side(run, *, load_range=None):
+def strain_side(run, *, load_range=None, progress=False):
     """Strain ranges of a run on its correlation grid, with the displacement range when known.
 
     Returns
@@ -119,7 +119,8 @@ def strain_side(run, *, load_range=None):
         fields = []
         for i, img in enumerate(imgs[1:], 1):
             try:
-                res = correlate(imgs[0], img, subset=spec.subset, step=spec.step, region=roi)
+                res = correlate(imgs[0], img, subset=spec.subset, step=spec.step, region=roi,
+                                progress=progress)
             except ValueError as e:
                 raise InputError(spec.images[i], f"correlation: {e}") from e
             ok = np.asarray(res.converged).mean() if np.size(res.converged) else 0.0

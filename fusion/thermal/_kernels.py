@@ -70,13 +70,14 @@ from __future__ import annotations
 
 import math
 import mmap
-import sys
 import threading
 
 import numpy as np
 from llvmlite import ir
 from numba import njit, prange, types
 from numba.extending import intrinsic
+
+from .._progress import Progress
 
 __all__ = ["accumulate", "solve", "stream", "stream_dask", "is_dask", "work_dtype", "block_sums",
            "prefetch", "prefetch_group", "atan2_deg", "gram", "band_rows", "banded", "vector_view",
@@ -471,27 +472,6 @@ _KERNEL_LOCK = threading.Lock()
 _BLOCK_BYTES = 32 * 2**20
 
 
-class _Progress:
-    """A one-line progress bar on stderr, shown only on a terminal."""
-
-    def __init__(self, total, enabled):
-        self.total = total
-        self.enabled = bool(enabled) and sys.stderr.isatty()
-        self.last = -1
-
-    def update(self, done):
-        if not self.enabled:
-            return
-        pct = int(100 * done / max(self.total, 1))
-        if pct != self.last:
-            self.last = pct
-            bar = "#" * (pct // 4)
-            sys.stderr.write(f"\rlock-in [{bar:<25}] {pct:3d}% ({done}/{self.total} frames)")
-            if done >= self.total:
-                sys.stderr.write("\n")
-            sys.stderr.flush()
-
-
 def _mmap_of(arr):
     """The mmap object behind a memory-mapped array and the byte offset of ``arr`` in it."""
     a = arr
@@ -591,12 +571,11 @@ def stream_dask(frames, basis, with_max, chunk_frames, progress):
     while len(parts) > 1:  # pairwise tree: few partial sums alive at once
         parts = [dask.delayed(_add_sums)(parts[i], parts[i + 1]) if i + 1 < len(parts) else parts[i]
                  for i in range(0, len(parts), 2)]
-    if progress and sys.stderr.isatty():
-        from dask.diagnostics import ProgressBar
+    from dask.callbacks import Callback
 
-        with ProgressBar(out=sys.stderr):
-            (acc, vmax, vmin), = dask.compute(parts[0])
-    else:
+    n_tasks = len(dict(parts[0].__dask_graph__()))
+    with Progress(n_tasks, desc="lock-in", unit="tasks", enabled=progress) as bar, \
+            Callback(posttask=lambda *a: bar.update()):
         (acc, vmax, vmin), = dask.compute(parts[0])
     return acc, vmax, vmin, ref
 
@@ -634,17 +613,17 @@ def stream(frames, basis, with_max, chunk_frames, progress):
     acc = np.empty((ny // k, N_SUMS, k * nx))    # cleared by the first block
     vmax = np.full((ny // k, k * nx), -np.inf, basis.dtype) if with_max else None
     vmin = np.full((ny // k, k * nx), np.inf, basis.dtype) if with_max else None
-    bar = _Progress(n, progress)
     ref = None
-    for f0 in range(0, n, chunk_frames):
-        f1 = min(n, f0 + chunk_frames)
-        raw = source[f0:f1] if source is not None else frames[f0:f1]
-        block = _kernel_block(raw)
-        if ref is None:
-            ref = banded(np.array(block[0], dtype=np.float64), k)
-        _run_kernel(banded(block, k), basis[f0:f1], ref, acc, vmax, vmin, f0 == 0)
-        if isinstance(raw, np.ndarray):
-            _release(raw)
-        del raw, block
-        bar.update(f1)
+    with Progress(n, desc="lock-in", unit="frames", enabled=progress) as bar:
+        for f0 in range(0, n, chunk_frames):
+            f1 = min(n, f0 + chunk_frames)
+            raw = source[f0:f1] if source is not None else frames[f0:f1]
+            block = _kernel_block(raw)
+            if ref is None:
+                ref = banded(np.array(block[0], dtype=np.float64), k)
+            _run_kernel(banded(block, k), basis[f0:f1], ref, acc, vmax, vmin, f0 == 0)
+            if isinstance(raw, np.ndarray):
+                _release(raw)
+            del raw, block
+            bar.advance_to(f1)
     return acc, vmax, vmin, ref

@@ -325,7 +325,7 @@ def lockin(frames, *, frequency=None, times=None, frame_rate=None, load=None, lo
         (about 20 blocks with a progress bar); memory maps and lazy stacks in blocks of
         about 32 MiB, each released from memory once added; dask arrays as chunked.
     progress : bool
-        Show a progress bar on stderr when it is a terminal.
+        A bar on stderr when it is a terminal, else a line at every quarter.
     precision : {"auto", "float64"}
         Arithmetic of the pass. ``"auto"`` multiplies float32 and 8/16-bit integer
         stacks in float32 (sums widened to float64 every 64 frames, see Notes) and
