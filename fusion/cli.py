@@ -92,7 +92,7 @@ def _parser() -> argparse.ArgumentParser:
     b.add_argument("--quick", action="store_true", help="small sizes (CI smoke test)")
     b.add_argument("--json", action="store_true", help="print one flat JSON object")
     b.add_argument("--only", action="append", metavar="NAME",
-                   help="run only these benchmarks (lockin, dic, predict, heat, campaign)")
+                   help="run only these benchmarks (lockin, dic, predict, heat, lateral, campaign)")
     return p
 
 

@@ -20,7 +20,9 @@ __all__ = [
 ]
 
 #: Candidate sources of the thermoelastic signal, in the order of the source map.
-SOURCES = ("coating", "resin_layer", "surface_ply", "laminate", "model")
+#: ``lateral`` (the heat model with in-plane conduction) is evaluated only where a config
+#: switches it on (``lateral_heat``); it comes last so that the other codes keep their values.
+SOURCES = ("coating", "resin_layer", "surface_ply", "laminate", "model", "lateral")
 
 SOURCE_LONG_NAMES = {
     "coating": "coating (paint) layer, adiabatic",
@@ -28,6 +30,7 @@ SOURCE_LONG_NAMES = {
     "surface_ply": "surface ply, adiabatic",
     "laminate": "whole laminate, homogenised",
     "model": "through-thickness heat-conduction model at the run frequency",
+    "lateral": "heat-conduction model with heat flowing along the surface too (lateral), at the run frequency",
 }
 
 
@@ -63,6 +66,9 @@ def _maps():
                      "distance to the nearest edge of the strain data (hole, mask, edge of the "
                      "correlated region), IR pixels"),
         VariableSpec("phase_model", yx, "degree", "phase lag of the heat-model surface response"),
+        VariableSpec("phase_lateral", yx, "degree", "phase lag of the lateral heat model's surface response"),
+        VariableSpec("lateral_edge", yx, "1", "pixel within an in-plane diffusion length of no data or of the "
+                     "grid's border, where the lateral heat model cannot know the boundary", dtype="int8"),
         VariableSpec("surface_fraction", yx, "1", "fraction beta of the surface-ply response in measured = beta*surface_ply + (1-beta)*laminate"),
         VariableSpec("source_probability", ("source", "y", "x"), "1", "relative support of each source"),
         VariableSpec("source_layer", yx, "1", "best-supported source of the thermoelastic signal", dtype="int8"),
@@ -82,6 +88,9 @@ def _maps():
 
 #: The data model of result.nc, by variable name.
 RESULT_VARIABLES: dict[str, VariableSpec] = _maps()
+
+#: Flag meanings of the 0/1 maps.
+_BINARY_FLAGS = {"valid": "invalid valid", "lateral_edge": "interior near_edge"}
 
 #: Source-map categories beyond the sources themselves.
 EXTRA_FLAGS = {"indistinguishable": 100, "no_source_fits": 101, "no_data": -1}
@@ -159,9 +168,9 @@ def result_dataset(maps: dict, *, attrs: dict | None = None, sources=None, coord
             var_attrs["flag_masks"] = np.array(masks, dtype="int8")
             var_attrs["flag_meanings"] = " ".join(meanings)
             var_attrs.pop("units")
-        if name == "valid":
+        if name in _BINARY_FLAGS:
             var_attrs["flag_values"] = np.array([0, 1], dtype="int8")
-            var_attrs["flag_meanings"] = "invalid valid"
+            var_attrs["flag_meanings"] = _BINARY_FLAGS[name]
             var_attrs.pop("units")
         data_vars[name] = xr.Variable(spec.dims, a, attrs=var_attrs)
     ds = xr.Dataset(data_vars)

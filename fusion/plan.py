@@ -6,8 +6,11 @@ any measured data, the surface response of the through-thickness heat model from
 modulus and phase lag, the adiabatic value of every candidate source beside it, the
 thermal diffusion length of every layer, the contribution of each layer to the in-phase
 response and the band in which the response stays within a tolerance (2 % by default)
-of each source. It writes ``plan.nc`` and ``plan.png`` into the output folder (replacing its
-own earlier plan, never another file) and prints a short table.
+of each source, and how far heat flowing along the surface blurs stress gradients (the
+in-plane diffusion lengths along and across the surface ply's fibres, and the shortest
+wavelength of a strain variation the surface response still passes at half contrast). It
+writes ``plan.nc`` and ``plan.png`` into the output folder (replacing its own earlier plan,
+never another file) and prints a short table.
 
 The plan is a model estimate to help choose loading frequencies; it supports engineering
 judgement and does not replace the laboratory's procedures, the applicable test standards
@@ -26,6 +29,7 @@ from . import __version__
 from .errors import InputError
 from .io import MARK_KEY, atomic_path, product_mark, write_netcdf
 from .mechanics._heat import diffusion_length, frequency_band, phase_lag, surface_weights
+from .mechanics._lateral_reach import contrast_wavelength
 from .mechanics._predict import REFERENCE_T0, source_coefficients, thermal_layers
 from .report import band_edges_text
 
@@ -70,8 +74,14 @@ def frequency_plan(laminate, strain_range, *, frequencies=None, tolerance=0.02):
         ``layer_depth``, ``layer_conductivity``, ``layer_heat_capacity``, ``layer_ratio``),
         ``adiabatic_ratio``, ``band_low`` and ``band_high`` (source; Hz, NaN where none:
         in-phase part within tolerance), ``strict_band_low`` and ``strict_band_high``
-        (the complex response within tolerance, i.e. a small phase lag as well), and the
-        model's limits ``limit_low_frequency`` and ``limit_high_frequency``.
+        (the complex response within tolerance, i.e. a small phase lag as well), the
+        model's limits ``limit_low_frequency`` and ``limit_high_frequency``, and the in-plane
+        blur: ``blur_length_along`` and ``blur_length_across`` (frequency; m), the surface
+        ply's in-plane diffusion lengths along and across its fibres, and
+        ``resolved_wavelength_along`` / ``resolved_wavelength_across`` (frequency; m), the
+        shortest wavelength of a variation of the strain state along / across those fibres
+        whose surface response keeps half the uniform-field modulus (a feature much smaller
+        is blurred out; NaN where the response never falls that far).
         Attributes: the laminate, strain range, tolerance, ``band_<source>`` = [low, high]
         in Hz, and the caution.
 
@@ -82,7 +92,9 @@ def frequency_plan(laminate, strain_range, *, frequencies=None, tolerance=0.02):
     adiabatic values. The low-frequency limit is the rho-c weighted mean of all layers
     (coating and resin layers included, so it differs slightly from ``laminate``, which
     homogenises the plies alone); with convection on a face the response falls to 0 at
-    very low frequency instead.
+    very low frequency instead. The resolved wavelengths come from the lateral heat model
+    (:func:`fusion.mechanics.contrast_wavelength`), every layer with its in-plane
+    conductivities.
 
     References
     ----------
@@ -112,6 +124,12 @@ def frequency_plan(laminate, strain_range, *, frequencies=None, tolerance=0.02):
     rhoc = np.array([la.volumetric_heat_capacity for la in layers])
     k3 = np.array([la.conductivity for la in layers])
     depth = np.concatenate([[0.0], np.cumsum(thick)[:-1]])
+    first = laminate.plies[0]
+    fibre = float(first.angle + laminate.zero_direction)
+    rc_ply = first.material.volumetric_heat_capacity
+    conv = dict(convection_front=laminate.convection_front, convection_back=laminate.convection_back)
+    resolved = {side: contrast_wavelength(layers, e, f, fibre + turn, **conv)
+                for side, turn in (("along", 0.0), ("across", 90.0))}
 
     def var(dims, data, units, long_name):
         return xr.Variable(dims, np.asarray(data), {"units": units, "long_name": long_name})
@@ -150,6 +168,16 @@ def frequency_plan(laminate, strain_range, *, frequencies=None, tolerance=0.02):
                                        "low-frequency limit: rho-c weighted mean of the layers (adiabatic faces)"),
             "limit_high_frequency": var((), float(s[0]), "1",
                                         "high-frequency limit: adiabatic dT/T0 of the top layer"),
+            "blur_length_along": var(F, diffusion_length(first.material.k1, rc_ply, f), "m",
+                                     "in-plane diffusion length of the surface ply along its fibres"),
+            "blur_length_across": var(F, diffusion_length(first.material.k2, rc_ply, f), "m",
+                                      "in-plane diffusion length of the surface ply across its fibres"),
+            "resolved_wavelength_along": var(F, resolved["along"], "m",
+                                             "shortest wavelength of a strain variation along the surface "
+                                             "ply's fibres passed at half contrast"),
+            "resolved_wavelength_across": var(F, resolved["across"], "m",
+                                              "shortest wavelength of a strain variation across the surface "
+                                              "ply's fibres passed at half contrast"),
         },
         coords={
             "frequency": var(F, f, "Hz", "loading frequency"),
@@ -165,6 +193,7 @@ def frequency_plan(laminate, strain_range, *, frequencies=None, tolerance=0.02):
             "strain_range": e, "tolerance": float(tolerance),
             "convection_front": float(laminate.convection_front),
             "convection_back": float(laminate.convection_back),
+            "surface_fibre_angle_deg": fibre,
             "caution": PLAN_CAUTION,
         },
     )
@@ -265,6 +294,15 @@ def plan_table(ds) -> str:
     for label, count, t, mus in rows:
         text = f"{label} (x{count})" if label == "plies" else label
         lines.append(f"  {text:<18}{t * 1e3:>12.3f}   {'':>25}" + "".join(f"{m * 1e3:>10.3f}" for m in mus))
+    if "blur_length_along" in ds:
+        lines.append(f"In-plane blur (surface ply fibres at {float(ds.attrs['surface_fibre_angle_deg']):g}° from "
+                     "specimen x): diffusion length and shortest strain wavelength passed at half contrast, mm")
+        lines.append(f"  {'f (Hz)':>10}{'along':>10}{'across':>10}{'wavelength along':>20}{'across':>10}")
+        for c in cols:
+            lines.append(f"  {f[c]:>10.3g}{float(ds['blur_length_along'].values[c]) * 1e3:>10.3f}"
+                         f"{float(ds['blur_length_across'].values[c]) * 1e3:>10.3f}"
+                         f"{float(ds['resolved_wavelength_along'].values[c]) * 1e3:>20.3f}"
+                         f"{float(ds['resolved_wavelength_across'].values[c]) * 1e3:>10.3f}")
     lines.append(f"Surface response: {'f (Hz)':>8}{'in phase (1e-6)':>17}{'amplitude (1e-6)':>18}"
                  f"{'lag (deg)':>11}   source within {100 * tol:g} % (lag included)")
     picks = sorted({int(np.argmin(np.abs(np.log(f / x)))) for x in
@@ -321,6 +359,10 @@ def _plan_figure(ds):
         seen.add((label, key))
         line, = ax_m.loglog(f, ds["diffusion_length"].values[:, j] * 1e3, lw=1.3, label=f"{label}")
         ax_m.axhline(float(ds["layer_thickness"].values[j]) * 1e3, color=line.get_color(), lw=0.8, ls=":")
+    if "blur_length_along" in ds:
+        for side, style in (("along", (0, (5, 2))), ("across", (0, (2, 2)))):
+            ax_m.loglog(f, ds[f"blur_length_{side}"].values * 1e3, color="k", lw=1.0, ls=style,
+                        label=f"in plane, {side} the surface fibres")
     ax_m.set_ylabel("diffusion length (mm)\n(dotted: thickness)")
     ax_m.set_xlabel("loading frequency (Hz)")
     ax_m.set_xscale("log")

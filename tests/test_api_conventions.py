@@ -161,7 +161,7 @@ def test_heat_model_std_covers_the_scatter_of_strain_noise(rng):
 
 def test_prediction_std_names_where_the_heat_model_is():
     lam = Laminate.from_layup(PLY, "[0/90]s", 0.25e-3)
-    with pytest.raises(ValueError, match="fusion.predictions gives it with its standard deviation"):
+    with pytest.raises(ValueError, match="fusion.predictions gives the through-thickness model"):
         prediction_std(lam, np.zeros(3), np.zeros(3), sources=["model"])
 
 

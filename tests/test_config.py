@@ -277,4 +277,5 @@ def test_readme_example_config_is_valid():
 
 def test_demo_config_is_valid():
     cfg = load_config(ROOT / "configs" / "demo.toml")
-    assert len(cfg.runs) == 7 and set(cfg.laminates) == {"carbon_qi_resin", "carbon_cross", "glass_painted"}
+    assert len(cfg.runs) == 8 and set(cfg.laminates) == {"carbon_qi_resin", "carbon_cross", "glass_painted"}
+    assert [cfg.lateral_heat_for(r) for r in cfg.runs].count("beside") == 1

@@ -114,8 +114,37 @@ def test_markers_and_hole_edge_leave_no_artefact(demo):
         z = np.abs(ds[f"zscore_{run.expected}"].values)
         assert not valid[to_marker <= 4.5].any(), run.name      # radius 4 px + 1 px margin - clicks
         near = valid & ((to_marker <= 10.0) | (to_hole <= 3.0))
-        if near.any():
+        if "lateral_edge" in ds and run.expected == "lateral":
+            # the lateral model flags the band where it cannot know the boundary condition
+            near &= ds["lateral_edge"].values == 0
+        if near.any() and run.expected == "lateral":
+            # the in-plane run's z-scores are noise-dominated (no property share hides them): among
+            # ~1000 pixels a few beyond 3 are expected (0.27 % for a normal z), a stripe is not
+            assert np.mean(z[near] > 3.0) <= 0.01, (run.name, np.mean(z[near] > 3.0))
+        elif near.any():
             assert z[near].max() <= 3.0, (run.name, z[near].max())
+
+
+def test_lateral_heat_model_explains_the_residuals_at_the_hole(demo):
+    # not a physics check: self-consistency on the package's own demo data. CL-2Hz carries heat
+    # flowing along the surface (the lateral heat model on a grid twice as fine, driven by the
+    # Kirsch field); near the hole, outside the band where the model cannot know the boundary,
+    # the lateral model leaves less than the through-thickness one, and fewer pixels unfitted.
+    from fusion.report._spread import hole_distance
+
+    _, out, _ = demo
+    ds = _open(out, "CL-2Hz")
+    valid = ds["valid"].values.astype(bool)
+    dist, from_holes = hole_distance(valid)
+    near = valid & (ds["lateral_edge"].values == 0) & (dist < 4)        # within 2 mm of the hole
+    assert from_holes and near.sum() > 150
+    rms = {s: float(np.sqrt(np.mean(ds[f"residual_{s}"].values[near] ** 2))) for s in ("model", "lateral")}
+    assert rms["lateral"] < 0.8 * rms["model"], rms
+    unfit = {s: int(np.sum(np.abs(ds[f"zscore_{s}"].values[valid]) > 3)) for s in ("model", "lateral")}
+    assert unfit["lateral"] * 2 < unfit["model"], unfit
+    summary = json.loads((out / "CL-2Hz" / "summary.json").read_text())
+    assert "heat_spread" in summary["figures"]
+    assert "Heat flowing along the surface" in (out / "report.html").read_text()
 
 
 def test_every_variable_has_units_and_long_name(demo):

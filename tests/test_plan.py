@@ -310,3 +310,27 @@ def test_plan_bad_arguments():
         frequency_plan(lam, [1e-3, 0.0])
     with pytest.raises(ValueError, match="increasing"):
         frequency_plan(lam, [1e-3, 0, 0], frequencies=[10.0, 1.0])
+
+
+def test_plan_in_plane_blur_along_and_across_the_surface_fibres():
+    # Carslaw & Jaeger, Conduction of Heat in Solids (1959), sec. 2.6: mu = sqrt(2 k / (rho c
+    # omega)), here with the surface ply's in-plane k1 (along its fibres) and k2 (across).
+    # The resolved wavelength: for a surface ply much thicker than its through-thickness
+    # diffusion length the surface is that ply alone, whose response to cos(q x) is
+    # i w / (i w + kappa q^2) (Carslaw & Jaeger ch. 2); it falls to one half at
+    # kappa q^2 / w = sqrt(3), a wavelength 2 pi mu / (sqrt(2) 3**0.25).
+    lam = Laminate.from_layup(CFRP, "[30/-60]s", 2e-3, zero_direction=10.0)
+    f = np.array([20.0, 50.0, 100.0])
+    ds = frequency_plan(lam, uniaxial_strain_state(lam, strain=2e-3, direction=40.0), frequencies=f)
+    omega = 2 * np.pi * f
+    mu_along = np.sqrt(2 * 5.0 / (1.44e6 * omega))
+    mu_across = np.sqrt(2 * 0.6 / (1.44e6 * omega))
+    np.testing.assert_allclose(ds["blur_length_along"].values, mu_along, rtol=1e-12)
+    np.testing.assert_allclose(ds["blur_length_across"].values, mu_across, rtol=1e-12)
+    factor = 2 * np.pi / (np.sqrt(2) * 3 ** 0.25)
+    np.testing.assert_allclose(ds["resolved_wavelength_along"].values, factor * mu_along, rtol=5e-3)
+    np.testing.assert_allclose(ds["resolved_wavelength_across"].values, factor * mu_across, rtol=5e-3)
+    assert ds.attrs["surface_fibre_angle_deg"] == pytest.approx(40.0)
+    text = plan_table(ds)
+    assert "In-plane blur (surface ply fibres at 40° from specimen x)" in text
+    assert f"{mu_along[-1] * 1e3:.3f}" in text          # the table prints the round 100 Hz

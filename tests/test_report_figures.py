@@ -22,7 +22,8 @@ def make_result(*, pixel_size_mm=0.25, frequency=20.0, categories=None, seed=3):
     yy, xx = np.mgrid[0:NY, 0:NX].astype(float)
     valid = np.hypot(xx - NX / 2, yy - NY / 2) > 6
     exx = 1e-3 * (1.0 + 0.5 * xx / NX)
-    coef = {"coating": -0.2, "resin_layer": -0.25, "surface_ply": -2.5e-3, "laminate": -1.2e-3, "model": -2.2e-3}
+    coef = {"coating": -0.2, "resin_layer": -0.25, "surface_ply": -2.5e-3, "laminate": -1.2e-3, "model": -2.2e-3,
+            "lateral": -2.1e-3}
     maps = {f"ratio_{s}": coef[s] * exx for s in SOURCES}
     maps["ratio_measured"] = maps["ratio_surface_ply"] + rng.normal(0.0, 1e-7, (NY, NX))
     maps["ratio_measured_std"] = np.full((NY, NX), 1e-7)
@@ -77,7 +78,7 @@ def test_public_api_is_pinned():
     # the public names are listed once in __all__ (SciPy's public-API test habit)
     expected = {
         "CATEGORY_COLOURS", "CAUTIONS", "FIGURE_NAMES", "NO_DATA_COLOUR", "band_edges_text", "band_sentence", "campaign_figures",
-        "format_percent", "frequency_figure",
+        "format_percent", "frequency_figure", "heat_spread_figure",
         "measured_vs_predicted_figure", "overlay_figure", "present_categories", "profile_figure", "render_report",
         "residuals_figure", "run_figures", "sample_line", "source_map_figure", "source_map_grid",
         "source_map_grid_figure", "summarize_run", "summary_schema", "through_thickness_figure",
@@ -98,6 +99,7 @@ def test_png_files_have_the_figure_size_at_300_dpi(tmp_path):
     builders = {
         "measured_vs_predicted": lambda: report.measured_vs_predicted_figure(ds),
         "residuals": lambda: report.residuals_figure(ds),
+        "heat_spread": lambda: report.heat_spread_figure(ds),
         "source_map": lambda: report.source_map_figure(ds),
         "overlay": lambda: report.overlay_figure(ds, ref),
         "profile": lambda: report.profile_figure(ds),

@@ -39,6 +39,7 @@ REFERENCES = TESTS.parent / "docs" / "references.md"
 
 PHYSICS_MODULES = frozenset({
     "test_clt.py", "test_materials.py", "test_predict.py", "test_heat.py",      # mechanics, heat
+    "test_lateral.py", "test_lateral_run.py",
     "test_lockin.py", "test_signals.py", "test_motion.py",                      # thermal side
     "test_dic_correlate.py", "test_dic_strain.py", "test_dic_ranges.py",        # correlation side
     "test_dic_speckle.py", "test_dic_api.py",

@@ -6,7 +6,7 @@ merges them into the object ``fusion bench --json`` prints, with the keys
 ``lockin_f32_ratio``, ``lockin_i16_ratio``, ``dic_subsets_per_s``,
 ``dic_points_per_s``, ``dic_flow_seconds``, ``predict_ratio``, ``heat_seconds``,
 ``campaign_speedup`` and ``cores`` always present (null where a benchmark was
-not run or is not available).
+not run or is not available), and extras such as ``lateral_fft_ratio``.
 """
 
 from __future__ import annotations
@@ -27,6 +27,7 @@ REQUIRED_KEYS = ("lockin_f32_ratio", "lockin_i16_ratio", "dic_subsets_per_s", "d
 _BENCHES = {
     "predict": ("fusion.bench._predict", "bench_predict"),
     "heat": ("fusion.bench._heat", "bench_heat"),
+    "lateral": ("fusion.bench._lateral", "bench_lateral"),
     "lockin": ("fusion.bench._lockin", "bench_lockin"),
     "dic": ("fusion.bench._dic", "bench_dic"),
     "campaign": ("fusion.bench._campaign", "bench_campaign"),
@@ -40,6 +41,11 @@ _TARGETS = {
     "dic_flow_seconds": (None, None, "OpenCV dense optical flow on the same pair, s"),
     "predict_ratio": ("<=", 20, "predictions of every source / one numpy pass, 1e6 pixels"),
     "heat_seconds": ("<=", 1.0, "transfer coefficients, 200 frequencies, 32 plies, s"),
+    "lateral_fft_ratio": ("<=", 10, "lateral heat model, one frequency, 512 x 640 px, 16 plies / one "
+                          "complex 2-D FFT on its padded grid"),
+    "lateral_seconds": (None, None, "lateral heat model, one frequency, 512 x 640 px, 16 plies, s"),
+    "lateral_fft_seconds": (None, None, "one complex 2-D FFT on the padded grid, s"),
+    "lateral_grid": (None, None, "padded grid of the lateral model, rows x columns"),
     "campaign_speedup": (">=", 1.3, "demo-sized runs as fresh `fusion run` commands: 2 workers vs 1"),
 }
 

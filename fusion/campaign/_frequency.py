@@ -33,6 +33,9 @@ def write_frequency(fits: dict, path: Path) -> Path:
         ds = sweep_dataset(f["fit"])
         ds.attrs.update(specimen=spec, runs=" ".join(f["runs"]), laminate=f["laminate"].name,
                         band_text=band_sentence(band_info(f), frequencies=f["frequencies"]))
+        if f.get("in_plane_flow_removed"):
+            ds.attrs["in_plane_flow_removed"] = ("measured ratios, quadratures and lags less the lateral heat "
+                                                 "model's in-plane part at nominal properties")
         for name, arr in (f["maps"] or {}).items():
             a = np.asarray(arr)
             if a.ndim != 2:

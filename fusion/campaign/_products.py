@@ -19,7 +19,8 @@ import numpy as np
 from .. import __version__
 from ..errors import FusionError
 from ..io import make_temp_folder, read_netcdf
-from ..mechanics import fit_sweep, fit_sweep_maps, source_coefficients
+from ..mechanics import (fit_sweep, fit_sweep_maps, model_response, source_coefficients, thermal_layers,
+                         transfer_coefficients)
 from ..report import band_sentence, campaign_figures, write_report
 from ._folders import is_marked_folder, mark_folder, product_path, publish, refuse_foreign, remove_product
 from ._frequency import band_info, band_label, band_pair, write_frequency
@@ -28,7 +29,7 @@ from ._provenance import read_stamp, read_summary, run_stamp
 
 log = logging.getLogger(__name__)
 
-__all__ = ["write_campaign", "sweep_points", "runs_on_disk"]
+__all__ = ["write_campaign", "sweep_points", "runs_on_disk", "without_in_plane_flow"]
 
 
 def _load(folder: Path):
@@ -110,11 +111,54 @@ def _sweeps(cfg, outcomes, results):
     return groups
 
 
+def without_in_plane_flow(ds, lam):
+    """A run's result with the in-plane heat flow taken out of the measured ratio, quadrature and lag.
+
+    The sweep fits the through-thickness model's parameters; near holes and edges heat
+    flowing sideways biases them. Where the run evaluated the lateral heat model, its
+    in-plane part at nominal properties (the complex lateral response, from ``ratio_lateral``
+    and ``phase_lateral``, minus the through-thickness model on the same strain maps) is
+    subtracted from the measurement: a first-order correction, since that part depends on
+    the fitted parameters only weakly. Returns ``ds`` itself when there is no lateral
+    prediction.
+    """
+    if "ratio_lateral" not in ds.data_vars:
+        return ds
+    f = float(ds.attrs["frequency"])
+    coef = transfer_coefficients(thermal_layers(lam), np.array([f]), convection_front=lam.convection_front,
+                                 convection_back=lam.convection_back)[0]
+    strain = np.stack([ds[k].values for k in ("delta_eps_xx", "delta_eps_yy", "delta_gamma_xy")],
+                      axis=-1).astype(np.float64)
+    one_d = strain @ coef
+    _, one_lag = model_response(coef, strain)
+    lat_re = ds["ratio_lateral"].values.astype(np.float64)
+    in_plane_re = lat_re - one_d.real
+    out = ds.copy()
+    out["ratio_measured"] = ds["ratio_measured"] - in_plane_re
+    if "phase_lateral" in ds.data_vars:
+        lat_lag = ds["phase_lateral"].values.astype(np.float64)
+        in_plane_im = -lat_re * np.tan(np.radians(lat_lag)) - one_d.imag
+        if "phase_lag_measured" in ds.data_vars:
+            out["phase_lag_measured"] = ds["phase_lag_measured"] - (lat_lag - one_lag)
+        if "delta_T_quadrature" in ds.data_vars and "T0" in ds.data_vars:
+            # the sweep reads the quadrature ratio as delta_T_quadrature / T0 times the calibration
+            cal = float(ds.attrs.get("calibration_factor", 1.0))
+            out["delta_T_quadrature"] = ds["delta_T_quadrature"] - in_plane_im * ds["T0"].values / cal
+    for name in ("ratio_measured", "phase_lag_measured", "delta_T_quadrature"):
+        if name in out.data_vars:
+            out[name].attrs = dict(ds[name].attrs)
+    out.attrs["in_plane_flow_removed"] = 1
+    return out
+
+
 def _fit_specimen(cfg, spec, items, datasets):
     lams = {cfg.laminate_for(run).name for run, _ in items}
     lam = cfg.laminate_for(items[0][0])
     if len(lams) > 1:
         log.warning("specimen %s: runs use different laminates %s; fitting with %s", spec, sorted(lams), lam.name)
+    lateral = all("ratio_lateral" in ds.data_vars for ds in datasets)
+    if lateral:
+        datasets = [without_in_plane_flow(ds, lam) for ds in datasets]
     f, r, s, lag, lag_std, strain = sweep_points(datasets)
     params = ["conductivity_scale"]
     if lam.resin_layer is not None:
@@ -145,7 +189,7 @@ def _fit_specimen(cfg, spec, items, datasets):
             log.warning("specimen %s: no per-pixel sweep maps (%s)", spec, e)
     return {"laminate": lam, "frequencies": f, "ratio": r, "ratio_std": s, "lag": lag, "lag_std": lag_std,
             "strain": mean_strain, "fit": fit, "limits": limits, "maps": maps,
-            "runs": [run.name for run, _ in items]}
+            "runs": [run.name for run, _ in items], "in_plane_flow_removed": lateral}
 
 
 def runs_on_disk(cfg, out: Path, outcomes, digests=None):

@@ -65,6 +65,10 @@ class Config:
     def registration_for(self, run: RunSpec) -> RegistrationSpec | None:
         return run.registration or self.registration
 
+    def lateral_heat_for(self, run: RunSpec) -> str:
+        """'off', 'beside' or 'instead': the run's ``lateral_heat``, else ``diagnosis.lateral_heat``."""
+        return run.lateral_heat or self.diagnosis.lateral_heat
+
     def output_folder(self, override=None) -> Path:
         if override is not None:
             return Path(override)
@@ -187,6 +191,8 @@ def _validate(doc: dict, text: str, path: Path | None, *, base: Path | None = No
         runs.append(run)
 
     diagnosis = top.diagnosis or DiagnosisSpec()
+    for i, run in enumerate(runs):
+        _check_lateral(run, i, diagnosis, run.registration or top.registration, ctx)
     region_names = [r.name for r in diagnosis.regions]
     if len(set(region_names)) != len(region_names):
         raise ConfigError("diagnosis.regions", "region names must be unique", source=ctx.source)
@@ -257,6 +263,25 @@ def _check_points(reg, rk, dic, ctx):
         check_handedness(t.jacobian(src[t.inliers]), mirrored=reg.ir_mirrored, method=reg.method)
     except ValueError as e:
         raise ConfigError(f"{rk}.ir_points", str(e), source=ctx.source) from e
+
+
+def _check_lateral(run, i, diagnosis, registration, ctx):
+    """The lateral heat model needs the infrared pixel on the specimen: mm and a 2-D registration."""
+    if (run.lateral_heat or diagnosis.lateral_heat) == "off":
+        return
+    rk = run_key(run.name, i)
+    where = f"{rk}.lateral_heat" if run.lateral_heat else "diagnosis.lateral_heat"
+    if registration.method == "camera":
+        raise ConfigError(f"{rk}.registration.method", f"{where} needs a 2-D registration (homography, "
+                          "affine, similarity, identity or fiducials) to know the infrared pixel on the "
+                          "specimen, not 'camera'", source=ctx.source)
+    d = run.dic
+    in_mm = d.pixel_size is not None if d.images is not None else d.coordinates == "mm"
+    if not in_mm:
+        key = "dic.pixel_size" if d.images is not None else "dic.coordinates"
+        raise ConfigError(f"{rk}.{key}", f"{where} needs the size of an infrared pixel on the specimen: "
+                          "give the correlation coordinates in mm (dic.coordinates = \"mm\", or dic.pixel_size "
+                          "for speckle images)", source=ctx.source)
 
 
 def _table(value, k, ctx) -> dict:

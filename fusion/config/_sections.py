@@ -308,11 +308,17 @@ class CalibrationSpec:
     """Calibrate the infrared measurement on a region whose source is known."""
 
     region: str = key(_schema.string(), "Name of a region in diagnosis.regions.", required=True)
-    source: str = key(_schema.choice("coating", "resin_layer", "surface_ply", "laminate", "model"),
+    source: str = key(_schema.choice("coating", "resin_layer", "surface_ply", "laminate", "model", "lateral"),
                       "The source known to dominate there.", required=True)
 
 
 _SOURCE = _schema.choice("coating", "resin_layer", "surface_ply", "laminate", "model")
+_LATERAL = _schema.choice("off", "beside", "instead")
+_LATERAL_DOC = ("Heat flowing along the surface as well as through the thickness: 'beside' adds the "
+                "lateral heat model (source 'lateral': the layered plate driven by the registered strain "
+                "maps, solved over the infrared grid; needs correlation coordinates in mm and a 2-D "
+                "registration) next to the through-thickness model 'model'; 'instead' replaces 'model' by "
+                "it; 'off' leaves it out.")
 
 
 @dataclass(frozen=True)
@@ -333,6 +339,7 @@ class DiagnosisSpec:
     regions: tuple = key(_schema.list_of(_schema.table_of(RegionSpec)), "Named regions for the region table.",
                          factory=tuple)
     calibration: CalibrationSpec = key(_schema.table_of(CalibrationSpec), "Optional calibration region.")
+    lateral_heat: str = key(_LATERAL, _LATERAL_DOC, default="off")
 
 
 @dataclass(frozen=True)
@@ -401,6 +408,8 @@ class RunSpec:
     dic: DicSpec = key(_schema.table_of(DicSpec), "Correlation input.", required=True)
     registration: RegistrationSpec = key(_schema.table_of(RegistrationSpec), "Per-run registration "
                                          "(replaces the top-level [registration]).")
+    lateral_heat: str = key(_LATERAL, "The lateral heat model for this run: 'off', 'beside' or "
+                            "'instead' (default: diagnosis.lateral_heat).")
 
     @property
     def config_key(self) -> str:

@@ -8,7 +8,10 @@ watch the same face —
   left by a peel ply (80 um), tested at 0.05 and 150 Hz;
 * ``CX``: carbon/epoxy cross-ply [0/90]s, bare, at 0.05, 2 and 100 Hz;
 * ``GP``: glass/epoxy cross-ply [0/90]2s under a thick coat of matt black
-  paint (100 um), at 0.05 and 100 Hz.
+  paint (100 um), at 0.05 and 100 Hz;
+* ``CL``: the bare carbon cross-ply at 2 Hz with heat flowing along the surface as
+  well (the lateral heat model built into its data), analysed with the lateral heat
+  model beside the through-thickness one.
 
 The infrared frames are the heat model's surface response to the Kirsch strain
 field around the hole, with camera noise, drift, a small rigid offset and

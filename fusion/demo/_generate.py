@@ -8,7 +8,10 @@ watch the same face —
   left by a peel ply (80 um), tested at 0.05 and 150 Hz;
 * ``CX``: carbon/epoxy cross-ply [0/90]s, bare, at 0.05, 2 and 100 Hz;
 * ``GP``: glass/epoxy cross-ply [0/90]2s under a thick coat of matt black
-  paint (100 um), at 0.05 and 100 Hz.
+  paint (100 um), at 0.05 and 100 Hz;
+* ``CL``: the bare carbon cross-ply at 2 Hz with heat flowing along the surface as
+  well (the lateral heat model built into its data), analysed with the lateral heat
+  model beside the through-thickness one.
 
 The infrared frames are the heat model's surface response to the Kirsch strain
 field around the hole, with camera noise, drift, a small rigid offset and
@@ -36,7 +39,7 @@ from ..config import load_config
 from ..dic import speckle_image
 from ..errors import InputError
 from ..io import make_temp_folder, write_netcdf
-from ..mechanics import engineering_constants, thermal_layers, transfer_coefficients
+from ..mechanics import engineering_constants, lateral_response, thermal_layers, transfer_coefficients
 from ._physics import (apply_homography, coupon_mask, demo_homography, fiducial_centres,
                             kirsch_displacement, kirsch_strain)
 
@@ -75,6 +78,7 @@ class DemoRun:
     expected: str                  # the source built into the run (see sample_data/README.md)
     motion: bool = False
     seed: int = 0
+    lateral: bool = False          # heat flows along the surface too (lateral heat model) in the data
 
 
 DEMO_RUNS = (
@@ -85,6 +89,8 @@ DEMO_RUNS = (
     DemoRun("CX-100Hz", "CX", "carbon_cross", 100.0, 383.0, 1000, "images", "frames", "surface_ply", motion=True, seed=5),
     DemoRun("GP-0p05Hz", "GP", "glass_painted", 0.05, 12.5, 1000, "ranges", "frames", "laminate", seed=6),
     DemoRun("GP-100Hz", "GP", "glass_painted", 100.0, 383.0, 1000, "ranges", "maps", "coating", seed=7),
+    # maps from a longer record (4000 frames): the in-plane flow near the hole stands out of the noise
+    DemoRun("CL-2Hz", "CL", "carbon_cross", 2.0, 50.0, 4000, "ranges", "maps", "lateral", seed=8, lateral=True),
 )
 
 
@@ -156,13 +162,46 @@ def _ir_truth(run, lam):
     H, xy_mm = _ir_geometry()
     xy = xy_mm * 1e-3
     strain, kw = _strain_at(xy, lam)
-    coef = transfer_coefficients(thermal_layers(lam), np.array([run.frequency]))[0]
     on = coupon_mask(xy[:, 0], xy[:, 1], half_width=HALF_WIDTH, radius=RADIUS)
-    ratio = np.where(on, strain @ coef, 0.0)
+    if run.lateral:
+        ratio = np.where(on, _lateral_truth(run, lam, xy_mm), 0.0)
+    else:
+        coef = transfer_coefficients(thermal_layers(lam), np.array([run.frequency]))[0]
+        ratio = np.where(on, strain @ coef, 0.0)
     # displacement range (rigid grip motion + Kirsch field): the lower grip is fixed
     u, v = kirsch_displacement(xy[:, 0], xy[:, 1], **kw)
     v = v + 0.5 * REMOTE_STRAIN * 2 * HALF_HEIGHT
     return xy_mm, ratio, np.column_stack([u, v]) * 1e3, H
+
+
+LATERAL_STEP = 0.25                # mm: grid of the in-plane heat flow in the data (half an IR pixel)
+
+
+def _lateral_truth(run, lam, xy_mm):
+    """Complex ratio at specimen positions (mm) with heat flowing along the surface as well.
+
+    The lateral heat model on a grid twice as fine as the IR pixels in the specimen frame,
+    driven by the Kirsch strain, which :func:`kirsch_displacement` continues smoothly into the
+    hole (and the infinite-plate field beyond the coupon's edges); then interpolated
+    bilinearly at the pixels. The analysis sees other data: the correlation strain, noisy,
+    ending 0.5 mm inside the edges, and filled from the nearest pixel, so near the hole the
+    two continuations differ as a real boundary would.
+    """
+    from scipy.interpolate import RegularGridInterpolator
+
+    lo, hi = xy_mm.min(axis=0) - 2.0, xy_mm.max(axis=0) + 2.0
+    xs = np.arange(lo[0], hi[0] + LATERAL_STEP, LATERAL_STEP)
+    ys = np.arange(hi[1], lo[1] - LATERAL_STEP, -LATERAL_STEP)      # rows run down: y falls
+    X, Y = np.meshgrid(xs, ys)
+    strain, _ = _strain_at(np.column_stack([X.ravel(), Y.ravel()]) * 1e-3, lam)
+    response = lateral_response(thermal_layers(lam), strain.reshape(X.shape + (3,)), run.frequency,
+                                pixel_size=LATERAL_STEP * 1e-3, convection_front=lam.convection_front,
+                                convection_back=lam.convection_back)
+    pts = np.column_stack([xy_mm[:, 1], xy_mm[:, 0]])
+    grid = (ys[::-1], xs)
+    re = RegularGridInterpolator(grid, response.real[::-1])(pts)
+    im = RegularGridInterpolator(grid, response.imag[::-1])(pts)
+    return re + 1j * im
 
 
 def _frames(run, xy_mm, ratio, disp_mm, rng):

@@ -194,9 +194,10 @@ def _lag_inputs(sources, shape, measured_lag, measured_lag_std, predicted_lag, p
         if extra:
             raise ValueError(f"{name}: source(s) {extra!r} are not among the predictions "
                              f"{list(sources)!r}")
-    if "model" in sources and "model" not in predicted_lag:
-        raise ValueError("predicted_lag: the 'model' source needs the heat model's phase lag "
-                         "(degrees); adiabatic sources default to a lag of 0")
+    for heat in ("model", "lateral"):
+        if heat in sources and heat not in predicted_lag:
+            raise ValueError(f"predicted_lag: the {heat!r} source needs the heat model's phase lag "
+                             "(degrees); adiabatic sources default to a lag of 0")
     pl = [_real_map(predicted_lag.get(s, 0.0), shape, f"predicted_lag[{s!r}]") for s in sources]
     pls = [_std_map(predicted_lag_std.get(s, 0.0), shape, f"predicted_lag_std[{s!r}]") for s in sources]
     return lag, lag_std, pl, pls
@@ -236,7 +237,8 @@ def diagnose(measured, measured_std, predictions, prediction_std, *, valid=None,
     predicted_lag_std : dict of str to (Y, X) ndarray or float, optional
         Standard deviation of each predicted lag in degrees (default 0).
     secondary : tuple of str, default ("model",)
-        Sources that win a pixel only where no other source fits (see Notes).
+        Sources that win a pixel only where no layer source fits, in order of preference:
+        each is named only where none before it fits (see Notes).
     lag_std_floor : float, default 1.0
         Systematic lag uncertainty in degrees (reference phase, camera timing) added in
         quadrature to every lag comparison, so that the lag never counts as more
@@ -277,7 +279,10 @@ def diagnose(measured, measured_std, predictions, prediction_std, *, valid=None,
     2. best = the fitting source of largest likelihood (the argmax of ``probability``),
        taken among the layer sources when any of them fits: a ``secondary`` source (by
        default ``"model"``, the heat model, which mixes layers) is named only where no
-       layer source fits on its own, and it takes part in step 3 only then;
+       layer source fits on its own, and it takes part in step 3 only then; with several
+       secondary sources (the run passes ``("lateral", "model")``: the lateral heat model
+       contains the through-thickness one as its uniform-field limit) the first that fits
+       is taken;
     3. if another fitting source's prediction lies within ``distinguish`` combined
        standard deviations of the best's -- in the ratio,
        ``|p_k - p_best| < distinguish * sqrt(sigma_m**2 + sigma_k**2 + sigma_best**2)``,
@@ -391,11 +396,13 @@ def diagnose(measured, measured_std, predictions, prediction_std, *, valid=None,
             e = np.exp(ll_fit - top)
             tot = e.sum(axis=0)
             pr = e / np.where(tot > 0, tot, 1.0)
-            # The source map answers "which layer": a secondary source (the heat model, a
-            # mixture of layers) is named only where no layer source fits on its own.
-            primary = np.array([src not in secondary for src in sources])[:, None, None]
-            any_primary = (fits & primary).any(axis=0)
-            cand = np.where(any_primary[None], fits & primary, fits)
+            # The source map answers "which layer": a secondary source (a heat model, a
+            # mixture of layers) is named only where no layer source fits on its own, and
+            # only where no secondary source before it fits.
+            tier = np.array([0 if src not in secondary else 1 + secondary.index(src)
+                             for src in sources])[:, None, None]
+            top_tier = np.where(fits, tier, len(secondary) + 1).min(axis=0)
+            cand = fits & (tier == top_tier[None])
             best = np.argmax(np.where(cand, ll, -np.inf), axis=0)
 
             bi = best[None]

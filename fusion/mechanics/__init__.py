@@ -22,6 +22,10 @@ prediction_std, property_covariance, property_sensitivities, UNCERTAIN_PROPERTIE
 diffusion_length, surface_weights, surface_response, transfer_coefficients, model_response,
 phase_lag, frequency_band
     Through-thickness harmonic heat model at the loading frequency.
+lateral_response, lateral_layer_response, lateral_weights, lateral_edge_mask, contrast_wavelength
+    Lateral heat model: the layered plate with heat flowing along the surface as well,
+    driven by strain-range maps (2-D FFT over the infrared grid); where it cannot know the
+    boundary; the shortest strain wavelength the surface response passes.
 fit_sweep, fit_sweep_maps, SweepFit, sweep_dataset, FIT_PARAMETERS
     Fits of the heat model's uncertain parameters to frequency sweeps.
 """
@@ -46,6 +50,8 @@ from ._heat import (
     diffusion_length, frequency_band, model_response, phase_lag, surface_response, surface_weights,
     transfer_coefficients,
 )
+from ._lateral import lateral_layer_response, lateral_response, lateral_weights
+from ._lateral_reach import contrast_wavelength, lateral_edge_mask
 from ._sweep import FIT_PARAMETERS, SweepFit, fit_sweep, fit_sweep_maps, sweep_dataset
 
 __all__ = [
@@ -61,5 +67,7 @@ __all__ = [
     # heat model and frequency sweeps
     "diffusion_length", "frequency_band", "model_response", "phase_lag", "surface_response",
     "surface_weights", "transfer_coefficients",
+    "contrast_wavelength", "lateral_edge_mask", "lateral_layer_response", "lateral_response",
+    "lateral_weights",
     "FIT_PARAMETERS", "SweepFit", "fit_sweep", "fit_sweep_maps", "sweep_dataset",
 ]

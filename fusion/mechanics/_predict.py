@@ -57,8 +57,8 @@ __all__ = [
 #: Mean temperature used to express dT in kelvin in tables (20 °C), K.
 REFERENCE_T0 = 293.15
 
-# Sources of this module in map order; "model" (the heat model) lives elsewhere.
-_LAW_SOURCES = tuple(s for s in SOURCES if s != "model")
+# Sources of this module in map order; the heat models ("model", "lateral") live elsewhere.
+_LAW_SOURCES = tuple(s for s in SOURCES if s not in ("model", "lateral"))
 
 
 def isotropic_coefficients(material: IsotropicMaterial) -> np.ndarray:
@@ -227,10 +227,10 @@ def _select(laminate, sources) -> tuple[str, ...]:
     sources = tuple(sources)
     for s in sources:
         if s not in have:
-            hint = (" (the heat model's 'model' source comes from the heat model, not the adiabatic laws: "
-                    "fusion.predictions gives it with its standard deviation and phase lag at a "
-                    "frequency, or use transfer_coefficients with model_response)"
-                    if s == "model" else "")
+            hint = (f" (the {s!r} source comes from a heat model, not the adiabatic laws: "
+                    "fusion.predictions gives the through-thickness model ('model') with its standard "
+                    "deviation and phase lag at a frequency, or use transfer_coefficients with model_response)"
+                    if s in ("model", "lateral") else "")
             raise ValueError(f"source {s!r} is not available for laminate {laminate.name!r}; "
                              f"available: {list(have)}{hint}")
     return sources
@@ -317,8 +317,10 @@ def thermal_layers(laminate) -> list[ThermalLayer]:
     list of ThermalLayer
         ``coating``, ``resin_layer``, ``ply 1 (angle°)`` ... ``ply n``, ``back_layer``
         (the surface layers only where the laminate has them), each with rho, c,
-        through-thickness conductivity (k3 of a ply, k of an isotropic layer) and
-        its adiabatic coefficients (3,) in the specimen frame.
+        through-thickness conductivity (k3 of a ply, k of an isotropic layer), its
+        adiabatic coefficients (3,) in the specimen frame and, for a ply, its in-plane
+        conductivities k1, k2 with the fibre angle in the specimen frame
+        (``angle + zero_direction``).
 
     Notes
     -----
@@ -331,9 +333,12 @@ def thermal_layers(laminate) -> list[ThermalLayer]:
         m = layer.material
         layers.append(ThermalLayer(key, layer.thickness, m.density, m.specific_heat, m.k,
                                    isotropic_coefficients(m)))
+    zd = float(laminate.zero_direction)
     for i, (ply, c) in enumerate(zip(laminate.plies, _ply_coefficient_list(laminate)), start=1):
         m = ply.material
-        layers.append(ThermalLayer(_ply_name(i, ply), ply.thickness, m.density, m.specific_heat, m.k3, c))
+        layers.append(ThermalLayer(_ply_name(i, ply), ply.thickness, m.density, m.specific_heat, m.k3, c,
+                                   conductivity_along=m.k1, conductivity_across=m.k2,
+                                   fibre_angle=ply.angle + zd))
     if laminate.back_layer is not None:
         m = laminate.back_layer.material
         layers.append(ThermalLayer("back_layer", laminate.back_layer.thickness, m.density,

@@ -5,7 +5,7 @@ Public names
 run_figures
     All figures of one run (PNG at 300 dpi, PDF/SVG on request), written atomically.
 measured_vs_predicted_figure, residuals_figure, source_map_figure, overlay_figure,
-profile_figure, through_thickness_figure
+profile_figure, through_thickness_figure, heat_spread_figure
     The single figures as :class:`matplotlib.figure.Figure` objects.
 campaign_figures, frequency_figure, source_map_grid, source_map_grid_figure
     Frequency response per specimen; small multiples of all source maps.
@@ -31,12 +31,14 @@ from ._figures import (
 from ._html import CAUTIONS, render_report, write_report
 from ._profiles import profile_figure, sample_line, through_thickness_figure
 from ._run_figures import FIGURE_NAMES, run_figures
+from ._spread import heat_spread_figure
 from ._style import CATEGORY_COLOURS, NO_DATA_COLOUR
 from ._summary import format_percent, summarize_run, summary_schema, validate_summary, verdict, write_summary
 
 __all__ = [
     "CATEGORY_COLOURS", "CAUTIONS", "FIGURE_NAMES", "NO_DATA_COLOUR", "band_edges_text", "band_sentence",
-    "campaign_figures", "format_percent", "frequency_figure", "measured_vs_predicted_figure", "overlay_figure",
+    "campaign_figures", "format_percent", "frequency_figure", "heat_spread_figure",
+    "measured_vs_predicted_figure", "overlay_figure",
     "present_categories", "profile_figure", "render_report", "residuals_figure", "run_figures", "sample_line",
     "source_map_figure", "source_map_grid", "source_map_grid_figure", "summarize_run", "summary_schema",
     "through_thickness_figure", "validate_summary", "verdict", "write_report", "write_summary",

@@ -47,6 +47,11 @@ _FIGURES = {
                               "all on one colour scale. Dark grey: no valid data."),
     "residuals": ("Residual maps", "Measured minus predicted dT/T0 for each source, on a scale symmetric about "
                                    "zero: light grey means agreement, dark grey marks pixels without valid data."),
+    "heat_spread": ("Heat flowing along the surface",
+                    "Residuals of the through-thickness heat model and of the lateral heat model (heat flowing "
+                    "along the surface too), and their root-mean-square against the distance from the nearest "
+                    "hole, beside the measurement noise. Dashed outline: within an in-plane diffusion length of "
+                    "no data, where the lateral model cannot know the boundary."),
     "source_map": ("Source-layer map", "The best-supported source of the signal at each pixel; "
                                        "'indistinguishable' where candidates agree within the uncertainty; "
                                        "dark grey: no valid data."),

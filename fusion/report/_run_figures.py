@@ -11,11 +11,13 @@ from ._figures import (
     evaluated_sources, measured_vs_predicted_figure, overlay_figure, residuals_figure, source_map_figure,
 )
 from ._profiles import default_profile_line, profile_figure, through_thickness_figure
+from ._spread import heat_spread_figure
 
 __all__ = ["run_figures", "save_figure", "FIGURE_NAMES"]
 
 #: Figure names in report order.
-FIGURE_NAMES = ("measured_vs_predicted", "residuals", "source_map", "overlay", "profile", "through_thickness")
+FIGURE_NAMES = ("measured_vs_predicted", "residuals", "heat_spread", "source_map", "overlay", "profile",
+                "through_thickness")
 
 _FORMATS = {"png", "pdf", "svg"}
 
@@ -77,7 +79,8 @@ def run_figures(ds, out_dir, *, formats=("png",), dpi=300, reference_image=None,
         Figure name (see :data:`FIGURE_NAMES`) to the file in the first format;
         other formats sit beside it with the same stem. Figures whose inputs
         are missing are left out (no residual maps, no source map, no overlay
-        without a reference image, no through-thickness profile without rows).
+        without a reference image, no through-thickness profile without rows, no
+        heat-spread figure without the lateral heat model).
     """
     formats = _check_formats(formats)
     if not (isinstance(dpi, (int, np.integer)) and 30 <= dpi <= 1200):
@@ -88,6 +91,8 @@ def run_figures(ds, out_dir, *, formats=("png",), dpi=300, reference_image=None,
     builders = {"measured_vs_predicted": lambda: measured_vs_predicted_figure(ds)}
     if evaluated_sources(ds, "residual_"):
         builders["residuals"] = lambda: residuals_figure(ds)
+    if "residual_lateral" in ds.data_vars:
+        builders["heat_spread"] = lambda: heat_spread_figure(ds)
     if "source_layer" in ds.data_vars:
         builders["source_map"] = lambda: source_map_figure(ds)
     if reference_image is not None:

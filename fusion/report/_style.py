@@ -35,6 +35,7 @@ CATEGORY_COLOURS = {
     "surface_ply": "#009E73",        # bluish green
     "laminate": "#0072B2",           # blue
     "model": "#CC79A7",              # reddish purple
+    "lateral": "#8700FF",            # violet: beside the heat model's hue, apart from all under CVD
     "indistinguishable": "#F0E442",  # yellow
     "no_source_fits": "#D55E00",     # vermillion
     "no_data": NO_DATA_COLOUR,
@@ -47,6 +48,7 @@ SOURCE_LINESTYLES = {
     "surface_ply": "--",
     "laminate": (0, (6, 1.5, 1, 1.5, 1, 1.5)),
     "model": (0, (1, 1)),
+    "lateral": (0, (4, 1, 1, 1)),
 }
 
 SEQUENTIAL_CMAP = "viridis"
@@ -64,6 +66,7 @@ _WORDS = {
     "surface_ply": "surface ply",
     "laminate": "whole laminate",
     "model": "heat model",
+    "lateral": "lateral heat model",
     "indistinguishable": "indistinguishable",
     "no_source_fits": "no source fits",
     "no_data": "no data",
@@ -73,8 +76,8 @@ _WORDS = {
 def category_label(name: str, frequency: float | None = None) -> str:
     """Words for a source-map category (legends, tables, alt text)."""
     words = _WORDS.get(name, name.replace("_", " "))
-    if name == "model" and frequency is not None:
-        words = f"heat model at {frequency:g} Hz"
+    if name in ("model", "lateral") and frequency is not None:
+        words = f"{words} at {frequency:g} Hz"
     return words
 
 

@@ -38,6 +38,7 @@ _PHRASES = {
     "surface_ply": "signal from the surface ply",
     "laminate": "signal from the whole laminate (homogenised)",
     "model": "signal explained by the through-thickness heat model",
+    "lateral": "signal explained by the heat model with heat flowing along the surface too",
 }
 
 

@@ -24,6 +24,7 @@ from ..io import read_image
 from ..mechanics import ply_profile
 from ..thermal import motion_amplitude
 from ._files import need_file
+from ._lateral import ir_pixel_axes
 from ._predictions import predictions
 from ._registration import check_footprint, motion_support, refine_registration, registration_side
 from ._strain import strain_side
@@ -35,7 +36,7 @@ __all__ = ["compute_run", "RunResult"]
 
 # maps that keep their values outside the valid area (T0 shows the whole scene; the flags
 # and probabilities have their own no-data coding; source_tie is 0 there)
-_KEEP_OUTSIDE = ("source_layer", "source_tie", "valid", "source_probability", "T0")
+_KEEP_OUTSIDE = ("source_layer", "source_tie", "valid", "source_probability", "T0", "lateral_edge")
 
 
 @dataclasses.dataclass
@@ -90,10 +91,11 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
                          "no pixel has both usable thermal data and strain data: check the "
                          "registration (points, method) and the signal-to-noise ratio")
 
-    sources = list(dg.sources) if dg.sources else list(SOURCES)
+    sources, axes = _sources(cfg, run, transform, ranges, inside)
     pred, pstd, plag, pinfo = predictions(lam, strain, strain_std, frequency, sources=sources,
-                                          property_uncertainty=dg.property_uncertainty)
-    missing = [s for s in (dg.sources or ()) if s not in pred]
+                                          property_uncertainty=dg.property_uncertainty, pixel_axes=axes)
+    lateral_edge = pinfo.pop("lateral_edge_map", None)
+    missing = [s for s in (dg.sources or ()) if s in sources and s not in pred]
     if missing:
         warnings.append(f"sources {missing} not evaluated: the laminate has no such layer")
 
@@ -106,13 +108,16 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
                         f"{calibration['factor_std']:.3f} on region {dg.calibration.region!r} assumed to "
                         f"show the {calibration['source']}")
 
+    # both heat models mix layers: named only where no layer fits, the lateral one first
     diag = diagnose(measured, measured_std, pred, pstd, valid=valid, measured_lag=lag,
                     measured_lag_std=lag_std, predicted_lag=plag, fit_threshold=dg.fit_threshold,
-                    distinguish=dg.distinguish)
+                    distinguish=dg.distinguish, secondary=("lateral", "model"))
     table = _flat_regions(region_table(measured, diag, pred, regions=regions, valid=valid))
 
     maps = _result_maps(thermal, measured, measured_std, snr, lag, strain, strain_std, smaps[6], pred, pstd,
                         plag, diag, valid)
+    if lateral_edge is not None:
+        maps["lateral_edge"] = lateral_edge.astype(np.int8)
     meta = _meta(run, lam, frequency, reg_report, t_info, ranges, calibration, pinfo, valid)
     attrs = _attrs(cfg, run, meta, reg_report, ranges, pred, calibration)
     ds = result_dataset(maps, attrs=attrs, sources=tuple(pred))
@@ -126,6 +131,18 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
 
 
 # --------------------------------------------------------------------------- steps
+def _sources(cfg, run, transform, ranges, inside):
+    """The candidate sources of a run and, with the lateral heat model, the IR pixel (m)."""
+    dg = cfg.diagnosis
+    sources = list(dg.sources) if dg.sources else [s for s in SOURCES if s != "lateral"]
+    mode = cfg.lateral_heat_for(run)
+    if mode == "off":
+        return sources, None
+    if mode == "instead":
+        sources = [s for s in sources if s != "model"]
+    return sources + ["lateral"], ir_pixel_axes(transform, ranges.units, inside)
+
+
 def _motion_compensated(run, budget, disp, transform, load_range, ir_shape, progress):
     """The thermal side again, on frames warped back by the correlation displacement."""
     if disp is None or transform is None or load_range is None:
@@ -175,8 +192,9 @@ def _result_maps(thermal, measured, measured_std, snr, lag, strain, strain_std, 
     for s in pred:
         maps[f"ratio_{s}"] = pred[s]
         maps[f"ratio_{s}_std"] = pstd[s]
-    if "model" in pred:
-        maps["phase_model"] = plag["model"]
+    for s in ("model", "lateral"):
+        if s in pred:
+            maps[f"phase_{s}"] = plag[s]
     maps.update(diag.to_maps())
     maps["valid"] = valid.astype(np.int8)
     for k, v in list(maps.items()):

@@ -8,17 +8,24 @@ from ..datamodel import SOURCES
 from ..errors import ConfigError
 from ..mechanics import (model_response, predict_ratios, prediction_std, source_coefficients, thermal_layers,
                          transfer_coefficients)
+from ._lateral import lateral_prediction
 
 __all__ = ["predictions"]
 
 
-def predictions(lam, strain, strain_std, frequency, *, sources, property_uncertainty):
-    """Predicted ratio, its std and (model) phase lag maps for every source asked for."""
+def predictions(lam, strain, strain_std, frequency, *, sources, property_uncertainty, pixel_axes=None):
+    """Predicted ratio, its std and (heat model) phase lag maps for every source asked for.
+
+    ``pixel_axes`` (the infrared pixel on the specimen, m) is needed for ``"lateral"``; its
+    edge flag comes back in ``info["lateral_edge_map"]``.
+    """
     have = set(source_coefficients(lam))
     adiabatic = [s for s in sources if s in have]
-    pred = predict_ratios(lam, strain, sources=adiabatic)
-    std = prediction_std(lam, strain, strain_std, property_uncertainty=property_uncertainty,
-                         sources=adiabatic)
+    pred, std = {}, {}
+    if adiabatic:
+        pred = predict_ratios(lam, strain, sources=adiabatic)
+        std = prediction_std(lam, strain, strain_std, property_uncertainty=property_uncertainty,
+                             sources=adiabatic)
     lags = {s: 0.0 for s in adiabatic}
     info = {}
     if "model" in sources:
@@ -35,5 +42,11 @@ def predictions(lam, strain, strain_std, frequency, *, sources, property_uncerta
         lags["model"] = np.asarray(lag, np.float32)
         info["model_coefficients_re"] = [float(c.real) for c in coef]
         info["model_coefficients_im"] = [float(c.imag) for c in coef]
+    if "lateral" in sources:
+        ratio, s_lat, lag, edge, linfo = lateral_prediction(lam, strain, strain_std, frequency, pixel_axes,
+                                                            property_uncertainty=property_uncertainty)
+        pred["lateral"], std["lateral"], lags["lateral"] = ratio, s_lat, lag
+        info["lateral"] = linfo
+        info["lateral_edge_map"] = edge
     order = [s for s in SOURCES if s in pred]
     return {s: pred[s] for s in order}, {s: std[s] for s in order}, {s: lags[s] for s in order}, info
