@@ -12,13 +12,13 @@ write_run
     result.nc, summary.json and the figures of a computed run, written into a folder.
 check_run_inputs
     Every input of a run opened far enough to know it can be read (``fusion check``).
-input_files
-    The files a run reads.
+input_files, input_digests
+    The files a run reads, and their SHA-256 (as result.nc records them).
 """
 
 from ._check import check_run_inputs
 from ._compose import RunResult, compute_run
-from ._files import input_files
+from ._files import input_digests, input_files
 from ._write import write_run
 
-__all__ = ["RunResult", "check_run_inputs", "compute_run", "input_files", "write_run"]
+__all__ = ["RunResult", "check_run_inputs", "compute_run", "input_digests", "input_files", "write_run"]

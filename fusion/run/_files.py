@@ -5,9 +5,9 @@ from __future__ import annotations
 import dataclasses
 from pathlib import Path
 
-from ..io import input_file
+from ..io import input_file, sha256_file
 
-__all__ = ["need_file", "input_files"]
+__all__ = ["need_file", "input_files", "input_digests"]
 
 
 def need_file(path: Path, key: str) -> Path:
@@ -26,3 +26,8 @@ def input_files(run) -> list[Path]:
             elif isinstance(v, tuple) and v and all(isinstance(x, Path) for x in v):
                 files.extend(v)
     return files
+
+
+def input_digests(run) -> dict[str, str]:
+    """SHA-256 of every input file of a run that exists, by path (``input_sha256`` of result.nc)."""
+    return {str(p): sha256_file(p) for p in input_files(run) if Path(p).is_file()}
