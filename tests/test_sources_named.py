@@ -50,6 +50,7 @@ PHYSICS_MODULES = frozenset({
     "test_demo.py", "test_end_to_end.py",                                       # whole runs
     "test_input_units.py", "test_frequency_from_load.py", "test_stack_sanity.py",  # input checks
     "test_correlation_inputs.py", "test_sweep_statistic.py",
+    "test_api_conventions.py",                                                  # the Python API's rules
 })
 
 OTHER_MODULES = {
@@ -79,6 +80,9 @@ OTHER_MODULES = {
     "test_ownership.py": "what in an output folder is fusion's: publishing, recovery, refusals",
     "test_progress.py": "the progress display",
     "test_quoting.py": "file content quoted in messages",
+    "test_api_rebuild.py": "the Python API's steps against the command line's result.nc (two code paths)",
+    "test_api_door.py": "error text of the plausibility checks at the Python API's door",
+    "test_docs.py": "the API reference, docstring references, README example and package data",
 }
 
 LIBRARIES = r"numpy|scipy|scikit-image|skimage|opencv|cv2"

@@ -11,8 +11,8 @@ from ._field import DicField, StrainRanges
 from ._resolution import resolution_attrs
 from ._strain import data_edge_distance, strain_fit, vsg_attrs
 
-__all__ = ["ranges_from_states", "ranges_from_series", "ranges_from_time_series",
-           "ranges_from_strain_table"]
+__all__ = ["ranges_from_states", "ranges_from_displacement", "ranges_from_series",
+           "ranges_from_time_series", "ranges_from_strain_table"]
 
 
 def _check_field(name, f):
@@ -138,6 +138,38 @@ def ranges_from_states(field_min, field_max, *, window=5, order=1, kind="small",
     return _result(field_max, window, ranges, stds, valid,
                    f"two states (max minus min load), {kind} strain, order-{order} fit",
                    details=details)
+
+
+def ranges_from_displacement(field, *, window=5, order=1, kind="small", min_valid=0.5):
+    """Strain ranges from one displacement field taken from minimum to maximum load.
+
+    Parameters
+    ----------
+    field : DicField
+        Displacements of the state at maximum load measured from the state at minimum
+        load, e.g. one speckle image pair correlated by :func:`fusion.dic.correlate`
+        (reference image at minimum load) and turned into the specimen frame by
+        :meth:`~fusion.dic.CorrelationResult.to_field`.
+    window, order, kind, min_valid
+        As in :func:`strain_from_field`.
+
+    Returns
+    -------
+    StrainRanges
+        ``d eps`` per point (1), with standard deviations.
+
+    Notes
+    -----
+    The same as :func:`ranges_from_states` with the minimum-load state as the reference
+    (zero displacement, no noise of its own): the field's own ``u_std``/``v_std`` carry
+    the noise of the pair.
+    """
+    _check_field("field", field)
+    reference = DicField(x=field.x, y=field.y, u=np.zeros_like(field.u), v=np.zeros_like(field.v),
+                         valid=field.valid, grid_shape=field.grid_shape, units=field.units,
+                         attrs=field.attrs)
+    return ranges_from_states(reference, field, window=window, order=order, kind=kind,
+                              min_valid=min_valid)
 
 
 def _state_strains(fields, window, order, kind, min_valid):

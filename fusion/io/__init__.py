@@ -2,8 +2,8 @@
 
 Public names
 ------------
-write_netcdf, read_netcdf
-    Results through xarray, written atomically.
+write_netcdf, read_netcdf, netcdf_form
+    Results through xarray, written atomically; the in-memory form of a written file.
 atomic_path, atomic_write_text, atomic_write_bytes, sha256_file, safe_child
     Safe output helpers.
 temp_name, parse_temp_name, make_temp_folder, this_host
@@ -46,7 +46,7 @@ from ._frames import FrameStack, open_frames
 from ._guard import input_file
 from ._maps import MAP_QUANTITIES, read_thermal_maps
 from ._marks import MARK_KEY, product_mark
-from ._netcdf import read_netcdf, write_netcdf
+from ._netcdf import netcdf_form, read_netcdf, write_netcdf
 from ._plausible import (PLAUSIBLE, STRAIN_UNITS, check_load_ranges, check_ratio, check_strain_ranges,
                          check_temperatures)
 from ._sequences import SequenceFiles, SequenceStack, file_identity, is_sequence, list_images, list_sequence, open_sequence
@@ -56,7 +56,7 @@ from ._textgrids import cache_folder as text_grid_cache
 __all__ = [
     "atomic_path", "atomic_write_bytes", "atomic_write_text", "safe_child", "sha256_file", "input_file",
     "temp_name", "parse_temp_name", "make_temp_folder", "this_host", "content_digest",
-    "read_netcdf", "write_netcdf",
+    "netcdf_form", "read_netcdf", "write_netcdf",
     "open_frames", "FrameStack", "read_load_signal", "LoadSignal", "read_frame_times", "read_thermal_maps",
     "MAP_QUANTITIES",
     "read_dic_field", "read_image", "product_mark", "MARK_KEY",

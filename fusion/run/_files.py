@@ -6,10 +6,10 @@ import dataclasses
 from pathlib import Path
 
 from ..errors import FusionError
-from ..io import input_file, is_sequence, list_images, list_sequence
+from ..io import input_file, is_sequence, list_images, list_sequence, sha256_file
 
-__all__ = ["need_file", "input_files", "sequence_files", "frame_sequence", "image_sequence", "beside_frames",
-           "beside_images"]
+__all__ = ["need_file", "input_files", "input_digests", "sequence_files", "frame_sequence", "image_sequence",
+           "beside_frames", "beside_images"]
 
 
 def need_file(path: Path, key: str) -> Path:
@@ -73,3 +73,8 @@ def sequence_files(run) -> list[Path]:
             except FusionError:
                 pass        # the run itself names the problem
     return files
+
+
+def input_digests(run) -> dict[str, str]:
+    """SHA-256 of every input file of a run that exists, by path (``input_sha256`` of result.nc)."""
+    return {str(p): sha256_file(p) for p in input_files(run) if Path(p).is_file()}

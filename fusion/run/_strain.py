@@ -114,20 +114,22 @@ def strain_side(run, *, load_range=None, progress=False):
             if img.shape != imgs[0].shape:
                 raise InputError(p, f"is a {img.shape[0]}x{img.shape[1]} image, the reference {paths[0].name} "
                                  f"{imgs[0].shape[0]}x{imgs[0].shape[1]}: every speckle image must have one size")
-        roi = tuple(spec.roi) if spec.roi is not None else None
+        # the config's dic.roi is [row0, col0, row1, col1]; correlate takes (x0, y0, x1, y1)
+        roi = (spec.roi[1], spec.roi[0], spec.roi[3], spec.roi[2]) if spec.roi is not None else None
         if spec.mask is not None:
             m = read_image(need_file(spec.mask, "dic.mask")) > 0
             if m.shape != imgs[0].shape:
                 raise InputError(spec.mask, f"mask has shape {m.shape}, the speckle images {imgs[0].shape}")
             if roi is not None:
                 box = np.zeros_like(m)
-                box[roi[0]:roi[2], roi[1]:roi[3]] = True
+                box[spec.roi[0]:spec.roi[2], spec.roi[1]:spec.roi[3]] = True
                 m &= box
             roi = m
         fields = []
         for i, img in enumerate(imgs[1:], 1):
             try:
-                res = correlate(imgs[0], img, subset=spec.subset, step=spec.step, roi=roi, progress=progress)
+                res = correlate(imgs[0], img, subset=spec.subset, step=spec.step, region=roi,
+                                progress=progress)
             except ValueError as e:
                 raise InputError(paths[i], f"correlation: {e}") from e
             ok = np.asarray(res.converged).mean() if np.size(res.converged) else 0.0

@@ -4,20 +4,17 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from ..io import sha256_file, write_netcdf
+from ..io import write_netcdf
 from ..report import run_figures, summarize_run, write_summary
 from ._compose import RunResult
-from ._files import input_files
+from ._files import input_digests
 
 __all__ = ["write_run"]
 
 
 def write_run(result: RunResult, folder: Path, *, cfg, run, stamp: str) -> dict:
     """Write result.nc, summary.json and figures of a run into ``folder``; returns the summary."""
-    inputs = {}
-    for p in input_files(run):
-        if Path(p).is_file():
-            inputs[str(p)] = sha256_file(p)
+    inputs = input_digests(run)
     ds = result.dataset
     ds.attrs["input_sha256"] = inputs
     write_netcdf(ds, folder / "result.nc")
