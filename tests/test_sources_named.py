@@ -61,6 +61,8 @@ OTHER_MODULES = {
     "test_hostile_readers.py": "broken and hostile input files",
     "test_hostile_pipeline.py": "failures inside a campaign: exit codes, nothing half-written",
     "test_frames_io.py": "frame-stack readers",
+    "test_sequences.py": "frame and image sequences: readers, order, cache, load logs; one run compared "
+                         "across formats (its lock-in amplitude against the test's own forward model)",
     "test_dic_io.py": "correlation-field readers and their sign conventions",
     "test_cli.py": "argv and exit codes",
     "test_summary.py": "summary.json contents and schema",
@@ -68,6 +70,7 @@ OTHER_MODULES = {
     "test_report_figures.py": "figures and their file formats",
     "test_report_browser.py": "the report in a headless browser",
     "test_resume.py": "skip, resume and overwrite of runs",
+    "test_watch.py": "fusion watch: completion, settling, config reloads, kill and restart, memory",
     "test_workers.py": "local worker processes",
     "test_campaign_dask.py": "dask.distributed scheduling",
     "test_memory_budget.py": "memory use of the streaming passes",

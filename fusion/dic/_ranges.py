@@ -267,10 +267,27 @@ def ranges_from_series(fields, loads, *, load_range, window=5, order=1, kind="sm
     coef, std, ok = _weighted_lsq(design, strains, weights)
     ranges = coef[1] / scale * load_range
     stds = std[1] / scale * load_range
+    scatter = _fit_scatter(design, strains, weights, coef, ok)
     return _result(fields[-1], window, ranges, stds, ok,
                    f"least-squares slope over {len(fields)} states times the load range, "
                    f"{kind} strain, order-{order} fit",
-                   extra={"load_range": float(load_range)})
+                   extra={"load_range": float(load_range), "states": len(fields),
+                          **{f"fit_scatter_{c}": v for c, v in zip(("exx", "eyy", "gxy"), scatter)}})
+
+
+def _fit_scatter(design, strains, weights, coef, ok):
+    """Median over the points of the residual standard deviation of the straight-line fit
+    (strain, per component; None where no point has more states than fit parameters).
+
+    It tells how far the states stray from a linear response (noise, slip, non-linearity)."""
+    dof = weights.sum(axis=0) - design.shape[1]
+    use = ok & (dof > 0)
+    if not use.any():
+        return (None, None, None)
+    fitted = np.einsum("ki,icn->kcn", design, coef[:, :, use])
+    resid = (np.nan_to_num(strains[:, :, use]) - fitted) * weights[:, None, use]
+    sd = np.sqrt(np.sum(resid ** 2, axis=0) / dof[use])
+    return tuple(float(np.nanmedian(c)) for c in sd)
 
 
 def ranges_from_time_series(fields, times, frequency, *, window=5, order=1, kind="small",

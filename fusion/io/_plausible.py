@@ -132,8 +132,8 @@ def check_ratio(delta_T, T0, *, where, what="delta_T", fix="convert it to kelvin
                      f"any elastic thermoelastic signal{like}")
 
 
-def check_load_ranges(signal_range, loads, *, where):
-    """Refuse a load signal whose range and the span of ``dic.loads`` differ by a unit factor."""
+def check_load_ranges(signal_range, loads, *, where, what="dic.loads"):
+    """Refuse a load signal whose range and the span of ``dic.loads`` (or of ``what``) differ by a unit factor."""
     b = PLAUSIBLE["load_range_ratio"]
     span = float(np.ptp(np.asarray(loads, dtype=np.float64)))
     if not span > 0 or not np.isfinite(signal_range):
@@ -142,6 +142,8 @@ def check_load_ranges(signal_range, loads, *, where):
     if _inside(b, k):
         return
     slip = (" (a factor of 1000: kN against N?)" if 300 < k < 3000 or 300 < 1 / k < 3000 else "")
+    unit = " N" if what == "dic.loads" else ""
+    fix = ("dic.loads takes units, e.g. \"2 kN\"" if what == "dic.loads" else
+           "convert the load log to the unit of the load signal")
     raise InputError(where, f"the load signal's range {float(signal_range):.4g} (file units) is {k:.3g} "
-                     f"times the span {span:.4g} N of dic.loads{slip}; give both in the same unit "
-                     "(dic.loads takes units, e.g. \"2 kN\")")
+                     f"times the span {span:.4g}{unit} of {what}{slip}; give both in the same unit ({fix})")

@@ -24,6 +24,7 @@ from ..io import read_image
 from ..mechanics import ply_profile
 from ..thermal import motion_amplitude
 from ._files import need_file
+from ._inputs import reference_image_path
 from ._lateral import ir_pixel_axes
 from ._predictions import predictions
 from ._registration import check_footprint, motion_support, refine_registration, registration_side
@@ -286,7 +287,7 @@ def _ply_profile(lam, strain, valid):
 
 def _reference_on_ir(run, transform, shape):
     """The visible reference image resampled onto the IR grid (for the overlay), or None."""
-    ref = run.dic.reference_image or (run.dic.images[0] if run.dic.images else None)
+    ref = reference_image_path(run.dic)
     if ref is None or transform is None or not Path(ref).is_file():
         return None
     import cv2
