@@ -4,7 +4,7 @@ Calls for one run, step by step (labelled :mod:`xarray` objects; see :mod:`fusio
 ---------------------------------------------------------------------------------------
 compute(config, run)
     The whole result of one run of a campaign config, in memory: result.nc's dataset.
-lockin_maps, strain_ranges, motion_field, registered_strain, predictions, diagnosis
+lockin_maps, thermal_maps, strain_ranges, motion_field, registered_strain, predictions, diagnosis
     One call per step of a run.
 
 Subpackages
@@ -53,7 +53,7 @@ __version__ = "0.1.0"
 
 #: The calls of :mod:`fusion.api`, also available here.
 _CALLS = ("compute", "diagnosis", "lockin_maps", "motion_field", "predictions", "registered_strain",
-          "strain_ranges")
+          "strain_ranges", "thermal_maps")
 _SUBPACKAGES = ("api", "bench", "campaign", "config", "datamodel", "demo", "diagnose", "dic", "errors", "io",
                 "mechanics", "pipeline", "plan", "register", "report", "run", "thermal", "units")
 

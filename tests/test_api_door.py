@@ -129,3 +129,42 @@ def test_unknown_run_named():
     demo_config = Path(fusion.__file__).parent / "data" / "demo.toml"
     with pytest.raises(ArgumentError, match=r"run: no run named 'nope' in the config; its runs: \['CQ-0p05Hz'"):
         fusion.compute(demo_config, "nope")
+
+
+def test_lateral_model_needs_a_pixel_size_in_millimetres():
+    lam = Laminate.from_layup(PLY, "[0/90]s", 0.25e-3)
+    strain = np.zeros((24, 30, 3))
+    strain[..., 0] = 2e-3
+    kw = dict(strain_std=np.full(3, 2e-5), frequency=2.0, sources=["model", "lateral"])
+    with pytest.raises(ArgumentError, match=r"pixel_size: the lateral heat model \('lateral'\) needs the size of an "
+                                            r"infrared pixel"):
+        fusion.predictions(lam, strain, **kw)
+    with pytest.raises(ArgumentError, match=r"pixel_size: 0.0002 mm per pixel .* looks like metres"):
+        fusion.predictions(lam, strain, pixel_size=2e-4, **kw)
+    with pytest.raises(ArgumentError, match=r"strain: the lateral heat model \('lateral'\) needs strain maps on the "
+                                            r"IR grid \(dims y, x\)"):
+        fusion.predictions(lam, strain[0], pixel_size=0.2, **kw)
+    with pytest.raises(ArgumentError, match=r"frequency: the heat model \('lateral'\) needs the loading frequency"):
+        fusion.predictions(lam, strain, strain_std=np.full(3, 2e-5), sources=["lateral"], pixel_size=0.2)
+    done = fusion.predictions(lam, strain, pixel_size=0.2, **kw)
+    assert {"ratio_lateral", "phase_lateral", "lateral_edge"} <= set(done.data_vars)
+    # away from the border a uniform field gives the through-thickness answer (see test_lateral)
+    inner = done["lateral_edge"].values == 0
+    assert inner.any()
+    np.testing.assert_allclose(done["ratio_lateral"].values[inner], done["ratio_model"].values[inner], rtol=1e-5)
+
+
+def test_maps_say_what_their_delta_T_holds():
+    T0 = np.full((6, 8), 296.0)
+    dT = np.full((6, 8), -0.05)
+    with pytest.raises(ArgumentError, match=r"delta_T_convention: expected one of .* got 'range'.*peak-to-peak.*"
+                                            r"amplitude"):
+        fusion.thermal_maps({"T0": T0, "delta_T": dT}, delta_T_convention="range")
+    with pytest.raises(ArgumentError, match=r"maps: expected 2-D maps of one \(Y, X\) shape"):
+        fusion.thermal_maps({"T0": T0, "delta_T": dT[:, :7]}, delta_T_convention="amplitude")
+    with pytest.raises(ArgumentError, match=r"maps: .* looks like degrees Celsius"):
+        fusion.thermal_maps({"T0": T0 - 273.15, "delta_T": dT}, delta_T_convention="amplitude")
+    ptp = fusion.thermal_maps({"T0": T0, "delta_T": dT}, delta_T_convention="peak-to-peak")
+    amp = fusion.thermal_maps({"T0": T0, "delta_T": dT / 2}, delta_T_convention="amplitude")
+    np.testing.assert_allclose(amp["ratio_measured"].values, ptp["ratio_measured"].values, rtol=1e-6)
+    np.testing.assert_allclose(ptp["ratio_measured"].values, -0.05 / 296.0, rtol=1e-6)

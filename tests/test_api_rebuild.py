@@ -25,7 +25,7 @@ from fusion.register import fit_transform
 pytestmark = pytest.mark.slow
 
 ROOT = Path(__file__).resolve().parents[1]
-RUNS = ("CX-2Hz", "CX-0p05Hz")
+RUNS = ("CX-2Hz", "CX-0p05Hz", "CL-2Hz")
 # result.nc keeps T0 and the flag maps (integers) outside the valid area; every other map is NaN there
 KEEP_OUTSIDE = ("T0",)
 
@@ -124,6 +124,33 @@ def test_motion_compensated_run_rebuilt_step_by_step(demo):
     predicted = fusion.predictions(cfg.laminate_for(run), on_ir, frequency=run.frequency)
     found = fusion.diagnosis(thermal, predicted, strain=on_ir)
     _compare(read_netcdf(out / "CX-0p05Hz" / "result.nc"), [thermal, on_ir, predicted, found], rtol=1e-6)
+
+
+def test_maps_run_with_the_lateral_model_rebuilt_step_by_step(demo):
+    # CL-2Hz: precomputed maps (peak-to-peak), a strain table in mm, the lateral heat model
+    # beside the through-thickness one; the IR pixel size comes with the registered strain
+    config, out = demo
+    cfg = load_config(config)
+    run = next(r for r in cfg.runs if r.name == "CL-2Hz")
+    thermal = fusion.thermal_maps(run.thermal.maps, delta_T_convention=run.thermal.delta_T_convention,
+                                  frequency=run.frequency)
+    strain = fusion.strain_ranges(table=read_dic_field(run.dic.strain_ranges))
+    reg = cfg.registration_for(run)
+    transform = fit_transform(reg.dic_points, reg.ir_points, method=reg.method)
+    markers = [(c, r, reg.marker_radius + reg.marker_margin) for c, r in reg.ir_points]
+    on_ir = fusion.registered_strain(strain, transform, thermal, markers=markers)
+    assert np.shape(on_ir.attrs["ir_pixel_axes_mm"]) == (2, 2)
+    sources = [s for s in fusion.datamodel.SOURCES if s != "lateral"] + ["lateral"]
+    lam = cfg.laminate_for(run)
+    sources = [s for s in sources if s in fusion.mechanics.available_sources(lam) or s in ("model", "lateral")]
+    predicted = fusion.predictions(lam, on_ir, frequency=run.frequency, sources=sources,
+                                   property_uncertainty=cfg.diagnosis.property_uncertainty)
+    dg = cfg.diagnosis
+    found = fusion.diagnosis(thermal, predicted, strain=on_ir, min_snr=dg.min_snr,
+                             fit_threshold=dg.fit_threshold, distinguish=dg.distinguish)
+    reference = read_netcdf(out / "CL-2Hz" / "result.nc")
+    assert "ratio_lateral" in reference and "lateral_edge" in reference
+    _compare(reference, [thermal, on_ir, predicted, found], rtol=1e-6)
 
 
 def test_readme_example_runs(demo, tmp_path, monkeypatch, capsys):

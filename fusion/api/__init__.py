@@ -11,6 +11,9 @@ compute
 lockin_maps
     Lock-in maps of an infrared frame stack (T0, dT, phase, noise, the measured ratio dT/T0
     and its phase lag) on the IR grid.
+thermal_maps
+    Precomputed maps (an earlier lock-in, another program's export) in the same labels, their
+    delta_T convention stated.
 strain_ranges
     Cyclic strain ranges from a strain table, two states, a load series or speckle images
     (one pair is enough), on the correlation grid in the specimen frame.
@@ -20,7 +23,7 @@ registered_strain
     The strain ranges resampled onto every IR pixel.
 predictions
     Predicted dT/T0 of every candidate source with standard deviations and phase lags,
-    the through-thickness heat model included.
+    the through-thickness heat model included, and the lateral one when asked for.
 diagnosis
     Residuals, z-scores and the source map of the measured ratio against the predictions.
 
@@ -45,7 +48,7 @@ from ._diagnose import diagnosis
 from ._predict import predictions
 from ._register import registered_strain
 from ._strain import strain_ranges
-from ._thermal import lockin_maps, motion_field
+from ._thermal import lockin_maps, motion_field, thermal_maps
 
 __all__ = ["compute", "diagnosis", "lockin_maps", "motion_field", "predictions", "registered_strain",
-           "strain_ranges"]
+           "strain_ranges", "thermal_maps"]

@@ -109,10 +109,13 @@ def diagnosis(measured, predicted, *, strain=None, valid=None, measured_std=None
     pred = {s: np.asarray(predicted[f"ratio_{s}"].values) for s in sources}
     pstd = {s: np.asarray(predicted[f"ratio_{s}_std"].values) for s in sources}
     plag = {s: 0.0 for s in sources}
-    if "model" in sources:
-        plag["model"] = np.asarray(predicted["phase_model"].values)
+    for model in ("model", "lateral"):
+        if model in sources:
+            plag[model] = np.asarray(predicted[f"phase_{model}"].values)
+    # as a run: the heat models mix layers, named only where no layer fits (the lateral one first)
     diag = diagnose(m, ms, pred, pstd, valid=good, measured_lag=lag, measured_lag_std=lag_std,
-                    predicted_lag=plag, fit_threshold=fit_threshold, distinguish=distinguish)
+                    predicted_lag=plag, fit_threshold=fit_threshold, distinguish=distinguish,
+                    secondary=("lateral", "model"))
     maps = diag.to_maps()
     maps["valid"] = good.astype(np.int8)
     # as in result.nc: float maps are NaN outside the valid area, flag maps keep their own

@@ -9,6 +9,7 @@ from ..datamodel import result_dataset
 from ..errors import ArgumentError
 from .._conventions import as_mask
 from ..register import CameraModel, Transform2D, disk_mask, edge_distance_map, resample_to_grid
+from ..run._lateral import ir_pixel_axes
 from ._labels import COMPONENTS, flag, grid_shape_of, to_ranges
 
 __all__ = ["registered_strain"]
@@ -44,8 +45,11 @@ def registered_strain(strain, transform, grid, *, markers=None, exclude=None):
         ``footprint`` (the whole pixel lies on usable correlation data, outside markers and
         exclusions), ``masked`` (markers and exclusions) and ``missing`` (the correlation grid
         covers the pixel but has no usable data there). ``attrs``: the registration
-        errors ``registration_rms`` and ``registration_max_error`` (IR px) and the strain
-        settings (``strain_attrs``).
+        errors ``registration_rms`` and ``registration_max_error`` (IR px), the strain
+        settings (``strain_attrs``) and, for correlation data in mm and a 2-D transform,
+        ``ir_pixel_axes_mm``: the specimen-frame steps (mm) of one IR pixel along its columns
+        and rows at the centre of the data, which the lateral heat model of
+        :func:`fusion.predictions` takes.
 
     Raises
     ------
@@ -103,4 +107,6 @@ def registered_strain(strain, transform, grid, *, markers=None, exclude=None):
     ds.attrs.update(registration_rms=float("nan") if rms is None else float(rms),
                     registration_max_error=float("nan") if mx is None else float(mx),
                     registration_units="IR pixel", strain_attrs=dict(r.attrs))
+    if isinstance(transform, Transform2D) and r.units == "mm" and inside.any():
+        ds.attrs["ir_pixel_axes_mm"] = (ir_pixel_axes(transform, r.units, inside) * 1e3).tolist()
     return ds

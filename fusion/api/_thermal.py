@@ -1,4 +1,4 @@
-"""The thermal steps: lock-in maps of a frame stack, and the motion field that compensates it."""
+"""The thermal steps: lock-in maps of a frame stack or precomputed maps, and the motion field."""
 
 from __future__ import annotations
 
@@ -9,13 +9,14 @@ from .._bounds import check_frame_axes, check_grid_shape, check_temperature
 from ..datamodel import result_dataset
 from ..diagnose import measured_ratio
 from ..errors import ArgumentError
-from ..io import LoadSignal
+from ..io import LoadSignal, read_thermal_maps
 from ..register import Transform2D
 from ..run._thermal import motion_field as _run_motion_field
+from ..run._thermal import prepared_maps
 from ..thermal import estimate_frequency, load_reference, lockin, motion_amplitude, motion_compensate
 from ._labels import extra, flag, grid_shape_of, to_ranges
 
-__all__ = ["lockin_maps", "motion_field"]
+__all__ = ["lockin_maps", "motion_field", "thermal_maps"]
 
 
 def _load(load, load_times):
@@ -144,6 +145,83 @@ def lockin_maps(frames, *, frequency=None, frame_rate=None, times=None, load=Non
                     n_frames=int(res.n_frames), frame_rate=float(res.frame_rate),
                     reference_phase=float(res.reference_phase), bad_pixels=dict(res.bad_pixels),
                     warnings=list(res.warnings), motion_compensated=motion is not None)
+    return ds
+
+
+_CONVENTIONS = ("peak-to-peak", "amplitude")
+
+
+def thermal_maps(maps, *, delta_T_convention, frequency=None, variables=None):
+    """Precomputed thermal maps (an earlier lock-in, another program's export), labelled on the IR grid.
+
+    Parameters
+    ----------
+    maps : str, os.PathLike, mapping of str to path, or mapping of str to (Y, X) array_like
+        A file :func:`fusion.io.read_thermal_maps` reads (NetCDF, multi-page TIFF, long CSV
+        table, or ``{quantity: path}`` of CSV grids), or the maps themselves: ``T0`` (K) and
+        ``delta_T`` (K), or ``magnitude`` (K) with ``phase`` (degree); optionally
+        ``delta_T_std``, ``delta_T_quadrature`` (K) and ``phase``.
+    delta_T_convention : {"peak-to-peak", "amplitude"}
+        What the maps' ``delta_T`` (and its std, quadrature, magnitude) hold: the range
+        between maximum and minimum load as fusion writes it, or half of it. No default: an
+        amplitude taken for a range halves every measured dT/T0.
+    frequency : float, optional
+        Loading frequency of the maps, Hz (recorded in ``attrs``).
+    variables : mapping or list, optional
+        Names in the file that differ from the quantities (see :func:`fusion.io.read_thermal_maps`).
+
+    Returns
+    -------
+    xarray.Dataset
+        Dims ``(y, x)`` = (IR row, IR column): ``T0``, ``delta_T`` (peak-to-peak), ``delta_T_std``
+        (from the maps, else estimated from the pixel-to-pixel scatter), ``delta_T_quadrature``
+        and ``phase`` when the maps give them, the measured ratio ``ratio_measured`` with its
+        std, ``snr``, ``phase_lag_measured`` and its std (with a quadrature or phase map), and
+        ``thermal_valid``. ``attrs``:
+        ``delta_T_convention``, ``frequency`` and ``warnings``.
+
+    Raises
+    ------
+    ArgumentError
+        An unknown convention; maps that are no 2-D grids of one shape.
+    InputError
+        A file that cannot be read; temperatures that are no kelvin; a delta_T that is no
+        temperature range of these T0.
+
+    Notes
+    -----
+    The thermal side of a run with ``thermal.maps`` (``fusion run``): the same conversions.
+    """
+    if delta_T_convention not in _CONVENTIONS:
+        raise ArgumentError("delta_T_convention", f"expected one of {_CONVENTIONS}, got {delta_T_convention!r}: "
+                            "does delta_T hold max-load minus min-load (peak-to-peak) or half of it (amplitude)?")
+    if isinstance(maps, dict) and maps and all(not isinstance(v, (str, bytes)) and not hasattr(v, "__fspath__")
+                                               for v in maps.values()):
+        where = "maps"
+        arrays = {k: np.asarray(v, np.float32) for k, v in maps.items()}
+        shapes = {k: a.shape for k, a in arrays.items()}
+        if any(a.ndim != 2 for a in arrays.values()) or len(set(shapes.values())) != 1:
+            raise ArgumentError("maps", f"expected 2-D maps of one (Y, X) shape, got {shapes}")
+        if "T0" not in arrays or not ("delta_T" in arrays or {"magnitude", "phase"} <= set(arrays)):
+            raise ArgumentError("maps", f"expected T0 and delta_T (or magnitude with phase), got {sorted(arrays)}")
+        check_temperature(arrays["T0"][np.isfinite(arrays["T0"])], "maps")
+    else:
+        where = str(maps) if not isinstance(maps, dict) else "maps"
+        arrays = read_thermal_maps(maps, variables=variables)
+    out, ok, warnings = prepared_maps(arrays, delta_T_convention, where=where)
+    ratio, ratio_std, snr, lag, lag_std = measured_ratio(out["T0"], out["delta_T"], out["delta_T_std"],
+                                                         out.get("delta_T_quadrature"))
+    out.update(ratio_measured=ratio, ratio_measured_std=ratio_std, snr=snr)
+    if lag is not None:
+        # without a quadrature (or phase) the maps carry no phase lag, as in a run
+        out["phase_lag_measured"] = lag
+    ds = result_dataset(out)
+    if lag_std is not None:
+        ds["phase_lag_measured_std"] = extra(("y", "x"), lag_std, "degree", "standard deviation of "
+                                             "phase_lag_measured")
+    ds["thermal_valid"] = flag(("y", "x"), ok, "pixel with T0 and delta_T in the maps")
+    ds.attrs.update(delta_T_convention=delta_T_convention, warnings=list(warnings),
+                    **({"frequency": float(frequency), "frequency_units": "Hz"} if frequency is not None else {}))
     return ds
 
 

@@ -19,7 +19,7 @@ from ..thermal import (alias_candidates, estimate_frequency, layout_problem, loa
 from ._files import need_file
 from ._inputs import frame_times, open_thermal_frames
 
-__all__ = ["thermal_side", "maps_side", "load_range", "run_load_range", "motion_field",
+__all__ = ["thermal_side", "maps_side", "prepared_maps", "load_range", "run_load_range", "motion_field",
            "load_and_frequency", "check_frames", "LOAD_CLOCK_FACTOR", "FREQUENCY_SIGMAS", "FREQUENCY_MISMATCH",
            "LOAD_COVERAGE_WARN", "LOAD_COVERAGE_FLOOR"]
 
@@ -202,8 +202,21 @@ def maps_side(run):
         if isinstance(e, InputError):
             raise
         raise ConfigError("thermal.variables", str(e)) from e
+    out, valid, warnings = prepared_maps(maps, spec.delta_T_convention, where=path)
+    info = {"frequency": run.frequency, "source": "maps", "delta_T_convention": spec.delta_T_convention,
+            "warnings": warnings}
+    return out, valid, info, None
+
+
+def prepared_maps(maps, convention, *, where):
+    """Precomputed maps in the run's conventions: peak-to-peak delta_T with its std and quadrature.
+
+    ``maps`` as :func:`fusion.io.read_thermal_maps` returns them; ``convention`` is what their
+    delta_T holds (``"peak-to-peak"`` or ``"amplitude"``); ``where`` names them in messages.
+    Returns the maps, the pixels with T0 and delta_T, and warnings.
+    """
     warnings = []
-    scale = 2.0 if spec.delta_T_convention == "amplitude" else 1.0
+    scale = 2.0 if convention == "amplitude" else 1.0
     T0 = np.asarray(maps["T0"], np.float32)
     phase = maps.get("phase")
     quad = maps.get("delta_T_quadrature")
@@ -238,16 +251,14 @@ def maps_side(run):
         lap = dT[1:-1, 1:-1] * 4 - dT[:-2, 1:-1] - dT[2:, 1:-1] - dT[1:-1, :-2] - dT[1:-1, 2:]
         sigma = 1.4826 * np.nanmedian(np.abs(lap)) / math.sqrt(20.0)
         std = np.full_like(dT, sigma)
-    check_ratio(dT, T0, where=path, fix="convert it to kelvin, or set units = \"mK\" on a NetCDF variable")
+    check_ratio(dT, T0, where=where, fix="convert it to kelvin, or set units = \"mK\" on a NetCDF variable")
     out = {"T0": T0, "delta_T": dT, "delta_T_std": std}
     if quad is not None:
         out["delta_T_quadrature"] = np.asarray(quad, np.float32) * np.float32(scale)
     if phase is not None:
         out["phase"] = np.asarray(phase, np.float32)
     valid = np.isfinite(T0) & np.isfinite(dT)
-    info = {"frequency": run.frequency, "source": "maps", "delta_T_convention": spec.delta_T_convention,
-            "warnings": warnings}
-    return out, valid, info, None
+    return out, valid, warnings
 
 
 def thermal_side(run, *, budget, motion=None, progress=False):
