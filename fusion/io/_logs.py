@@ -19,17 +19,9 @@ from ..errors import InputError
 from ._guard import MAX_READ_BYTES, input_file
 from ._sequences import SequenceFiles
 from ._signals import read_frame_times
+from ._textgrids import text_delimiter
 
 __all__ = ["read_sequence_times", "read_load_log", "read_table"]
-
-
-def _delimiter(line, decimal):
-    for d in (";", "\t"):
-        if d in line:
-            return d
-    if "," in line and decimal != ",":
-        return ","
-    return None
 
 
 def _number(text, decimal):
@@ -49,7 +41,7 @@ def read_table(path, *, decimal=".", what="a table"):
     lines = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
     if not lines:
         raise InputError(path, f"is empty; expected {what}")
-    delim = _delimiter(lines[0], decimal)
+    delim = text_delimiter(lines[0], decimal)
     if delim is None:
         rows = [ln.split() for ln in lines]
     else:

@@ -32,7 +32,7 @@ from ._guard import MAX_READ_BYTES, input_file, npy_header, text_rows_warning
 
 log = logging.getLogger(__name__)
 
-__all__ = ["text_grid_stack", "cache_folder", "parse_grid"]
+__all__ = ["text_grid_stack", "cache_folder", "parse_grid", "text_delimiter"]
 
 _FORMAT = "fusion-text-grids-1"      # change when the parsing or the stored layout changes
 _CANDIDATES = ("uint16", "int16", "float32", "float64")
@@ -46,7 +46,8 @@ def cache_folder() -> Path:
 
 
 # ------------------------------------------------------------------------------ parsing
-def _delimiter(line, decimal):
+def text_delimiter(line, decimal):
+    """The field delimiter of a text line: semicolon, tab, comma (unless the decimal mark), else None (blanks)."""
     for d in (";", "\t"):
         if d in line:
             return d
@@ -100,7 +101,7 @@ def parse_grid(path, *, decimal="."):
         s = line.split("#", 1)[0].strip()
         if not s:
             continue
-        delim = _delimiter(s, decimal)
+        delim = text_delimiter(s, decimal)
         if _numeric_line(s, delim, decimal):
             start = i
             break
