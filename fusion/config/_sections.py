@@ -178,8 +178,13 @@ class DicSpec:
     strain_order: int = key(_schema.integer(low=1, high=2), "Polynomial order of the strain fit.", default=1)
     pixel_size: float = key(_schema.quantity("mm", positive=True), "Size of a visible-camera pixel on the "
                             "specimen (images; turns px into mm).", unit="mm")
+    region: tuple = key(_schema.list_of(_schema.integer(low=0), min_len=4, max_len=4),
+                        "Rectangle of the speckle images to correlate, [x0, y0, x1, y1] in visible-image "
+                        "px: x counts columns, y rows (down from the top); columns x0 to x1 - 1, rows y0 "
+                        "to y1 - 1.")
     roi: tuple = key(_schema.list_of(_schema.integer(low=0), min_len=4, max_len=4),
-                     "Region of interest [row0, col0, row1, col1] in image px.")
+                     "Deprecated (removed in the next release): 'region' in (row, col) order, [row0, col0, "
+                     "row1, col1]; write region = [col0, row0, col1, row1] instead.")
     mask: Path = key(_schema.path, "Mask image, same size as the speckle images: non-zero where to "
                      "correlate (leave out markers, holes, background).")
     reference_image: Path = key(_schema.path, "Visible reference image for the overlay figure.")
@@ -210,6 +215,44 @@ class DicSpec:
                                   source=ctx.source)
         if self.loads is not None and len(set(self.loads)) < 2:
             raise ConfigError(f"{prefix}.loads", "expected at least two different loads", source=ctx.source)
+        self._check_region(prefix, ctx)
+
+    def _check_region(self, prefix, ctx):
+        if self.region is not None and self.roi is not None:
+            raise ConfigError(f"{prefix}.roi", "is the deprecated (row, col) spelling of 'region', and both "
+                              "are given: keep 'region' only", source=ctx.source)
+        name = "region" if self.region is not None else "roi"
+        box = self.correlation_region
+        if box is None:
+            return
+        if self.images is None:
+            raise ConfigError(f"{prefix}.{name}", "applies to speckle images (dic.images) only: the "
+                              "correlation data given are not cropped by it", source=ctx.source)
+        x0, y0, x1, y1 = box
+        if not (x1 > x0 and y1 > y0):
+            order = "x1 > x0 and y1 > y0" if name == "region" else "row1 > row0 and col1 > col0"
+            raise ConfigError(f"{prefix}.{name}", f"expected {order}, got {list(getattr(self, name))!r}",
+                              source=ctx.source)
+
+    @property
+    def correlation_region(self) -> tuple | None:
+        """The rectangle to correlate, (x0, y0, x1, y1) in visible-image px (``region``, or the
+        deprecated ``roi`` turned into that order); None for the whole image."""
+        if self.region is not None:
+            return tuple(self.region)
+        if self.roi is not None:
+            row0, col0, row1, col1 = self.roi
+            return (col0, row0, col1, row1)
+        return None
+
+    def deprecations(self, prefix: str) -> list[str]:
+        """One sentence per deprecated key these data use, saying how to rewrite it."""
+        if self.roi is None:
+            return []
+        new = list(self.correlation_region)
+        return [f"{prefix}.roi is deprecated and read as region = {new} for this release only: replace "
+                f"roi = {list(self.roi)} by region = {new} ([x0, y0, x1, y1]: columns first, in visible-image "
+                "px)"]
 
     @property
     def image_sequence(self) -> bool:
@@ -470,6 +513,10 @@ class RunSpec:
     def config_key(self) -> str:
         """The dotted-key prefix of this run in messages, e.g. ``run 'CX-2Hz'``."""
         return run_key(self.name, 0)
+
+    def deprecations(self) -> list[str]:
+        """One sentence per deprecated key this run uses, saying how to rewrite it."""
+        return self.dic.deprecations(f"{self.config_key}.dic")
 
     def _check(self, prefix, ctx):
         low = self.name.lower()
