@@ -210,7 +210,7 @@ def test_plan_figure_says_what_its_curves_are(tmp_path):
     # not a physics check: legend labels
     from PIL import Image
 
-    from fusion.plan import _plan_figure
+    from fusion.plan._figure import _plan_figure
 
     lam = coated()
     ds = frequency_plan(lam, uniaxial_strain_state(lam), frequencies=np.geomspace(0.1, 200, 41))
