@@ -12,14 +12,6 @@ from ._response import PLAN_CAUTION
 
 __all__ = ["plan_table"]
 
-_SOURCE_WORDS = {"coating": "coating", "resin_layer": "resin-rich layer",
-                 "surface_ply": "surface ply", "laminate": "laminate (homogenised)"}
-
-
-def _words(name) -> str:
-    return _SOURCE_WORDS.get(str(name), str(name).replace("_", " "))
-
-
 def _nearest_source(value, ds) -> str:
     """The source within tolerance of the complex ``value`` (lag included), else the nearest
     source and how far the response is from it."""
@@ -28,14 +20,14 @@ def _nearest_source(value, ds) -> str:
     rel = np.abs(value - ratios) / np.maximum(np.abs(ratios), 1e-300)
     i = int(np.argmin(rel))
     if rel[i] <= float(ds.attrs["tolerance"]):
-        return _words(names[i])
-    return f"between sources (nearest: {_words(names[i])}, {100 * rel[i]:.2g} % away)"
+        return names[i]
+    return f"between sources (nearest: {names[i]}, {100 * rel[i]:.2g} % away)"
 
 
 def _band_line(name, band, strict, f, tol) -> str:
     """One plain sentence on where the response stays near one source."""
     tried = (float(f[0]), float(f[-1]))
-    near = f"{_words(name)}: the response"
+    near = f"{name}: the response"
     if not math.isfinite(band[0]):
         return (f"{near} never comes within {100 * tol:g} % of it between {tried[0]:.3g} Hz and "
                 f"{tried[1]:.3g} Hz.")
@@ -47,7 +39,7 @@ def _band_line(name, band, strict, f, tol) -> str:
     within = f"within {100 * tol:g} % of it"
     if np.allclose(strict, band, rtol=1e-9):
         return f"{near} stays {within} {span(band)}, with a small phase lag."
-    text = f"{_words(name)}: the in-phase part of the response stays {within} {span(band)}"
+    text = f"{name}: the in-phase part of the response stays {within} {span(band)}"
     if not math.isfinite(strict[0]):
         return text + ", but the phase lag is not small there."
     again = span(strict)
@@ -66,6 +58,7 @@ def plan_table(ds) -> str:
         Strain state; the adiabatic dT/T0 of each source (units of 1e-6, and dT in mK at
         293.15 K); the layers with their diffusion lengths at round frequencies; the
         response at 1-2-5 frequencies with the nearest source; the bands; the caution.
+        Sources and layers are named as in the config and result.nc.
     """
     f = ds["frequency"].values
     e = np.asarray(ds.attrs["strain_range"], dtype=float)
@@ -77,10 +70,12 @@ def plan_table(ds) -> str:
         f"d gamma_xy {e[2] * 1e6:.1f}",
         f"Adiabatic value of each source: {'dT/T0 (1e-6)':>14}{f'dT at {REFERENCE_T0:g} K (mK)':>24}",
     ]
+    # sources and layers keep the names of the config (diagnosis.sources), result.nc and plan.nc,
+    # as in the source table printed above the plan, so that a line can be looked up in each
     names = [str(v) for v in ds["source"].values]
     for i, name in enumerate(names):
         r = float(ds["adiabatic_ratio"].values[i])
-        lines.append(f"  {_words(name):<30}{r * 1e6:>14.2f}{r * REFERENCE_T0 * 1e3:>24.3f}")
+        lines.append(f"  {name:<30}{r * 1e6:>14.2f}{r * REFERENCE_T0 * 1e3:>24.3f}")
     lines.append("Where the heat model's surface response stays near a source:")
     for i, name in enumerate(names):
         band = (float(ds["band_low"].values[i]), float(ds["band_high"].values[i]))
@@ -102,7 +97,7 @@ def plan_table(ds) -> str:
             rows[index[key]][1] += 1
             continue
         index[key] = len(rows)
-        rows.append(["plies" if is_ply else _words(name), 1, t,
+        rows.append(["plies" if is_ply else name, 1, t,
                      [float(ds["diffusion_length"].values[c, j]) for c in cols]])
     for label, count, t, mus in rows:
         text = f"{label} (x{count})" if label == "plies" else label
