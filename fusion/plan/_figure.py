@@ -84,7 +84,7 @@ def plan_figure(ds, path, *, dpi=150, overwrite=False):
     Parameters
     ----------
     ds : xarray.Dataset
-        The output of :func:`frequency_plan`.
+        The output of :func:`~fusion.plan.frequency_plan`.
     path : str or os.PathLike
         PNG file to write (atomically; an existing file is kept unless ``overwrite``), with
         the text chunk ``fusion_product = plan``.

@@ -50,7 +50,7 @@ def _band_line(name, band, strict, f, tol) -> str:
 
 
 def plan_table(ds) -> str:
-    """A short plain-text summary of a frequency plan (the output of :func:`frequency_plan`).
+    """A short plain-text summary of a frequency plan (the output of :func:`~fusion.plan.frequency_plan`).
 
     Returns
     -------

@@ -62,7 +62,8 @@ def check_run_inputs(cfg, run, *, key) -> str:
             shape = read_image(need_file(p, f"{key}.dic.images")).shape
             if shape != first:
                 raise InputError(p, f"is a {shape[0]}x{shape[1]} image, the reference {images.paths[0].name} "
-                                 f"{first[0]}x{first[1]}: every speckle image must have one size")
+                                 f"{first[0]}x{first[1]}: every speckle image must have one size; "
+                                 "an image of another camera setting (window, binning) or of another run?")
         check_region(d, first, images.paths[0])
         parts.append(f"{len(images.paths)} speckle images of {first}")
     if d.reference_image is not None:

@@ -113,7 +113,8 @@ def strain_side(run, *, load_range=None, progress=False):
         for p, img in zip(paths[1:], imgs[1:]):
             if img.shape != imgs[0].shape:
                 raise InputError(p, f"is a {img.shape[0]}x{img.shape[1]} image, the reference {paths[0].name} "
-                                 f"{imgs[0].shape[0]}x{imgs[0].shape[1]}: every speckle image must have one size")
+                                 f"{imgs[0].shape[0]}x{imgs[0].shape[1]}: every speckle image must have one size; "
+                                 "an image of another camera setting (window, binning) or of another run?")
         region = spec.correlation_region            # (x0, y0, x1, y1), columns first
         check_region(spec, imgs[0].shape, paths[0])
         if spec.mask is not None:
