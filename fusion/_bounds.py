@@ -23,7 +23,7 @@ import numpy as np
 
 from .errors import ArgumentError
 
-__all__ = ["Bound", "PLAUSIBLE", "API_BOUNDS", "BOUNDS", "length_problem", "check_length", "check_strain",
+__all__ = ["Bound", "PLAUSIBLE", "API_BOUNDS", "BOUNDS", "length_problem", "check_strain",
            "check_ratio", "check_pixel_size", "check_temperature", "check_frame_axes", "check_grid_shape"]
 
 
@@ -112,13 +112,6 @@ def length_problem(value, key) -> str | None:
         if _inside(b, v * scale):
             return f"{msg}: it looks like {unit}; give metres ({v * scale:g})"
     return f"{msg}; give metres"
-
-
-def check_length(value, key, parameter):
-    """Raise :class:`~fusion.errors.ArgumentError` when a length (m) is implausible for ``key``."""
-    problem = length_problem(value, key)
-    if problem:
-        raise ArgumentError(parameter, problem)
 
 
 def _typical(values, q):

@@ -7,8 +7,11 @@ reader accepts), and then the faults of a laboratory PC: truncated copies, empty
 files, folders and pipes where a file should be, unreadable files, random bytes
 and random corruption (hypothesis), wrong dtypes, wrong byte order, NaN/Inf-only
 data, headers that claim more than the file or than memory, HDF5 links to other
-files, MATLAB objects and pickles. Every fault must end in an ``InputError`` whose
-message names the file — never another exception, a hang, or code execution.
+files, MATLAB objects and pickles; and in a folder of frames or speckle images, one
+member cut short, of another size, missing from the numbering, or a text grid with rows
+lost, added or damaged. Every fault must end in an ``InputError`` whose message names the
+file (for a sequence, the member and the likely cause) — never another exception, a hang,
+or code execution.
 
 The table "Bad input: cases tried" in DEVELOPERS.md lists these cases and what each
 gets; keep both in step when a reader is added.
@@ -32,8 +35,8 @@ from hypothesis import HealthCheck, Phase, given, settings
 from hypothesis import strategies as st
 
 from fusion.errors import InputError
-from fusion.io import (open_frames, read_dic_field, read_frame_times, read_image, read_load_signal,
-                       read_netcdf, read_thermal_maps)
+from fusion.io import (list_images, open_frames, open_sequence, read_dic_field, read_frame_times, read_image,
+                       read_load_signal, read_netcdf, read_thermal_maps)
 
 # ------------------------------------------------------------------------ valid samples
 F, R, C = 6, 8, 10
@@ -779,6 +782,183 @@ def test_truncated_correlation_table_at_a_row_end_is_the_known_limit(tmp_path):
     q = tmp_path / "times.csv"
     q.write_bytes(times[:-5])            # "0.100000\n" -> "0.10"
     np.testing.assert_allclose(read_frame_times(q, n_frames=F), np.arange(F) / 50.0)
+
+
+# ------------------------------------------------------------------------ sequences: one bad member
+# A folder of per-frame files as an acquisition PC writes it, each member written by its
+# format's own library (tifffile, OpenCV, numpy), with one fault in one member: the message
+# must name that member and say the likely cause (DEVELOPERS.md, "Bad input: cases tried").
+SEQ_KINDS = ("tif", "png", "npy", "csv")
+
+
+@pytest.fixture
+def text_cache(tmp_path, monkeypatch):
+    """Text grids are converted into fusion's cache: one per test, never the user's."""
+    monkeypatch.setenv("FUSION_CACHE", str(tmp_path / "cache"))
+
+
+def _w_member(p, frame):
+    kind = p.suffix[1:]
+    if kind == "tif":
+        tifffile.imwrite(p, frame)
+    elif kind == "png":
+        import cv2
+
+        assert cv2.imwrite(str(p), frame)
+    elif kind == "npy":
+        np.save(p, frame)
+    else:
+        np.savetxt(p, frame, delimiter=",", fmt="%d")
+
+
+def _frame_folder(folder, kind, numbers=range(F)):
+    folder.mkdir()
+    frames = _frames()
+    for i in numbers:
+        _w_member(folder / f"frame_{i:04d}.{kind}", frames[i])
+    return folder
+
+
+def _read_sequence(folder):
+    return np.asarray(open_sequence(folder)[:])
+
+
+@pytest.mark.parametrize("kind", SEQ_KINDS)
+def test_valid_frame_folder_reads_back(tmp_path, text_cache, kind):
+    # the starting point of the faults below: the members' frames come back in order
+    np.testing.assert_array_equal(_read_sequence(_frame_folder(tmp_path / "ir", kind)), _frames())
+
+
+_CUT_CAUSE = {
+    "tif": r"cannot be read as a TIFF frame \(.*\): probably cut short or damaged \(an interrupted copy",
+    "png": r"could not be decoded as a PNG image: probably cut short or damaged \(an interrupted copy",
+    "npy": r"is truncated: the header promises \d+ bytes, the file has \d+ \(an interrupted copy",
+    "csv": r"line \d+ holds \d+ values?, the first line of numbers 10: the file ends in the middle of a row: "
+           r"cut short by an interrupted copy",
+}
+
+
+@pytest.mark.parametrize("kind", SEQ_KINDS)
+@pytest.mark.parametrize("frac", [0.5, 0.9])
+def test_frame_folder_with_one_member_cut_short(tmp_path, text_cache, kind, frac):
+    d = _frame_folder(tmp_path / "ir", kind)
+    p = d / f"frame_0003.{kind}"
+    p.write_bytes(_cut(p.read_bytes(), frac, kind == "csv"))
+    with pytest.raises(InputError, match=_CUT_CAUSE[kind]) as err:
+        _read_sequence(d)
+    assert err.value.path == str(p)
+
+
+@pytest.mark.parametrize("kind", SEQ_KINDS)
+def test_frame_folder_with_one_member_of_another_size(tmp_path, text_cache, kind):
+    d = _frame_folder(tmp_path / "ir", kind)
+    p = d / f"frame_0002.{kind}"
+    _w_member(p, np.zeros((R, C + 1), np.uint16))          # another camera window
+    cause = ("every frame of a sequence must have one size; a grid of another acquisition" if kind == "csv"
+             else "every frame of a sequence must have one size and type; a file of another acquisition")
+    with pytest.raises(InputError, match=rf"frame_0000\.{kind} a {R}x{C} .*{cause}.*move it out") as err:
+        _read_sequence(d)
+    assert err.value.path == str(p)
+
+
+def test_frame_folder_with_a_gap_in_its_numbering(tmp_path):
+    # frames timed from the frame rate: every frame after the gap would get the time of the one
+    # before it, so the run stops naming the file after the gap
+    from types import SimpleNamespace
+
+    from fusion.run._inputs import frame_times
+
+    d = _frame_folder(tmp_path / "ir", "tif", numbers=[0, 1, 2, 4, 5])
+    stack = open_sequence(d)
+    with pytest.raises(InputError, match=r"comes after frame_0002\.tif in .*number 3 .*would be mistimed: copy "
+                                         r"the missing frames, or give times per file") as err:
+        frame_times(SimpleNamespace(times=None, frame_rate=50.0), stack, None)
+    assert err.value.path == str(d / "frame_0004.tif")
+
+
+@pytest.mark.parametrize("fault, cause", [
+    ("last row lost", r"holds a 7x10 grid, the first file frame_0000\.csv a 8x10 grid: every frame of a "
+                      r"sequence must have one size; it ends early: cut short"),
+    ("a row too many", r"holds a 9x10 grid, the first file frame_0000\.csv a 8x10 grid: .*a grid of another "
+                       r"acquisition"),
+    ("a short row inside", r"line 4 holds 9 values, the first line of numbers 10: a damaged row\?"),
+])
+def test_text_grid_with_a_wrong_row_count(tmp_path, text_cache, fault, cause):
+    d = _frame_folder(tmp_path / "ir", "csv")
+    p = d / "frame_0004.csv"
+    lines = p.read_text().splitlines(keepends=True)
+    if fault == "last row lost":           # cut exactly at a row end: well-formed, one row short
+        lines = lines[:-1]
+    elif fault == "a row too many":
+        lines = lines + lines[-1:]
+    else:                                  # one value lost inside the grid
+        lines[3] = lines[3].rsplit(",", 1)[0] + "\n"
+    p.write_text("".join(lines))
+    with pytest.raises(InputError, match=cause) as err:
+        _read_sequence(d)
+    assert err.value.path == str(p)
+    assert not list((tmp_path / "cache").rglob("*.npy"))     # nothing half-converted left in the cache
+
+
+@pytest.mark.parametrize("kind", ["png", "tif"])
+def test_image_folder_with_one_image_cut_short(tmp_path, kind):
+    # speckle images are listed by list_images and read one by one, as the correlation reads them
+    d = tmp_path / "vis"
+    d.mkdir()
+    for i in range(3):
+        _w_member(d / f"img_{i:03d}.{kind}", _speckle())
+    p = d / f"img_001.{kind}"
+    p.write_bytes(_cut(p.read_bytes(), 0.5, False))
+    with pytest.raises(InputError, match="probably cut short or damaged \\(an interrupted copy") as err:
+        [read_image(f) for f in list_images(d).files]
+    assert err.value.path == str(p)
+
+
+def test_image_folder_with_one_image_of_another_size(tmp_path):
+    # as the run reads them: the reference first, every other image checked against it
+    from fusion.config import load_config
+    from fusion.run._strain import strain_side
+
+    d = tmp_path / "vis"
+    d.mkdir()
+    for i in range(3):
+        _w_member(d / f"img_{i:03d}.png", _speckle() if i != 2 else _speckle()[:, :-4])
+    np.save(tmp_path / "ir.npy", np.full((20, 4, 4), 295.0, np.float32))
+    (tmp_path / "c.toml").write_text("""
+[laminate]
+layup = [0]
+ply_material = "m"
+ply_thickness = "1 mm"
+[materials.m]
+E1 = 1e11
+E2 = 1e10
+G12 = 5e9
+nu12 = 0.3
+alpha1 = 0
+alpha2 = 3e-5
+density = 1500
+specific_heat = 900
+k1 = 5
+k2 = 0.5
+k3 = 0.5
+[registration]
+method = "identity"
+[[run]]
+name = "r"
+frequency = "5 Hz"
+[run.thermal]
+frames = "ir.npy"
+frame_rate = "50 Hz"
+[run.dic]
+images = "vis"
+loads = [0, 1, 2]
+coordinates = "px"
+""")
+    run = load_config(tmp_path / "c.toml").runs[0]
+    with pytest.raises(InputError, match=r"is a 24x28 image, the reference img_000\.png 24x32: every speckle image "
+                                         r"must have one size; an image of another camera setting") as err:
+        strain_side(run)
+    assert err.value.path == str(d / "img_002.png")
 
 
 # ------------------------------------------------------------------------ crashes found by fuzzing

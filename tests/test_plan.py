@@ -177,8 +177,8 @@ def test_plan_table_text():
     assert f"{surface * 1e6:.2f}" in text
     assert "hazardous" in text and "test standards" in text
     assert len(text.splitlines()) < 40  # a short table
-    # words for the reader, not internal keys or shorthand
-    for shorthand in ("none in range", "in phase; and with", "modulus", "resin_layer", "surface_ply", "range end"):
+    # plain words, no shorthand
+    for shorthand in ("none in range", "in phase; and with", "modulus", "range end"):
         assert shorthand not in text
 
 
@@ -192,17 +192,17 @@ def test_plan_bands_in_plain_sentences():
     assert float(ds["band_high"].sel(source="surface_ply")) == pytest.approx(200)
     lo = float(ds["band_low"].sel(source="surface_ply"))
     slo = float(ds["strict_band_low"].sel(source="surface_ply"))
-    sp = lines["surface ply"]
+    sp = lines["surface_ply"]
     assert f"from {lo:.3g} Hz to above 200 Hz (the highest frequency tried)" in sp
     assert f"with a small phase lag as well from {slo:.3g} Hz to above 200 Hz" in sp or (
         slo == pytest.approx(lo) and "with a small phase lag." in sp)
     assert sp.endswith(".") and "within 2 % of it" in sp
     hi = float(ds["band_high"].sel(source="laminate"))
-    assert f"from below 0.01 Hz (the lowest frequency tried) to {hi:.3g} Hz" in lines["laminate (homogenised)"]
+    assert f"from below 0.01 Hz (the lowest frequency tried) to {hi:.3g} Hz" in lines["laminate"]
     # a source the response never reaches says so, with the range planned
     coated_ds = frequency_plan(coated(), uniaxial_strain_state(coated()))
     assert np.isnan(float(coated_ds["band_low"].sel(source="resin_layer")))
-    assert ("resin-rich layer: the response never comes within 2 % of it between 0.1 Hz and 200 Hz."
+    assert ("resin_layer: the response never comes within 2 % of it between 0.1 Hz and 200 Hz."
             in [ln.strip() for ln in plan_table(coated_ds).splitlines()])
 
 
@@ -210,7 +210,7 @@ def test_plan_figure_says_what_its_curves_are(tmp_path):
     # not a physics check: legend labels
     from PIL import Image
 
-    from fusion.plan import _plan_figure
+    from fusion.plan._figure import _plan_figure
 
     lam = coated()
     ds = frequency_plan(lam, uniaxial_strain_state(lam), frequencies=np.geomspace(0.1, 200, 41))
@@ -285,6 +285,30 @@ def test_plan_command_writes_into_the_output_folder(tmp_path):
     assert sorted(p.name for p in elsewhere.iterdir()) == ["plan.nc", "plan.png"]
     with pytest.raises(ConfigError, match="no laminate 'other'"):
         plan_command(cfg, laminate="other")
+
+
+def test_plan_names_sources_as_the_config_and_result_nc_do(tmp_path):
+    # not a physics check: one name per source in the plan's text, the config and the files
+    from fusion.config import load_config
+    from fusion.datamodel import SOURCES
+
+    cfg = tmp_path / "campaign.toml"
+    cfg.write_text(CONFIG, encoding="utf-8")
+    text = plan_command(cfg).splitlines()
+    start = next(i for i, ln in enumerate(text) if ln.startswith("Adiabatic value of each source"))
+    end = next(i for i, ln in enumerate(text) if ln.startswith("Where the heat model"))
+    labels = [ln.split()[0] for ln in text[start + 1:end]]
+    plan = read_netcdf(tmp_path / "results" / "plan.nc")
+    assert labels == [str(s) for s in plan["source"].values] == ["resin_layer", "surface_ply", "laminate"]
+    assert set(labels) <= set(SOURCES)          # the categories of result.nc's source map
+    # the config takes them as they are printed
+    cfg.write_text(CONFIG + f"\n[diagnosis]\nsources = {labels!r}\n".replace("'", '"'), encoding="utf-8")
+    assert load_config(cfg).diagnosis.sources == tuple(labels)
+    # the source table above the plan and the plan's sentences use the same names
+    table = text[:text.index("")]
+    for name in labels:
+        assert any(ln.split()[:1] == [name] for ln in table), name
+        assert sum(ln.strip().startswith(f"{name}: ") for ln in text[end:]) == 1, name
 
 
 def test_plan_command_line_output_folder(tmp_path, capsys):

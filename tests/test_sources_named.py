@@ -83,6 +83,8 @@ OTHER_MODULES = {
     "test_api_rebuild.py": "the Python API's steps against the command line's result.nc (two code paths)",
     "test_api_door.py": "error text of the plausibility checks at the Python API's door",
     "test_docs.py": "the API reference, docstring references, README example and package data",
+    "test_correlation_region.py": "dic.region and its deprecated (row, col) spelling roi: config, "
+                                  "warnings, fusion check (two spellings compared)",
 }
 
 LIBRARIES = r"numpy|scipy|scikit-image|skimage|opencv|cv2"

@@ -7,7 +7,6 @@ import subprocess
 import sys
 import time
 import tracemalloc
-from pathlib import Path
 
 import numpy as np
 import pytest

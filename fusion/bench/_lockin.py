@@ -290,7 +290,7 @@ def bench_lockin(*, quick: bool = False, repeats: int | None = None) -> dict:
     t_rf, t_ri = min(read_f), min(read_i)       # the fastest read is the limit
     rows_f, rows_i = min(read_f[:-2]), min(read_i[:-2])   # reads in the kernel's row schedule
     wide_f, wide_i = read_f[-1], read_i[-1]
-    del f32, i16
+    f32 = i16 = read_fns = None     # free the stacks before the memory-map case (the timed lambdas held them)
     with tempfile.TemporaryDirectory(prefix="fusion-bench-") as tmp:
         frac, size = _mmap_peak(mshape, budget, tmp)
     return {

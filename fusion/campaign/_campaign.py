@@ -11,6 +11,7 @@ tested at two or more frequencies, the campaign figures and ``report.html``.
 
 from __future__ import annotations
 
+import logging
 from pathlib import Path
 
 from ..config import Config, RunSpec, load_config
@@ -21,6 +22,8 @@ from ._outcome import CampaignOutcome
 from ._products import write_campaign
 from ._provenance import DigestCache
 from ._schedule import schedule_runs
+
+log = logging.getLogger(__name__)
 
 __all__ = ["run_campaign", "check_campaign"]
 
@@ -66,6 +69,8 @@ def run_campaign(config_path, *, out=None, overwrite: bool = False, only=None, s
     if workers is not None and (isinstance(workers, bool) or not isinstance(workers, int) or workers < 1):
         raise ConfigError("--workers", f"expected a whole number of at least 1, got {workers!r}")
     cfg = load_config(config_path)      # validated before anything starts
+    for m in cfg.deprecations:          # said once here; each run's warnings repeat it
+        log.warning("warning: %s", m)
     out = Path(cfg.output_folder(out))
     runs = _select(cfg, only)
     with campaign_lock(out):
@@ -101,5 +106,6 @@ def check_campaign(config_path) -> list[str]:
              f"{len(cfg.materials)} materials)"]
     for run in cfg.runs:
         lines.append(f"  {run.name}: " + check_run_inputs(cfg, run, key=run.config_key))
+        lines += [f"  warning: {m}" for m in run.deprecations()]
     lines.append("ok")
     return lines

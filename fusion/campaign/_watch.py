@@ -142,6 +142,8 @@ class _Watcher:
                 raise
             self._say(f"config not reloaded: {e} (the previous config stays in force)")
             return
+        for m in cfg.deprecations:
+            self._say(f"warning: {m}")
         new = [r.name for r in cfg.runs if r.name not in self.runs]
         if self.cfg is not None:
             self._say(f"config reloaded: {len(cfg.runs)} runs" + (f", new: {', '.join(new)}" if new else ""))

@@ -58,6 +58,12 @@ class Config:
     def folder(self) -> Path:
         return self.path.parent if self.path is not None else Path(".")
 
+    @property
+    def deprecations(self) -> list[str]:
+        """One sentence per deprecated key the config uses, saying how to rewrite it (for one release
+        these keys still work; the run's warnings and ``fusion check`` repeat the sentence)."""
+        return [m for run in self.runs for m in run.deprecations()]
+
     def laminate_for(self, run: RunSpec) -> Laminate:
         """The laminate of ``run`` (its ``laminate`` key, or the default one)."""
         return self.laminates[run.laminate or "default"]

@@ -24,7 +24,8 @@ def run_key(name, index: int) -> str:
 # names a run folder cannot take: the campaign's own files, and device names of Windows shares
 _RESERVED = ({"con", "prn", "aux", "nul", "figures", "report.html", "frequency.nc", "summary.json"}
              | {f"com{i}" for i in range(1, 10)} | {f"lpt{i}" for i in range(1, 10)})
-_DEVICE_STEMS = {"con", "prn", "aux", "nul"} | {f"com{i}" for i in range(1, 10)} | {f"lpt{i}" for i in range(1, 10)}
+_DEVICE_STEMS = ({"con", "prn", "aux", "nul"} | {f"com{i}" for i in range(1, 10)}
+                 | {f"lpt{i}" for i in range(1, 10)})
 
 
 # --------------------------------------------------------------------------- sections
@@ -72,7 +73,8 @@ class ThermalSpec:
     delta_T_convention: str = key(_schema.choice("peak-to-peak", "amplitude"), "What the maps' delta_T (and "
                                   "magnitude, quadrature, std) hold: the peak-to-peak range (maximum minus "
                                   "minimum load) or the amplitude (half of it). Required with 'maps'.")
-    variables: dict = key(_schema.either(_schema.mapping_of_strings, _schema.list_of(_schema.choice(*MAP_QUANTITIES), min_len=2)),
+    variables: dict = key(_schema.either(_schema.mapping_of_strings,
+                                         _schema.list_of(_schema.choice(*MAP_QUANTITIES), min_len=2)),
                           "Map our quantity names (" + ", ".join(MAP_QUANTITIES) + ") to the maps "
                           "file's variable or column names, e.g. { delta_T = \"dT\" }; for a TIFF the page "
                           "order as a list.")
@@ -176,8 +178,13 @@ class DicSpec:
     strain_order: int = key(_schema.integer(low=1, high=2), "Polynomial order of the strain fit.", default=1)
     pixel_size: float = key(_schema.quantity("mm", positive=True), "Size of a visible-camera pixel on the "
                             "specimen (images; turns px into mm).", unit="mm")
+    region: tuple = key(_schema.list_of(_schema.integer(low=0), min_len=4, max_len=4),
+                        "Rectangle of the speckle images to correlate, [x0, y0, x1, y1] in visible-image "
+                        "px: x counts columns, y rows (down from the top); columns x0 to x1 - 1, rows y0 "
+                        "to y1 - 1.")
     roi: tuple = key(_schema.list_of(_schema.integer(low=0), min_len=4, max_len=4),
-                     "Region of interest [row0, col0, row1, col1] in image px.")
+                     "Deprecated (removed in the next release): 'region' in (row, col) order, [row0, col0, "
+                     "row1, col1]; write region = [col0, row0, col1, row1] instead.")
     mask: Path = key(_schema.path, "Mask image, same size as the speckle images: non-zero where to "
                      "correlate (leave out markers, holes, background).")
     reference_image: Path = key(_schema.path, "Visible reference image for the overlay figure.")
@@ -208,6 +215,44 @@ class DicSpec:
                                   source=ctx.source)
         if self.loads is not None and len(set(self.loads)) < 2:
             raise ConfigError(f"{prefix}.loads", "expected at least two different loads", source=ctx.source)
+        self._check_region(prefix, ctx)
+
+    def _check_region(self, prefix, ctx):
+        if self.region is not None and self.roi is not None:
+            raise ConfigError(f"{prefix}.roi", "is the deprecated (row, col) spelling of 'region', and both "
+                              "are given: keep 'region' only", source=ctx.source)
+        name = "region" if self.region is not None else "roi"
+        box = self.correlation_region
+        if box is None:
+            return
+        if self.images is None:
+            raise ConfigError(f"{prefix}.{name}", "applies to speckle images (dic.images) only: the "
+                              "correlation data given are not cropped by it", source=ctx.source)
+        x0, y0, x1, y1 = box
+        if not (x1 > x0 and y1 > y0):
+            order = "x1 > x0 and y1 > y0" if name == "region" else "row1 > row0 and col1 > col0"
+            raise ConfigError(f"{prefix}.{name}", f"expected {order}, got {list(getattr(self, name))!r}",
+                              source=ctx.source)
+
+    @property
+    def correlation_region(self) -> tuple | None:
+        """The rectangle to correlate, (x0, y0, x1, y1) in visible-image px (``region``, or the
+        deprecated ``roi`` turned into that order); None for the whole image."""
+        if self.region is not None:
+            return tuple(self.region)
+        if self.roi is not None:
+            row0, col0, row1, col1 = self.roi
+            return (col0, row0, col1, row1)
+        return None
+
+    def deprecations(self, prefix: str) -> list[str]:
+        """One sentence per deprecated key these data use, saying how to rewrite it."""
+        if self.roi is None:
+            return []
+        new = list(self.correlation_region)
+        return [f"{prefix}.roi is deprecated and read as region = {new} for this release only: replace "
+                f"roi = {list(self.roi)} by region = {new} ([x0, y0, x1, y1]: columns first, in visible-image "
+                "px)"]
 
     @property
     def image_sequence(self) -> bool:
@@ -237,9 +282,11 @@ class DicSpec:
 class ExcludeSpec:
     """A region left out of every map and statistic: one rectangle, circle or polygon."""
 
-    rect: tuple = key(_schema.list_of(_schema.quantity(""), min_len=4, max_len=4), "[x0, y0, x1, y1]: opposite corners.")
+    rect: tuple = key(_schema.list_of(_schema.quantity(""), min_len=4, max_len=4),
+                      "[x0, y0, x1, y1]: opposite corners.")
     circle: tuple = key(_schema.list_of(_schema.quantity(""), min_len=3, max_len=3), "[cx, cy, r].")
-    polygon: tuple = key(_schema.list_of(_schema.point, min_len=3), "[[x, y], ...]: three or more vertices in order.")
+    polygon: tuple = key(_schema.list_of(_schema.point, min_len=3),
+                         "[[x, y], ...]: three or more vertices in order.")
     frame: str = key(_schema.choice("ir", "dic"), "Coordinates of the shape: 'ir' = IR pixels [col, row]; "
                      "'dic' = the correlation data's own coordinates, as for dic_points.", default="ir")
 
@@ -274,7 +321,8 @@ class RegistrationSpec:
                       "Transform model; 'identity': the correlation data sit on the IR pixel grid "
                       "(file x, y = IR col, row); 'fiducials' finds markers automatically; 'camera' "
                       "fits a pinhole model with distortion to 3D points.", default="homography")
-    dic_points: tuple = key(_schema.list_of(_schema.either(_schema.point, _schema.list_of(_schema.quantity(""), min_len=3, max_len=3))),
+    dic_points: tuple = key(_schema.list_of(_schema.either(
+                                _schema.point, _schema.list_of(_schema.quantity(""), min_len=3, max_len=3))),
                             "Control points in the coordinates of the correlation data: the file's "
                             "own x, y (its unit, its y direction), or for images the reference "
                             "image's [col, row] ([x, y, z] for 'camera').")
@@ -298,7 +346,8 @@ class RegistrationSpec:
     fiducial_radius_ir: tuple = key(_schema.list_of(_schema.quantity("", positive=True), min_len=2, max_len=2),
                                     "Marker radius range [min, max] in IR px (method 'fiducials').",
                                     default=(1.5, 8.0))
-    fiducial_radius_visible: tuple = key(_schema.list_of(_schema.quantity("", positive=True), min_len=2, max_len=2),
+    fiducial_radius_visible: tuple = key(_schema.list_of(_schema.quantity("", positive=True), min_len=2,
+                                                         max_len=2),
                                          "Marker radius range [min, max] in visible px; keep min "
                                          "above the speckle size.", default=(6.0, 40.0))
     fiducial_polarity_ir: str = key(_schema.choice("auto", "bright", "dark"), "Markers warmer ('bright') or "
@@ -321,14 +370,15 @@ class RegistrationSpec:
         if needs_points and (self.dic_points is None or self.ir_points is None):
             raise ConfigError(f"{prefix}.dic_points", f"method {self.method!r} needs 'dic_points' and "
                               "'ir_points'", source=ctx.source)
-        if self.dic_points is not None and self.ir_points is not None and len(self.dic_points) != len(self.ir_points):
+        if (self.dic_points is not None and self.ir_points is not None
+                and len(self.dic_points) != len(self.ir_points)):
             raise ConfigError(f"{prefix}.ir_points", f"expected {len(self.dic_points)} points, as many "
                               f"as dic_points, got {len(self.ir_points)}", source=ctx.source)
         if self.method == "fiducials" and self.fiducials is None:
             raise ConfigError(f"{prefix}.fiducials", "method 'fiducials' needs the number of markers",
                               source=ctx.source)
         if self.marker_radius is not None and self.method not in ("homography", "affine", "similarity",
-                                                                    "camera"):
+                                                                  "camera"):
             raise ConfigError(f"{prefix}.marker_radius", f"marks markers at the control points; method "
                               f"{self.method!r} has none (markers found by 'fiducials' are masked "
                               "with their measured radius)", source=ctx.source)
@@ -397,7 +447,8 @@ class ComputeSpec:
     memory_budget: float = key(_schema.quantity("B", positive=True), "Memory a run may use for frame "
                                "chunks.", unit="B", default=2e9)
     scheduler: str = key(_schema.string(pattern=r"(tcp|tls|inproc)://\S+|processes|threads|synchronous",
-                                  hint="expected tcp://HOST:PORT, 'processes', 'threads' or 'synchronous'"),
+                                        hint="expected tcp://HOST:PORT, 'processes', 'threads' or "
+                                             "'synchronous'"),
                          "Dask scheduler: 'processes' (local worker processes, the default for more "
                          "than one run), 'synchronous' (one by one in this process), 'threads' (runs "
                          "one at a time: the file libraries are not safe side by side in one process) "
@@ -440,7 +491,8 @@ class RunSpec:
     """One paired infrared/correlation run."""
 
     name: str = key(_schema.string(pattern=RUN_NAME_PATTERN, hint="letters, digits, - _ . only, "
-                             "starting with a letter or digit, at most 100 characters"),
+                                                                  "starting with a letter or digit, at most "
+                                                                  "100 characters"),
                     "Run name; becomes its output folder name.", required=True)
     specimen: str = key(_schema.string(pattern=r"[^\x00-\x1f]{1,100}", hint="1-100 printable characters"),
                         "Specimen; runs of one specimen at several frequencies form a sweep.")
@@ -461,6 +513,10 @@ class RunSpec:
     def config_key(self) -> str:
         """The dotted-key prefix of this run in messages, e.g. ``run 'CX-2Hz'``."""
         return run_key(self.name, 0)
+
+    def deprecations(self) -> list[str]:
+        """One sentence per deprecated key this run uses, saying how to rewrite it."""
+        return self.dic.deprecations(f"{self.config_key}.dic")
 
     def _check(self, prefix, ctx):
         low = self.name.lower()
@@ -490,8 +546,8 @@ class TopLevel:
     """The keys a config file may hold at its top level."""
 
     campaign: CampaignSpec = key(_schema.table_of(CampaignSpec), "Labels for the report.")
-    material_library: tuple = key(_schema.either(_schema.list_of(_schema.path), _schema.path), "TOML file(s) with more "
-                                  "[materials.NAME] tables (e.g. materials.toml).")
+    material_library: tuple = key(_schema.either(_schema.list_of(_schema.path), _schema.path),
+                                  "TOML file(s) with more [materials.NAME] tables (e.g. materials.toml).")
     materials: dict = key(lambda v, k, c: v, "Material tables [materials.NAME] (see below).",
                           type_name="tables", factory=dict)
     laminate: LaminateSpec = key(_schema.table_of(LaminateSpec), "The default laminate.")
@@ -513,7 +569,8 @@ class OrthotropicSpec:
     E2: float = key(_schema.quantity("Pa"), "Transverse modulus.", unit="Pa", required=True)
     G12: float = key(_schema.quantity("Pa"), "In-plane shear modulus.", unit="Pa", required=True)
     nu12: float = key(_schema.quantity(""), "Major Poisson ratio.", required=True)
-    alpha1: float = key(_schema.quantity("1/K"), "Expansion coefficient along the fibres.", unit="1/K", required=True)
+    alpha1: float = key(_schema.quantity("1/K"), "Expansion coefficient along the fibres.", unit="1/K",
+                        required=True)
     alpha2: float = key(_schema.quantity("1/K"), "Transverse expansion coefficient.", unit="1/K", required=True)
     density: float = key(_schema.quantity("kg/m^3"), "Density.", unit="kg/m3", required=True)
     specific_heat: float = key(_schema.quantity("J/kg/K"), "Specific heat.", unit="J/(kg K)", required=True)

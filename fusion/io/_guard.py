@@ -132,7 +132,9 @@ def npy_header(path):
             shape, fortran, dtype = reader(fh)
             offset = fh.tell()
     except Exception as e:  # noqa: BLE001 - a corrupt header raises ValueError, TokenError, MemoryError...
-        raise InputError(path, f"not a valid .npy file ({str(e).strip() or type(e).__name__})") from e
+        text = str(e).strip() or type(e).__name__
+        cause = ": cut short before the end of its header (an interrupted copy?)" if "EOF" in text else ""
+        raise InputError(path, f"not a valid .npy file ({text}){cause}") from e
     if dtype.hasobject:
         raise InputError(path, "holds Python objects; only numeric arrays are read (pickles are refused)")
     if any(int(s) < 0 for s in shape):
@@ -140,7 +142,8 @@ def npy_header(path):
     need = offset + math.prod(int(s) for s in shape) * dtype.itemsize
     have = os.path.getsize(path)
     if have < need:
-        raise InputError(path, f"is truncated: the header promises {need} bytes, the file has {have}")
+        raise InputError(path, f"is truncated: the header promises {need} bytes, the file has {have} (an "
+                         "interrupted copy, or read while still being written?)")
     return tuple(int(s) for s in shape), bool(fortran), dtype, offset
 
 
@@ -248,7 +251,11 @@ def decoding(path, what: str):
                          "file may be corrupt or larger than expected") from e
     except Exception as e:  # noqa: BLE001 - corrupt input makes decoders raise anything
         text = clip(str(e).strip() or type(e).__name__)      # a decoder may quote the file
-        raise InputError(path, f"cannot be read as {what} ({text})") from e
+        # the decoder's words rarely say why: a file of the expected kind that does not decode
+        # was most often cut short by an interrupted copy
+        cause = "" if "truncated" in what else (f": probably cut short or damaged (an interrupted copy or "
+                                                 f"transfer?), or not {what} at all")
+        raise InputError(path, f"cannot be read as {what} ({text}){cause}") from e
 
 
 @contextlib.contextmanager

@@ -41,7 +41,8 @@ def _decode_png(path):
     finally:
         cv2.utils.logging.setLogLevel(level)
     if img is None:
-        raise InputError(path, "could not be decoded as a PNG image (truncated or corrupt?)")
+        raise InputError(path, "could not be decoded as a PNG image: probably cut short or damaged (an "
+                         "interrupted copy or transfer?)")
     if img.ndim == 3:
         channels = img.shape[2]
         if channels == 2:  # grey + alpha

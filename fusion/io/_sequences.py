@@ -458,7 +458,8 @@ def _decode_png(path):
     finally:
         cv2.utils.logging.setLogLevel(level)
     if img is None:
-        raise InputError(path, "could not be decoded as a PNG image (truncated or corrupt?)")
+        raise InputError(path, "could not be decoded as a PNG image: probably cut short or damaged (an "
+                         "interrupted copy or transfer?)")
     return img
 
 
@@ -472,7 +473,8 @@ def check_headers(sequence: SequenceFiles):
             raise InputError(path, f"holds a {head.shape[0]}x{head.shape[1]} {head.dtype.newbyteorder('=')} "
                              f"frame, the first file {sequence.files[0].name} a {h0.shape[0]}x{h0.shape[1]} "
                              f"{h0.dtype.newbyteorder('=')} frame: every frame of a sequence must have one "
-                             "size and type")
+                             "size and type; a file of another acquisition (another camera window, binning "
+                             "or bit depth) in the folder? move it out or give a pattern")
         headers.append(head)
     return headers
 

@@ -118,8 +118,22 @@ def parse_grid(path, *, decimal="."):
             grid = np.loadtxt(io.StringIO(body), delimiter=delim, comments="#", ndmin=2, dtype=np.float64,
                               usecols=range(ncols))
     except ValueError as e:
-        raise InputError(path, f"is not a grid of numbers ({e}); every row needs {ncols} values") from e
+        raise InputError(path, _short_row(lines, start, delim, ncols)
+                         or f"is not a grid of numbers ({e}); every row needs {ncols} values") from e
     return grid
+
+
+def _short_row(lines, start, delim, ncols):
+    """The first row of another length than the first row of numbers, in words (None: none)."""
+    for j in range(start, len(lines)):
+        s = lines[j].split("#", 1)[0].strip()
+        n = len(_fields(s, delim)) if s else ncols
+        if n != ncols:
+            last = not any(x.split("#", 1)[0].strip() for x in lines[j + 1:])
+            why = ("the file ends in the middle of a row: cut short by an interrupted copy, or read while "
+                   "the camera was still writing it?" if last and n < ncols else "a damaged row?")
+            return f"line {j + 1} holds {n} value{'' if n == 1 else 's'}, the first line of numbers {ncols}: {why}"
+    return None
 
 
 def _decimals(values, start=0):
@@ -235,9 +249,13 @@ def _convert(files, source, target, decimal, progress):
             for i, f in enumerate(files):
                 grid = first if i == 0 else parse_grid(f, decimal=decimal)
                 if grid.shape != first.shape:
+                    short = grid.shape[1] == first.shape[1] and grid.shape[0] < first.shape[0]
+                    why = ("it ends early: cut short by an interrupted copy, or read while the camera was "
+                           "still writing it?" if short else "a grid of another acquisition (another camera "
+                           "window) in the folder? move it out or give a pattern")
                     raise InputError(f, f"holds a {grid.shape[0]}x{grid.shape[1]} grid, the first file "
                                      f"{Path(files[0]).name} a {first.shape[0]}x{first.shape[1]} grid: every "
-                                     "frame of a sequence must have one size")
+                                     f"frame of a sequence must have one size; {why}")
                 if not choice.fits(grid):
                     restart = True      # a wider element type is needed: start again with it
                     break

@@ -25,8 +25,8 @@ __all__ = [
 ]
 
 WARNING_CODES = ("registration_error", "registration_exact_fit", "registration_outlier", "registration_footprint",
-                 "registration_refinement", "low_snr", "dissipative_heating", "below_band", "above_band",
-                 "low_valid_area", "other")
+                 "registration_refinement", "low_snr", "dissipative_heating", "low_valid_area",
+                 "deprecated_key", "other")
 
 # the registration step judges its own error (with the reason); the summary's own check of the
 # RMS is for results made without it
@@ -341,7 +341,7 @@ def _normalise_warnings(items):
     return out
 
 
-def _auto_warnings(ds, *, n_valid, snr_median, rms, frequency, meta, registration_limit_px,
+def _auto_warnings(ds, *, n_valid, snr_median, rms, meta, registration_limit_px,
                    snr_limit, second_harmonic_limit, valid_area_limit, given):
     out = []
     if rms is not None and rms > registration_limit_px and not given & _REGISTRATION_JUDGED:
@@ -357,16 +357,6 @@ def _auto_warnings(ds, *, n_valid, snr_median, rms, frequency, meta, registratio
         out.append({"code": "dissipative_heating", "message": (
             f"second harmonic at {float(harm):.0%} of the fundamental (limit {second_harmonic_limit:.0%}) "
             "suggests dissipative heating or non-linear response; the adiabatic laws may not apply")})
-    band = meta.get("recommended_band_hz")
-    if band is not None and frequency is not None:
-        lo, hi = band
-        if lo is not None and frequency < float(lo):
-            out.append({"code": "below_band", "message": (
-                f"loading frequency {frequency:g} Hz is below the recommended band starting at "
-                f"{float(lo):g} Hz: heat conduction between layers blurs the source")})
-        elif hi is not None and frequency > float(hi):
-            out.append({"code": "above_band", "message": (
-                f"loading frequency {frequency:g} Hz is above the recommended band ending at {float(hi):g} Hz")})
     usable = (meta.get("footprint") or {}).get("valid_reference_pixels")
     if usable:
         share = n_valid / usable
@@ -398,8 +388,7 @@ def summarize_run(ds, *, regions=None, warnings=None, meta=None, registration_li
         Warnings from earlier steps (``{"code", "message"}``; bare strings get
         the code ``"other"``), merged with those found here.
     meta : dict, optional
-        Free metadata kept under ``meta``. Read keys: ``recommended_band_hz``
-        ``(f_low, f_high)`` for the band check, ``second_harmonic_ratio``
+        Free metadata kept under ``meta``. Read keys: ``second_harmonic_ratio``
         (median ``|2f| / |1f|`` amplitude, also read from the attrs), ``created``,
         ``footprint`` (``valid_reference_pixels``: IR pixels with usable thermal
         data outside markers and exclusions, the area the valid area is judged
@@ -446,7 +435,7 @@ def summarize_run(ds, *, regions=None, warnings=None, meta=None, registration_li
     snr_median = _snr(ds, valid)
     valid_fraction = n_valid / total if total else 0.0
     passed = _normalise_warnings(warnings)
-    found = _auto_warnings(ds, n_valid=n_valid, snr_median=snr_median, rms=rms, frequency=frequency,
+    found = _auto_warnings(ds, n_valid=n_valid, snr_median=snr_median, rms=rms,
                            meta=meta, registration_limit_px=registration_limit_px, snr_limit=snr_limit,
                            second_harmonic_limit=second_harmonic_limit, valid_area_limit=valid_area_limit,
                            given={w["code"] for w in passed})

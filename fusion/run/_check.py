@@ -6,7 +6,7 @@ from ..errors import InputError
 from ..io import check_load_ranges, read_image
 from ._files import need_file
 from ._inputs import frame_times, open_thermal_frames, speckle_images
-from ._strain import check_table_strains, read_field
+from ._strain import check_region, check_table_strains, read_field
 from ._thermal import check_frames, load_and_frequency, load_range, maps_side
 
 __all__ = ["check_run_inputs"]
@@ -62,7 +62,9 @@ def check_run_inputs(cfg, run, *, key) -> str:
             shape = read_image(need_file(p, f"{key}.dic.images")).shape
             if shape != first:
                 raise InputError(p, f"is a {shape[0]}x{shape[1]} image, the reference {images.paths[0].name} "
-                                 f"{first[0]}x{first[1]}: every speckle image must have one size")
+                                 f"{first[0]}x{first[1]}: every speckle image must have one size; "
+                                 "an image of another camera setting (window, binning) or of another run?")
+        check_region(d, first, images.paths[0])
         parts.append(f"{len(images.paths)} speckle images of {first}")
     if d.reference_image is not None:
         read_image(need_file(d.reference_image, f"{key}.dic.reference_image"))

@@ -58,7 +58,8 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
     lam = cfg.laminate_for(run)
     reg = cfg.registration_for(run)
     dg = cfg.diagnosis
-    warnings: list[str] = []
+    # a deprecated key still works this release; the run's warnings say how to rewrite it
+    warnings: list = [{"code": "deprecated_key", "message": m} for m in run.deprecations()]
 
     load_range = run_load_range(run)
     ranges, disp = strain_side(run, load_range=load_range, progress=progress)

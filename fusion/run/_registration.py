@@ -68,7 +68,7 @@ def _apply(m, pts):
     return p[:, :2] * np.diag(m)[:2] + m[:2, 2]
 
 
-def _control_points(reg, run, F):
+def _control_points(reg, F):
     pts = np.asarray(reg.dic_points, float)
     if reg.method == "camera":
         if pts.shape[1] != 3:
@@ -112,7 +112,7 @@ def _fit(reg, ir_shape, T0, run, F):
         return t, None, None, no_markers
     if reg.method == "fiducials":
         return _fit_fiducials(reg, T0, run)
-    src = _control_points(reg, run, F)
+    src = _control_points(reg, F)
     dst = np.asarray(reg.ir_points, float)
     markers = ((dst, np.full(len(dst), float(reg.marker_radius))) if reg.marker_radius is not None
                else no_markers)
@@ -228,7 +228,7 @@ def _quality_warnings(reg, a, src, dst, method, F):
 
 
 # --------------------------------------------------------------------------- masks
-def _exclusions(reg, run, F, ir_shape, points_spec):
+def _exclusions(reg, F, ir_shape, points_spec):
     """IR mask of the exclusions in IR px, and the correlation points inside those in 'dic'."""
     ir = np.zeros(ir_shape, bool)
     dic = np.zeros(len(points_spec), bool)
@@ -314,7 +314,7 @@ def registration_side(run, reg, ranges, ir_shape, T0, *, previous=None, transfor
     elif len(transform.src_points):
         rms, mx = transform.rms, transform.max_error
 
-    ir_excl, dic_excl = _exclusions(reg, run, F, ir_shape, pts)
+    ir_excl, dic_excl = _exclusions(reg, F, ir_shape, pts)
     n = len(pts)
     values = np.column_stack([_arr(getattr(ranges, k), n) for k in _VALUES])
     # no margin: the strain fits keep to the valid data up to its edges; a pixel keeps a value

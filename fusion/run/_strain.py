@@ -12,7 +12,7 @@ from ..io import check_load_ranges, check_strain_ranges, read_dic_field, read_im
 from ._files import need_file
 from ._inputs import speckle_images
 
-__all__ = ["strain_side", "read_field", "check_field_points", "check_table_strains", "MIN_POINTS"]
+__all__ = ["strain_side", "read_field", "check_field_points", "check_table_strains", "check_region", "MIN_POINTS"]
 
 #: Fewest valid points a correlation field may hold: below four, no area is covered
 #: (three points span a triangle with no interior point to check a neighbour against).
@@ -113,29 +113,31 @@ def strain_side(run, *, load_range=None, progress=False):
         for p, img in zip(paths[1:], imgs[1:]):
             if img.shape != imgs[0].shape:
                 raise InputError(p, f"is a {img.shape[0]}x{img.shape[1]} image, the reference {paths[0].name} "
-                                 f"{imgs[0].shape[0]}x{imgs[0].shape[1]}: every speckle image must have one size")
-        # the config's dic.roi is [row0, col0, row1, col1]; correlate takes (x0, y0, x1, y1)
-        roi = (spec.roi[1], spec.roi[0], spec.roi[3], spec.roi[2]) if spec.roi is not None else None
+                                 f"{imgs[0].shape[0]}x{imgs[0].shape[1]}: every speckle image must have one size; "
+                                 "an image of another camera setting (window, binning) or of another run?")
+        region = spec.correlation_region            # (x0, y0, x1, y1), columns first
+        check_region(spec, imgs[0].shape, paths[0])
         if spec.mask is not None:
             m = read_image(need_file(spec.mask, "dic.mask")) > 0
             if m.shape != imgs[0].shape:
                 raise InputError(spec.mask, f"mask has shape {m.shape}, the speckle images {imgs[0].shape}")
-            if roi is not None:
+            if region is not None:
+                x0, y0, x1, y1 = region
                 box = np.zeros_like(m)
-                box[spec.roi[0]:spec.roi[2], spec.roi[1]:spec.roi[3]] = True
+                box[y0:y1, x0:x1] = True
                 m &= box
-            roi = m
+            region = m
         fields = []
         for i, img in enumerate(imgs[1:], 1):
             try:
-                res = correlate(imgs[0], img, subset=spec.subset, step=spec.step, region=roi,
+                res = correlate(imgs[0], img, subset=spec.subset, step=spec.step, region=region,
                                 progress=progress)
             except ValueError as e:
                 raise InputError(paths[i], f"correlation: {e}") from e
             ok = np.asarray(res.converged).mean() if np.size(res.converged) else 0.0
             if ok < 0.5:
                 raise InputError(paths[i], f"correlation with the reference converged at only "
-                                 f"{100 * ok:.0f} % of the points; check the images, subset and roi")
+                                 f"{100 * ok:.0f} % of the points; check the images, subset and region")
             fields.append(res.to_field(pixel_size=spec.pixel_size))
         if len(fields) == 1:
             r = _ranges(paths[1], ranges_from_states, _zero_field(fields[0]), fields[0], window=w,
@@ -151,6 +153,15 @@ def strain_side(run, *, load_range=None, progress=False):
     slope_u = np.polyfit(loads, np.stack([f.u for f in fields]), 1)[0] * lr
     slope_v = np.polyfit(loads, np.stack([f.v for f in fields]), 1)[0] * lr
     return r, (fields[0].x, fields[0].y, slope_u, slope_v)
+
+
+def check_region(spec, shape, path):
+    """Refuse a ``dic.region`` (or ``roi``) reaching past the speckle images of ``shape`` (rows, cols)."""
+    region = spec.correlation_region
+    if region is not None and (region[2] > shape[1] or region[3] > shape[0]):
+        name = "region" if spec.region is not None else "roi"
+        raise InputError(path, f"dic.{name} = {list(getattr(spec, name))} reaches past this {shape[1]} x "
+                         f"{shape[0]} px image (columns x rows): region is [x0, y0, x1, y1], columns first")
 
 
 def _zero_field(field):
