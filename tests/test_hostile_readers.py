@@ -882,6 +882,9 @@ def test_frame_folder_with_a_gap_in_its_numbering(tmp_path):
     ("a row too many", r"holds a 9x10 grid, the first file frame_0000\.csv a 8x10 grid: .*a grid of another "
                        r"acquisition"),
     ("a short row inside", r"line 4 holds 9 values, the first line of numbers 10: a damaged row\?"),
+    ("a value too many inside", r"line 4 holds 11 values, the first line of numbers 10: a damaged row\?"),
+    ("a value too many, lines closed by a comma", r"line 4 holds 11 values, the first line of numbers 10: a "
+                                                 r"damaged row\?"),
 ])
 def test_text_grid_with_a_wrong_row_count(tmp_path, text_cache, fault, cause):
     d = _frame_folder(tmp_path / "ir", "csv")
@@ -891,6 +894,10 @@ def test_text_grid_with_a_wrong_row_count(tmp_path, text_cache, fault, cause):
         lines = lines[:-1]
     elif fault == "a row too many":
         lines = lines + lines[-1:]
+    elif fault.startswith("a value too many"):     # not to be cut to the first row's width
+        lines[3] = lines[3].rstrip("\n") + ",7\n"
+        if "closed" in fault:
+            lines = [x.rstrip("\n") + ",\n" if x.strip() and x.strip()[0].isdigit() else x for x in lines]
     else:                                  # one value lost inside the grid
         lines[3] = lines[3].rsplit(",", 1)[0] + "\n"
     p.write_text("".join(lines))

@@ -109,17 +109,27 @@ def parse_grid(path, *, decimal="."):
         raise InputError(path, f"has no line of numbers in its first {_HEADER_LINES} lines; expected a grid "
                          "of values (set decimal = \",\" for decimal commas)" if lines else
                          "is empty; expected a grid of values")
-    ncols = len(_fields(lines[start].split("#", 1)[0].strip(), delim))
+    first = lines[start].split("#", 1)[0].strip()
+    ncols = len(_fields(first, delim))
+    # a delimiter closing every line leaves an empty last field: read only the values, and count
+    # the delimiters afterwards so that a row with an extra value is not cut silently
+    trailing = delim is not None and lines[start].split("#", 1)[0].rstrip(" \r\n").endswith(delim)
     body = "\n".join(lines[start:])
     if decimal == ",":
         body = body.replace(",", ".")
     try:
         with text_rows_warning():
             grid = np.loadtxt(io.StringIO(body), delimiter=delim, comments="#", ndmin=2, dtype=np.float64,
-                              usecols=range(ncols))
+                              usecols=range(ncols) if trailing else None)
     except ValueError as e:
         raise InputError(path, _short_row(lines, start, delim, ncols)
                          or f"is not a grid of numbers ({e}); every row needs {ncols} values") from e
+    if trailing:
+        counted = (body.count(delim) if "#" not in body else
+                   sum(x.split("#", 1)[0].count(delim) for x in lines[start:]))
+        if counted != grid.shape[0] * ncols:
+            raise InputError(path, _short_row(lines, start, delim, ncols)
+                             or f"is not a grid of {ncols} values per row")
     return grid
 
 
