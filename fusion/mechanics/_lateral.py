@@ -272,6 +272,8 @@ def _padded_fields(fields, valid, shape):
     Data at the origin, no-data pixels filled from the nearest valid pixel, then a
     raised-cosine band from the last row (column) to the first.
     """
+    from ._lateral_kernel import blend_margins
+
     C, ny, nx = fields.shape
     NY, NX = shape
     out = np.empty((C, NY, NX))
@@ -280,12 +282,7 @@ def _padded_fields(fields, valid, shape):
     ok = _valid_mask(valid, np.isfinite(data).all(axis=0))
     if not ok.all():
         _fill_nearest(data, ok)
-    if NX > nx:
-        w = _blend(NX - nx)
-        out[:, :ny, nx:] = w * data[:, :, nx - 1:nx] + (1.0 - w) * data[:, :, 0:1]
-    if NY > ny:
-        w = _blend(NY - ny)[:, None]
-        out[:, ny:, :] = w * out[:, ny - 1:ny, :] + (1.0 - w) * out[:, 0:1, :]
+    blend_margins(out, ny, nx, _blend(NX - nx), _blend(NY - ny))
     return out, ok
 
 
@@ -324,13 +321,23 @@ def _padded_shape(shape, k_grid, rc, omega, pad_lengths):
 
 
 def _types(d, rc, k3, k_grid):
-    """Distinct layer types: index of each layer and the per-type arrays."""
+    """Distinct layer types: index of each layer, the mirror of each type and the per-type arrays.
+
+    The types are closed under ``kxy -> -kxy`` (a type at ``(qx, -qy)`` is its mirror at
+    ``(qx, qy)``): a mirror no layer has is added.
+    """
     keys, kind = {}, []
     for j in range(d.size):
         key = (d[j], rc[j], k3[j], k_grid[j, 0, 0], k_grid[j, 0, 1], k_grid[j, 1, 1])
         kind.append(keys.setdefault(key, len(keys)))
+    mirror = []
+    for key in list(keys):
+        mirror.append(keys.setdefault(key[:4] + (-key[4],) + key[5:], len(keys)))
+    for key in list(keys)[len(mirror):]:
+        mirror.append(keys[key[:4] + (-key[4],) + key[5:]])
     arr = np.array(list(keys), dtype=float).reshape(-1, 6)
-    return np.array(kind, dtype=np.int64), [np.ascontiguousarray(arr[:, i]) for i in range(6)]
+    return (np.array(kind, dtype=np.int64), np.array(mirror, dtype=np.int64),
+            [np.ascontiguousarray(arr[:, i]) for i in range(6)])
 
 
 def _solve(layers, fields, coef_fields, frequency, *, pixel_size, valid, convection_front,
@@ -354,15 +361,13 @@ def _solve(layers, fields, coef_fields, frequency, *, pixel_size, valid, convect
     spec = fft.rfft2(padded, axes=(1, 2), workers=workers)
     qy = 2.0 * np.pi * np.fft.fftfreq(NY)
     qx = 2.0 * np.pi * np.fft.rfftfreq(NX)
-    kind, (td, trc, tk3, kxx, kxy, kyy) = _types(d, rc, k3, k_grid)
-    out_re = np.empty(spec.shape[1:], dtype=complex)
-    out_im = np.empty(spec.shape[1:], dtype=complex)
-    surface_spectrum(qx, qy, kind, td, trc, tk3, kxx, kxy, kyy, np.ascontiguousarray(coef_fields, dtype=float),
-                     omega, hf, hb, NX % 2 == 0, NY // 2 if NY % 2 == 0 else -1, spec, out_re, out_im)
+    kind, mirror, (td, trc, tk3, kxx, kxy, kyy) = _types(d, rc, k3, k_grid)
+    full = np.empty((NY, NX), dtype=complex)
+    sources, source_of = np.unique(np.asarray(coef_fields, dtype=float), axis=0, return_inverse=True)
+    surface_spectrum(qx, qy, kind, mirror, td, trc, tk3, kxx, kxy, kyy, source_of.ravel().astype(np.int64),
+                     np.ascontiguousarray(sources), omega, hf, hb, NX % 2 == 0, spec, full)
     ny, nx = shape
-    re = fft.irfft2(out_re, s=(NY, NX), workers=workers)[:ny, :nx]
-    im = fft.irfft2(out_im, s=(NY, NX), workers=workers)[:ny, :nx]
-    return re + 1j * im
+    return fft.ifft2(full, workers=workers, overwrite_x=True)[:ny, :nx]
 
 
 def lateral_response(layers, strain_ranges, frequency, *, pixel_size, valid=None, convection_front=0.0,
@@ -401,8 +406,8 @@ def lateral_response(layers, strain_ranges, frequency, *, pixel_size, valid=None
     Notes
     -----
     Three real 2-D transforms of the strain maps, the layered solution at every
-    wavevector (compiled, parallel over rows, layers of one kind computed once), two
-    inverse transforms. A uniform field gives :func:`fusion.mechanics.model_response`
+    wavevector (compiled, parallel over rows, layers of one kind computed once), one
+    complex inverse transform. A uniform field gives :func:`fusion.mechanics.model_response`
     exactly (the ``q = 0`` term); near a no-data boundary see :func:`lateral_edge_mask`.
 
     References
