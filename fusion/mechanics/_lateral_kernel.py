@@ -43,7 +43,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from numba import njit, prange
+from numba import njit
 
 __all__ = ["surface_spectrum", "blend_margins", "ATTENUATION_CUTOFF"]
 
@@ -296,10 +296,10 @@ def _row_response(nx, kind, stack, spec, iy, types, plus, minus, scratch):  # pr
         minus[ix] = complex(fr * vr - fi * vi, fr * vi + fi * vr)
 
 
-@njit(parallel=True, **_JIT)
+@njit(**_JIT)
 def surface_spectrum(qx, qy, kind, mirror, thick, rhoc, k3, kxx, kxy, kyy, source_of, sources, omega, h_front,
-                     h_back, nyquist_x, spec, out):  # pragma: no cover - compiled
-    """Full spectrum of the complex surface response.
+                     h_back, nyquist_x, spec, out, first_pair, end_pair):  # pragma: no cover - compiled
+    """Full spectrum of the complex surface response, the rows of pairs ``first_pair:end_pair``.
 
     ``qx`` (NXh,), ``qy`` (NY,) wavenumbers in rad/px of the half spectrum; per layer type
     (U,): thickness m, rho c J/(m3 K), k3 W/(m K) and the in-plane tensor on the grid
@@ -307,8 +307,9 @@ def surface_spectrum(qx, qy, kind, mirror, thick, rhoc, k3, kxx, kxy, kyy, sourc
     type with the opposite ``kxy``, which is type u at ``(qx, -ky)``; ``kind`` (N,) the type
     of each layer (viewed face first); ``source_of`` (N,) its row of ``sources`` (R, C), its
     adiabatic value per unit of the C source fields; ``spec`` (C, NY, NXh) their half
-    spectra (``rfft2``). Writes ``out`` (NY, NX), ``sum_c H_c(q) spec_c(q)`` at every
-    wavevector of the full grid.
+    spectra (``rfft2``). Writes ``sum_c H_c(q) spec_c(q)`` into ``out`` (NY, NX) at every
+    wavevector of rows p and ``NY - p`` for the pairs p (``0 <= p <= NY // 2``) asked for:
+    separate calls may fill separate pairs at the same time.
 
     The rows ``ky`` and ``-ky`` are done together: the types of one are the mirrored types
     of the other, so a laminate of +-theta, 0 and 90 plies computes its exponentials once
@@ -327,50 +328,47 @@ def surface_spectrum(qx, qy, kind, mirror, thick, rhoc, k3, kxx, kxy, kyy, sourc
         kinds[0, j] = kind[j]
         kinds[1, j] = mirror[kind[j]]
     stack = (source_of, sources, h_front, h_back)
-    n_pairs = ny // 2 + 1                            # rows p and ny - p
-    n_blocks = min(n_pairs, 64)
-    for block in prange(n_blocks):
-        scratch = (np.empty((2 * sources.shape[0] + 1, nx)), np.empty((6, nx)), np.empty(nx, np.int64),
-                   np.empty(n, np.int64), np.empty(sources.shape[0], np.int64))
-        types = np.empty((n_types, _N_ROWS, nx))
-        plus = np.empty(nx, np.complex128)
-        minus = np.empty(nx, np.complex128)
-        plus2 = np.empty(nx, np.complex128)
-        minus2 = np.empty(nx, np.complex128)
-        one = np.empty(1)
-        types1 = np.empty((n_types, _N_ROWS, 1))
-        spec1 = np.empty((n_chan, 1, 1), np.complex128)
-        for pair in range(block * n_pairs // n_blocks, (block + 1) * n_pairs // n_blocks):
-            _row_types(qx, qy[pair], thick, rhoc, k3, kxx, kxy, kyy, omega, types)
-            other = (ny - pair) % ny
-            for side in range(1 if other == pair else 2):
-                iy = pair if side == 0 else other
-                _row_response(nx, kinds[side], stack, spec, iy, types, plus, minus, scratch)
-                n_signs = 1
-                if other == pair and ny % 2 == 0 and pair == ny // 2:
-                    # the Nyquist row stands for +ky and -ky: the mean of both
-                    n_signs = 2
-                    _row_response(nx, kinds[1], stack, spec, iy, types, plus2, minus2, scratch)
-                    for ix in range(nx):
-                        plus[ix] = 0.5 * (plus[ix] + plus2[ix])
-                        minus[ix] = 0.5 * (minus[ix] + minus2[ix])
-                if nyquist_x:
-                    # the last column stands for +pi and -pi: the mean over every alias of the bin
-                    end = nx - 1
-                    one[0] = -qx[end]
-                    for c in range(n_chan):
-                        spec1[c, 0, 0] = spec[c, iy, end]
-                    total = 0j
-                    for k in range(n_signs):
-                        _row_types(one, qy[iy] if k == 0 else -qy[iy], thick, rhoc, k3, kxx, kxy, kyy, omega, types1)
-                        _row_response(1, kinds[0], stack, spec1, 0, types1, plus2, minus2, scratch)
-                        total += plus2[0]
-                    plus[end] = 0.5 * (plus[end] + total / n_signs)
-                mirror_row = (ny - iy) % ny
+    scratch = (np.empty((2 * sources.shape[0] + 1, nx)), np.empty((6, nx)), np.empty(nx, np.int64),
+               np.empty(n, np.int64), np.empty(sources.shape[0], np.int64))
+    types = np.empty((n_types, _N_ROWS, nx))
+    plus = np.empty(nx, np.complex128)
+    minus = np.empty(nx, np.complex128)
+    plus2 = np.empty(nx, np.complex128)
+    minus2 = np.empty(nx, np.complex128)
+    one = np.empty(1)
+    types1 = np.empty((n_types, _N_ROWS, 1))
+    spec1 = np.empty((n_chan, 1, 1), np.complex128)
+    for pair in range(first_pair, end_pair):
+        _row_types(qx, qy[pair], thick, rhoc, k3, kxx, kxy, kyy, omega, types)
+        other = (ny - pair) % ny
+        for side in range(1 if other == pair else 2):
+            iy = pair if side == 0 else other
+            _row_response(nx, kinds[side], stack, spec, iy, types, plus, minus, scratch)
+            n_signs = 1
+            if other == pair and ny % 2 == 0 and pair == ny // 2:
+                # the Nyquist row stands for +ky and -ky: the mean of both
+                n_signs = 2
+                _row_response(nx, kinds[1], stack, spec, iy, types, plus2, minus2, scratch)
                 for ix in range(nx):
-                    out[iy, ix] = plus[ix]
-                for ix in range(1, (n_full + 1) // 2):    # the other half: H(-q) = H(q), spec real
-                    out[mirror_row, n_full - ix] = minus[ix]
+                    plus[ix] = 0.5 * (plus[ix] + plus2[ix])
+                    minus[ix] = 0.5 * (minus[ix] + minus2[ix])
+            if nyquist_x:
+                # the last column stands for +pi and -pi: the mean over every alias of the bin
+                end = nx - 1
+                one[0] = -qx[end]
+                for c in range(n_chan):
+                    spec1[c, 0, 0] = spec[c, iy, end]
+                total = 0j
+                for k in range(n_signs):
+                    _row_types(one, qy[iy] if k == 0 else -qy[iy], thick, rhoc, k3, kxx, kxy, kyy, omega, types1)
+                    _row_response(1, kinds[0], stack, spec1, 0, types1, plus2, minus2, scratch)
+                    total += plus2[0]
+                plus[end] = 0.5 * (plus[end] + total / n_signs)
+            mirror_row = (ny - iy) % ny
+            for ix in range(nx):
+                out[iy, ix] = plus[ix]
+            for ix in range(1, (n_full + 1) // 2):    # the other half: H(-q) = H(q), spec real
+                out[mirror_row, n_full - ix] = minus[ix]
 
 
 # ---------------------------------------------------------------- padded fields
