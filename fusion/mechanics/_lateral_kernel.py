@@ -56,7 +56,7 @@ _JIT = {"nogil": True, "fastmath": _FM, "error_model": "numpy", "cache": True}
 
 # exp(-x) = exp(-n) exp(-t) with n the nearest integer to Re(x) and exp(-i y) = exp(-i m/2)
 # exp(-i b) with m/2 the nearest half to Im(x): table values times series in |t| <= 1/2,
-# |b| <= 1/4 (within an ulp; the subtractions are exact). Past the table exp(-x) is taken as
+# |b| <= 1/4 (within a few ulps; the subtractions are exact). Past the table exp(-x) is taken as
 # 0: such a layer lies beyond the cut-off, where exp(-x) no longer reaches the surface value.
 _TABLE_END = 64
 _EXP_WHOLE = np.exp(-np.arange(_TABLE_END + 1.0))
@@ -224,7 +224,7 @@ def _layer_step(nx, types, u, work, s, state):  # pragma: no cover - compiled
 
 @njit(**_JIT)
 def _row_types(qx, ky, thick, rhoc, k3, kxx, kxy, kyy, omega, types):  # pragma: no cover - compiled
-    """Every layer type at the wavevectors ``(qx, ky)``, into ``types`` (U, 9, >= len(qx))."""
+    """Every layer type at the wavevectors ``(qx, ky)``, into ``types`` (U, 11, >= len(qx))."""
     for u in range(thick.shape[0]):
         _layer_type(qx.shape[0], qx, ky, thick[u], omega * rhoc[u], k3[u], kxx[u], kxy[u], kyy[u], types, u)
 
@@ -249,10 +249,10 @@ def _row_response(nx, kind, stack, spec, iy, types, plus, minus, scratch):  # pr
         last[ix] = 0
     for j in range(n):
         _count_reached(nx, types, kind[j], work, acc, last)
-    # Each wavevector runs down to the deepest layer any wavevector after it in the row
-    # reaches (the attenuation grows with |q|, so that is nearly its own): the layers
-    # reached then cover a leading part of the row, the loops need no mask, and a deeper
-    # start changes the surface value less than the cut-off does.
+    # Each wavevector starts at the deepest layer any wavevector after it in the row
+    # reaches (the attenuation grows with |q|, so that is nearly its own): the wavevectors
+    # that reach a layer are then the first ones of the row and the loops need no mask; a
+    # deeper start only adds layers the cut-off would have left out.
     deepest = 0
     for ix in range(nx - 1, -1, -1):
         deepest = max(deepest, min(last[ix], n - 1))
