@@ -275,20 +275,20 @@ def _blend(n_pad):
     return 0.5 * (1.0 + np.cos(np.pi * t))      # 1 at the last data line -> 0 at the first
 
 
-def _padded_fields(fields, valid, shape):
+def _padded_fields(fields, valid, shape, buffer=None):
     """Fields (C, Y, X) on the (NY, NX) grid, filled and blended, and the mask of data.
 
     Data at the origin, no-data pixels filled from the nearest valid pixel, then a
-    raised-cosine band from the last row (column) to the first.
+    raised-cosine band from the last row (column) to the first. ``buffer``: float64 memory
+    of at least C NY NX values to hold them (default: new).
     """
-    from ._lateral_kernel import blend_margins
+    from ._lateral_kernel import blend_margins, place_fields
 
     C, ny, nx = fields.shape
     NY, NX = shape
-    out = np.empty((C, NY, NX))
+    out = np.empty((C, NY, NX)) if buffer is None else buffer[:C * NY * NX].reshape(C, NY, NX)
     data = out[:, :ny, :nx]
-    data[...] = fields
-    ok = _valid_mask(valid, np.isfinite(data).all(axis=0))
+    ok = _valid_mask(valid, place_fields(fields if fields.dtype == np.float64 else fields.astype(float), out))
     if not ok.all():
         _fill_nearest(data, ok)
     blend_margins(out, ny, nx, _blend(NX - nx), _blend(NY - ny))
@@ -337,7 +337,12 @@ def _types(d, rc, k3, k_grid):
     """
     keys, kind = {}, []
     for j in range(d.size):
-        key = (d[j], rc[j], k3[j], k_grid[j, 0, 0], k_grid[j, 0, 1], k_grid[j, 1, 1])
+        kxy = k_grid[j, 0, 1]
+        # a cross term at rounding level (cos 90 deg is not 0 in floating point) is none: the
+        # layer is then its own mirror and the rows ky and -ky share all its work
+        if abs(kxy) <= 1e-14 * math.sqrt(k_grid[j, 0, 0] * k_grid[j, 1, 1]):
+            kxy = 0.0
+        key = (d[j], rc[j], k3[j], k_grid[j, 0, 0], kxy, k_grid[j, 1, 1])
         kind.append(keys.setdefault(key, len(keys)))
     mirror = []
     for key in list(keys):
@@ -408,13 +413,28 @@ def _solve(layers, fields, coef_fields, frequency, *, pixel_size, valid, convect
     k_grid = _grid_tensors(k_in, axes)
     shape = fields.shape[1:]
     NY, NX = _padded_shape(shape, k_grid, rc, omega, pad_lengths)
-    padded, _ = _padded_fields(fields, valid, (NY, NX))
+    # One buffer holds the padded fields, their half spectra, then (over the fields, no
+    # longer needed) the full spectrum of the response and the response: fresh memory costs
+    # a page fault per page on first touch, and separate large arrays freed together are
+    # handed back to the system, to fault again on the next call. The transforms along x
+    # write into it (NumPy's take an output; rows shared among the threads), those along y
+    # work in place.
+    C = fields.shape[0]
+    n_real = max(C, 2) * NY * NX
+    buffer = np.empty(n_real + 2 * C * NY * (NX // 2 + 1))
+    padded, _ = _padded_fields(fields, valid, (NY, NX), buffer)
+    spec = buffer[n_real:].view(complex).reshape(C, NY, NX // 2 + 1)
     workers = max(1, numba.get_num_threads())
-    spec = fft.rfft2(padded, axes=(1, 2), workers=workers)
+
+    def along_x(first, end):
+        np.fft.rfft(padded[:, first:end], axis=2, out=spec[:, first:end])
+
+    _run_blocks(along_x, NY, workers, max(1, NY // (4 * workers)))
+    spec = fft.fft(spec, axis=1, workers=workers, overwrite_x=True)
+    full = buffer[:2 * NY * NX].view(complex).reshape(NY, NX)
     qy = 2.0 * np.pi * np.fft.fftfreq(NY)
     qx = 2.0 * np.pi * np.fft.rfftfreq(NX)
     kind, mirror, (td, trc, tk3, kxx, kxy, kyy) = _types(d, rc, k3, k_grid)
-    full = np.empty((NY, NX), dtype=complex)
     sources, source_of = np.unique(np.asarray(coef_fields, dtype=float), axis=0, return_inverse=True)
     source_of = source_of.ravel().astype(np.int64)
     sources = np.ascontiguousarray(sources)

@@ -45,7 +45,7 @@ import math
 import numpy as np
 from numba import njit
 
-__all__ = ["surface_spectrum", "blend_margins", "ATTENUATION_CUTOFF"]
+__all__ = ["surface_spectrum", "place_fields", "blend_margins", "ATTENUATION_CUTOFF"]
 
 #: Sum of Re(lambda d) from the viewed face beyond which deeper layers are left out.
 ATTENUATION_CUTOFF = 40.0
@@ -372,6 +372,21 @@ def surface_spectrum(qx, qy, kind, mirror, thick, rhoc, k3, kxx, kxy, kyy, sourc
 
 
 # ---------------------------------------------------------------- padded fields
+@njit(nogil=True, cache=True)  # no fast-math: it would take every value as finite
+def place_fields(fields, out):  # pragma: no cover - compiled
+    """Copy ``fields`` (C, Y, X), any strides, into ``out[:, :Y, :X]``; True where every channel is finite."""
+    n_chan, ny, nx = fields.shape
+    finite = np.ones((ny, nx), np.bool_)
+    for y in range(ny):
+        for c in range(n_chan):
+            for x in range(nx):
+                v = fields[c, y, x]
+                out[c, y, x] = v
+                if not math.isfinite(v):
+                    finite[y, x] = False
+    return finite
+
+
 @njit(**_JIT)
 def blend_margins(out, ny, nx, w_x, w_y):  # pragma: no cover - compiled
     """Fill ``out`` (C, NY, NX) beyond the data ``[:, :ny, :nx]``: weight ``w_x`` (NX - nx,) of the
