@@ -399,13 +399,18 @@ def _run_blocks(work, n_items, threads, per_block):
 
 def _solve(layers, fields, coef_fields, frequency, *, pixel_size, valid, convection_front,
            convection_back, pad_lengths):
-    """Complex surface response (Y, X) for source fields (C, Y, X) and coefficients (N, C)."""
+    """Complex surface response (Y, X) for source fields (C, Y, X) and coefficients (N, C).
+
+    ``coef_fields`` None: the layers' own adiabatic coefficients (the fields are the strains).
+    """
     import numba
     from scipy import fft
 
     from ._lateral_kernel import surface_spectrum
 
-    layers, d, rc, k3, _, k_in = _layer_data(layers)
+    layers, d, rc, k3, coef, k_in = _layer_data(layers)
+    if coef_fields is None:
+        coef_fields = coef
     omega = 2.0 * math.pi * _check_frequency(frequency)
     hf = _check_h(convection_front, "convection_front")
     hb = _check_h(convection_back, "convection_back")
@@ -512,9 +517,7 @@ def lateral_response(layers, strain_ranges, frequency, *, pixel_size, valid=None
     if e.ndim != 3 or e.shape[-1] != 3 or e.dtype.kind not in "fiu":
         raise ValueError(f"strain_ranges must be a real (Y, X, 3) array of (d eps_xx, d eps_yy, d gamma_xy), "
                          f"got shape {e.shape} dtype {e.dtype}")
-    layers = list(layers)
-    _, _, _, coef = _layer_arrays(layers)
-    return _solve(layers, np.moveaxis(e, -1, 0), coef, frequency, pixel_size=pixel_size, valid=valid,
+    return _solve(layers, np.moveaxis(e, -1, 0), None, frequency, pixel_size=pixel_size, valid=valid,
                   convection_front=convection_front, convection_back=convection_back,
                   pad_lengths=pad_lengths)
 
