@@ -352,6 +352,9 @@ def test_mistakes_are_named():
     bad[3, 4] = np.nan
     with pytest.raises(ValueError, match="row 3, column 4"):
         lateral_response(layers, bad, 1.0, pixel_size=0.2e-3, valid=np.ones((10, 12), bool))
+    bad[3, 4] = -np.inf                                             # the compiled copy checks infinities too
+    with pytest.raises(ValueError, match="row 3, column 4"):
+        lateral_response(layers, bad, 1.0, pixel_size=0.2e-3, valid=np.ones((10, 12), bool))
     with pytest.raises(ValueError, match="no pixel holds data"):
         lateral_response(layers, np.full((10, 12, 3), np.nan), 1.0, pixel_size=0.2e-3)
     with pytest.raises(ValueError, match="boolean"):

@@ -51,7 +51,7 @@ def bench_lateral(*, quick: bool = False) -> dict:
     -------
     dict
         ``lateral_fft_ratio``: best time of one call (extension, padding, three forward
-        transforms, the layered solution at every wavevector, two inverse transforms) over
+        transforms, the layered solution at every wavevector, one inverse transform) over
         the best time of ``scipy.fft.fft2`` of one complex field on the padded grid (target
         10); ``lateral_seconds`` and ``lateral_fft_seconds`` (s), ``lateral_grid`` (the
         padded grid, rows x columns).

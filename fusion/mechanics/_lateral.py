@@ -61,6 +61,9 @@ and Its Applications*, 3rd ed., McGraw-Hill, 2000 (discrete transforms, wrap-aro
 from __future__ import annotations
 
 import math
+import os
+import queue
+from concurrent.futures import ThreadPoolExecutor
 from numbers import Real
 
 import numpy as np
@@ -240,25 +243,31 @@ def _fill_nearest(data, valid):
     """No-data pixels of ``data`` (C, Y, X) take the value of the nearest valid pixel, in place.
 
     The nearest pixel comes from OpenCV's labelled distance transform (5 x 5 chamfer
-    metric: within a pixel of the exact Euclidean nearest, at a tenth of its cost).
+    metric: within a pixel of the exact Euclidean nearest, at a tenth of its cost), run on
+    the box around the no-data pixels and two pixels more: the 5 x 5 mask reaches no
+    further, so the box gives the whole image's answer at a fraction of its cost.
     """
     import cv2
 
-    _, labels = cv2.distanceTransformWithLabels((~valid).astype(np.uint8), cv2.DIST_L2, 5,
+    rows = np.flatnonzero(~valid.all(axis=1))
+    cols = np.flatnonzero(~valid.all(axis=0))
+    y0, x0 = max(rows[0] - 2, 0), max(cols[0] - 2, 0)
+    box = valid[y0:rows[-1] + 3, x0:cols[-1] + 3]
+    _, labels = cv2.distanceTransformWithLabels((~box).astype(np.uint8), cv2.DIST_L2, 5,
                                                 labelType=cv2.DIST_LABEL_PIXEL)
-    hole = np.flatnonzero(~valid)
+    hole = np.flatnonzero(~box)
     lab = labels.ravel()[hole]
     # OpenCV numbers the valid pixels from 1 in raster order; checked, else mapped one by one
-    src = np.flatnonzero(valid)[lab - 1]
+    src = np.flatnonzero(box)[lab - 1]
     if not np.array_equal(labels.ravel()[src], lab):
         order = np.empty(int(labels.max()) + 1, dtype=np.intp)
-        every = np.flatnonzero(valid)
+        every = np.flatnonzero(box)
         order[labels.ravel()[every]] = every
         src = order[lab]
-    nx = valid.shape[1]
+    nx = box.shape[1]
     hy, hx = np.divmod(hole, nx)
     sy, sx = np.divmod(src, nx)
-    data[:, hy, hx] = data[:, sy, sx]
+    data[:, y0 + hy, x0 + hx] = data[:, y0 + sy, x0 + sx]
 
 
 def _blend(n_pad):
@@ -266,26 +275,23 @@ def _blend(n_pad):
     return 0.5 * (1.0 + np.cos(np.pi * t))      # 1 at the last data line -> 0 at the first
 
 
-def _padded_fields(fields, valid, shape):
+def _padded_fields(fields, valid, shape, buffer=None):
     """Fields (C, Y, X) on the (NY, NX) grid, filled and blended, and the mask of data.
 
     Data at the origin, no-data pixels filled from the nearest valid pixel, then a
-    raised-cosine band from the last row (column) to the first.
+    raised-cosine band from the last row (column) to the first. ``buffer``: float64 memory
+    of at least C NY NX values to hold them (default: new).
     """
+    from ._lateral_kernel import blend_margins, place_fields
+
     C, ny, nx = fields.shape
     NY, NX = shape
-    out = np.empty((C, NY, NX))
+    out = np.empty((C, NY, NX)) if buffer is None else buffer[:C * NY * NX].reshape(C, NY, NX)
     data = out[:, :ny, :nx]
-    data[...] = fields
-    ok = _valid_mask(valid, np.isfinite(data).all(axis=0))
+    ok = _valid_mask(valid, place_fields(fields if fields.dtype == np.float64 else fields.astype(float), out))
     if not ok.all():
         _fill_nearest(data, ok)
-    if NX > nx:
-        w = _blend(NX - nx)
-        out[:, :ny, nx:] = w * data[:, :, nx - 1:nx] + (1.0 - w) * data[:, :, 0:1]
-    if NY > ny:
-        w = _blend(NY - ny)[:, None]
-        out[:, ny:, :] = w * out[:, ny - 1:ny, :] + (1.0 - w) * out[:, 0:1, :]
+    blend_margins(out, ny, nx, _blend(NX - nx), _blend(NY - ny))
     return out, ok
 
 
@@ -324,24 +330,87 @@ def _padded_shape(shape, k_grid, rc, omega, pad_lengths):
 
 
 def _types(d, rc, k3, k_grid):
-    """Distinct layer types: index of each layer and the per-type arrays."""
+    """Distinct layer types: index of each layer, the mirror of each type and the per-type arrays.
+
+    The types are closed under ``kxy -> -kxy`` (a type at ``(qx, -qy)`` is its mirror at
+    ``(qx, qy)``): a mirror no layer has is added.
+    """
     keys, kind = {}, []
     for j in range(d.size):
-        key = (d[j], rc[j], k3[j], k_grid[j, 0, 0], k_grid[j, 0, 1], k_grid[j, 1, 1])
+        kxy = k_grid[j, 0, 1]
+        # a cross term at rounding level (cos 90 deg is not 0 in floating point) is none: the
+        # layer is then its own mirror and the rows ky and -ky share all its work
+        if abs(kxy) <= 1e-14 * math.sqrt(k_grid[j, 0, 0] * k_grid[j, 1, 1]):
+            kxy = 0.0
+        key = (d[j], rc[j], k3[j], k_grid[j, 0, 0], kxy, k_grid[j, 1, 1])
         kind.append(keys.setdefault(key, len(keys)))
+    mirror = []
+    for key in list(keys):
+        mirror.append(keys.setdefault(key[:4] + (-key[4],) + key[5:], len(keys)))
+    for key in list(keys)[len(mirror):]:
+        mirror.append(keys[key[:4] + (-key[4],) + key[5:]])
     arr = np.array(list(keys), dtype=float).reshape(-1, 6)
-    return np.array(kind, dtype=np.int64), [np.ascontiguousarray(arr[:, i]) for i in range(6)]
+    return (np.array(kind, dtype=np.int64), np.array(mirror, dtype=np.int64),
+            [np.ascontiguousarray(arr[:, i]) for i in range(6)])
+
+
+# Helper threads of the compiled kernel, made on first use and kept (a forked child has none).
+_HELPERS: ThreadPoolExecutor | None = None
+
+
+def _forget_helpers():
+    global _HELPERS
+    _HELPERS = None
+
+
+os.register_at_fork(after_in_child=_forget_helpers)
+
+
+def _run_blocks(work, n_items, threads, per_block):
+    """``work(start, stop)`` over ``range(n_items)`` in blocks, on this thread and ``threads - 1`` helpers.
+
+    Blocks are handed out one at a time and this thread takes its share; a helper that has
+    not started when the blocks run out is cancelled, so a core busy with other work holds
+    the result up by a block at most (a fixed split would wait for its whole share).
+    """
+    global _HELPERS
+    blocks = queue.SimpleQueue()
+    for start in range(0, n_items, per_block):
+        blocks.put(start)
+
+    def run():
+        while True:
+            try:
+                start = blocks.get_nowait()
+            except queue.Empty:
+                return
+            work(start, min(start + per_block, n_items))
+
+    futures = []
+    if threads > 1:
+        if _HELPERS is None:
+            _HELPERS = ThreadPoolExecutor(max(1, (os.cpu_count() or 2) - 1), thread_name_prefix="fusion-lateral")
+        futures = [_HELPERS.submit(run) for _ in range(threads - 1)]
+    run()
+    for future in futures:
+        if not future.cancel():
+            future.result()
 
 
 def _solve(layers, fields, coef_fields, frequency, *, pixel_size, valid, convection_front,
            convection_back, pad_lengths):
-    """Complex surface response (Y, X) for source fields (C, Y, X) and coefficients (N, C)."""
+    """Complex surface response (Y, X) for source fields (C, Y, X) and coefficients (N, C).
+
+    ``coef_fields`` None: the layers' own adiabatic coefficients (the fields are the strains).
+    """
     import numba
     from scipy import fft
 
     from ._lateral_kernel import surface_spectrum
 
-    layers, d, rc, k3, _, k_in = _layer_data(layers)
+    layers, d, rc, k3, coef, k_in = _layer_data(layers)
+    if coef_fields is None:
+        coef_fields = coef
     omega = 2.0 * math.pi * _check_frequency(frequency)
     hf = _check_h(convection_front, "convection_front")
     hb = _check_h(convection_back, "convection_back")
@@ -349,20 +418,40 @@ def _solve(layers, fields, coef_fields, frequency, *, pixel_size, valid, convect
     k_grid = _grid_tensors(k_in, axes)
     shape = fields.shape[1:]
     NY, NX = _padded_shape(shape, k_grid, rc, omega, pad_lengths)
-    padded, _ = _padded_fields(fields, valid, (NY, NX))
+    # One buffer holds the padded fields, their half spectra, then (over the fields, no
+    # longer needed) the full spectrum of the response and the response: fresh memory costs
+    # a page fault per page on first touch, and separate large arrays freed together are
+    # handed back to the system, to fault again on the next call. The transforms along x
+    # write into it (NumPy's take an output; rows shared among the threads), those along y
+    # work in place.
+    C = fields.shape[0]
+    n_real = max(C, 2) * NY * NX
+    buffer = np.empty(n_real + 2 * C * NY * (NX // 2 + 1))
+    padded, _ = _padded_fields(fields, valid, (NY, NX), buffer)
+    spec = buffer[n_real:].view(complex).reshape(C, NY, NX // 2 + 1)
     workers = max(1, numba.get_num_threads())
-    spec = fft.rfft2(padded, axes=(1, 2), workers=workers)
+
+    def along_x(first, end):
+        np.fft.rfft(padded[:, first:end], axis=2, out=spec[:, first:end])
+
+    _run_blocks(along_x, NY, workers, max(1, NY // (4 * workers)))
+    spec = fft.fft(spec, axis=1, workers=workers, overwrite_x=True)
+    full = buffer[:2 * NY * NX].view(complex).reshape(NY, NX)
     qy = 2.0 * np.pi * np.fft.fftfreq(NY)
     qx = 2.0 * np.pi * np.fft.rfftfreq(NX)
-    kind, (td, trc, tk3, kxx, kxy, kyy) = _types(d, rc, k3, k_grid)
-    out_re = np.empty(spec.shape[1:], dtype=complex)
-    out_im = np.empty(spec.shape[1:], dtype=complex)
-    surface_spectrum(qx, qy, kind, td, trc, tk3, kxx, kxy, kyy, np.ascontiguousarray(coef_fields, dtype=float),
-                     omega, hf, hb, NX % 2 == 0, NY // 2 if NY % 2 == 0 else -1, spec, out_re, out_im)
+    kind, mirror, (td, trc, tk3, kxx, kxy, kyy) = _types(d, rc, k3, k_grid)
+    sources, source_of = np.unique(np.asarray(coef_fields, dtype=float), axis=0, return_inverse=True)
+    source_of = source_of.ravel().astype(np.int64)
+    sources = np.ascontiguousarray(sources)
+
+    def rows(first, end):                         # the rows p and NY - p of pairs first:end
+        surface_spectrum(qx, qy, kind, mirror, td, trc, tk3, kxx, kxy, kyy, source_of, sources, omega, hf, hb,
+                         NX % 2 == 0, spec, full, first, end)
+
+    n_pairs = NY // 2 + 1
+    _run_blocks(rows, n_pairs, workers, max(1, n_pairs // (16 * workers)))
     ny, nx = shape
-    re = fft.irfft2(out_re, s=(NY, NX), workers=workers)[:ny, :nx]
-    im = fft.irfft2(out_im, s=(NY, NX), workers=workers)[:ny, :nx]
-    return re + 1j * im
+    return fft.ifft2(full, workers=workers, overwrite_x=True)[:ny, :nx]
 
 
 def lateral_response(layers, strain_ranges, frequency, *, pixel_size, valid=None, convection_front=0.0,
@@ -401,8 +490,8 @@ def lateral_response(layers, strain_ranges, frequency, *, pixel_size, valid=None
     Notes
     -----
     Three real 2-D transforms of the strain maps, the layered solution at every
-    wavevector (compiled, parallel over rows, layers of one kind computed once), two
-    inverse transforms. A uniform field gives :func:`fusion.mechanics.model_response`
+    wavevector (compiled, parallel over rows, layers of one kind computed once), one
+    complex inverse transform. A uniform field gives :func:`fusion.mechanics.model_response`
     exactly (the ``q = 0`` term); near a no-data boundary see :func:`lateral_edge_mask`.
 
     References
@@ -428,9 +517,7 @@ def lateral_response(layers, strain_ranges, frequency, *, pixel_size, valid=None
     if e.ndim != 3 or e.shape[-1] != 3 or e.dtype.kind not in "fiu":
         raise ValueError(f"strain_ranges must be a real (Y, X, 3) array of (d eps_xx, d eps_yy, d gamma_xy), "
                          f"got shape {e.shape} dtype {e.dtype}")
-    layers = list(layers)
-    _, _, _, coef = _layer_arrays(layers)
-    return _solve(layers, np.moveaxis(e, -1, 0), coef, frequency, pixel_size=pixel_size, valid=valid,
+    return _solve(layers, np.moveaxis(e, -1, 0), None, frequency, pixel_size=pixel_size, valid=valid,
                   convection_front=convection_front, convection_back=convection_back,
                   pad_lengths=pad_lengths)
 
