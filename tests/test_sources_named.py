@@ -76,6 +76,7 @@ OTHER_MODULES = {
     "test_ownership.py": "what in an output folder is fusion's: publishing, recovery, refusals",
     "test_progress.py": "the progress display",
     "test_quoting.py": "file content quoted in messages",
+    "test_timings.py": "the bookkeeping of a run's step timings and their terminal line",
 }
 
 LIBRARIES = r"numpy|scipy|scikit-image|skimage|opencv|cv2"
