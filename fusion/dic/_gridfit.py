@@ -14,7 +14,7 @@ correlation of neighbours whose subsets overlap.
 from __future__ import annotations
 
 import numpy as np
-from numba import njit
+from numba import njit, prange
 from scipy import ndimage
 
 from ._subset_noise import overlap_correlation
@@ -51,14 +51,14 @@ def window_basis(half, order):
     return np.stack([cols ** p * (-rows) ** q for p, q in exponents(order)])
 
 
-@njit(cache=True)
+@njit(cache=True, parallel=True)
 def window_covariance(s, usable, half, rho, phi):
     """Per point, sum over window offsets k, l of s(k) s(l) rho(k - l) phi(k) phi(l)^T."""
     ny, nx = s.shape
     m = phi.shape[0]
     out = np.zeros((ny * nx, m, m))
-    vec = np.empty(m)
-    for i in range(ny):
+    for i in prange(ny):
+        vec = np.empty(m)
         for j in range(nx):
             idx = i * nx + j
             if not usable[idx]:
@@ -117,17 +117,34 @@ def _covariances(s, usable, interior, half, rho, phi):
 def _moments(img, half, order):
     """Correlations of ``img`` with every monomial of degree <= 2 order over the window."""
     k = np.arange(-half, half + 1, dtype=np.float64)
-    rows, cols = np.meshgrid(k, k, indexing="ij")
     out = {}
-    for p in range(2 * order + 1):
-        for q in range(2 * order + 1 - p):
-            out[p, q] = ndimage.correlate(img, cols ** p * (-rows) ** q, mode="constant").ravel()
+    # x^p y^q = cols^p (-rows)^q is separable: along the rows with (-rows)^q, then along the
+    # columns with cols^p (2 w taps per point instead of w^2)
+    for q in range(2 * order + 1):
+        down = ndimage.correlate1d(img, (-k) ** q, axis=0, mode="constant")
+        for p in range(2 * order + 1 - q):
+            out[p, q] = ndimage.correlate1d(down, k ** p, axis=1, mode="constant").ravel()
     return out
 
 
-def _inverse(a_mat, idx):
+def _inverse(a_mat, idx, complete=None):
     """Inverses of the normal matrices at ``idx`` (scaled to unit diagonal first); the indices
-    whose matrix is well conditioned and their inverses."""
+    whose matrix is well conditioned and their inverses.
+
+    ``complete`` (N,) bool: points whose window is complete. Their matrices are all the same
+    (sums of the same monomials over a whole window), so one of them is inverted for all.
+    """
+    if complete is not None:
+        full = complete[idx]
+        if full.any() and not full.all():
+            i_rest, inv_rest = _inverse(a_mat, idx[~full])
+            i_full, inv_full = _inverse(a_mat, idx[full])
+            return np.concatenate([i_full, i_rest]), np.concatenate([inv_full, inv_rest])
+        if full.all() and idx.size > 1:
+            one, inv = _inverse(a_mat, idx[:1])
+            if not one.size:
+                return one, inv
+            return idx, np.broadcast_to(inv, (idx.size,) + inv.shape[1:])
     a = a_mat[idx]
     d = np.sqrt(np.einsum("kii->ki", a))
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -209,7 +226,7 @@ def grid_fit(valid, ug, vg, *, window, order, min_valid, lag_rho, u_std=None, v_
         if k == 1 and order == 1:
             # an edge window too sparse (or too thin) for the quadratic keeps the plane
             cand = centre & (fit_order == 0) & (n >= need)
-        idx, inv = _inverse(a_mat[:, :m, :m], np.flatnonzero(cand))
+        idx, inv = _inverse(a_mat[:, :m, :m], np.flatnonzero(cand), complete)
         if not idx.size:
             continue
         c = np.einsum("kij,kjc->kic", inv, rhs[idx, :m, :])
@@ -232,7 +249,7 @@ def grid_fit(valid, ug, vg, *, window, order, min_valid, lag_rho, u_std=None, v_
             s = np.where(valid, np.where(np.isfinite(sd), sd, fill), 0.0)
             cov = _covariances(np.ascontiguousarray(s), usable, interior, h, lag_rho, phi)
             for d in (0, 1):
-                variances[:, d, comp] = np.einsum("ki,kij,kj->k", beta[:, d], cov, beta[:, d])
+                variances[:, d, comp] = np.einsum("ki,kij,kj->k", beta[:, d], cov, beta[:, d], optimize=True)
             # an edge fit extrapolates toward the edge: where its residual exceeds what the
             # noise explains (the field curves more than the polynomial follows), the
             # variance is scaled by that ratio (the Birge ratio squared)
@@ -268,7 +285,7 @@ def grid_fit(valid, ug, vg, *, window, order, min_valid, lag_rho, u_std=None, v_
             with np.errstate(invalid="ignore", divide="ignore"):
                 s2 = (pool_ssr / pool_dof).ravel()
             for d in (0, 1):
-                variances[:, d, comp] = s2 * np.einsum("ki,kij,kj->k", beta[:, d], cov1, beta[:, d])
+                variances[:, d, comp] = s2 * np.einsum("ki,kij,kj->k", beta[:, d], cov1, beta[:, d], optimize=True)
     variances[~usable] = np.nan
     return coef, variances, fit_order
 
