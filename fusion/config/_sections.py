@@ -367,7 +367,8 @@ class OutputSpec:
     figures: bool = key(_schema.boolean, "Write figures.", default=True)
     formats: tuple = key(_schema.list_of(_schema.choice("png", "pdf"), min_len=1), "Figure formats.",
                          default=("png",))
-    dpi: int = key(_schema.integer(low=50, high=1200), "Figure resolution.", default=300)
+    dpi: int = key(_schema.integer(low=50, high=1200), "Resolution of PNG figures, dots per inch: 150 "
+                   "suits a screen; 300 or more for print (or formats = [\"pdf\"]).", default=150)
     profile_line: tuple = key(_schema.list_of(_schema.point, min_len=2, max_len=2),
                               "Line [[x0, y0], [x1, y1]] in IR px for the profile figure.")
     report: bool = key(_schema.boolean, "Write report.html.", default=True)
