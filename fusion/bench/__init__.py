@@ -31,6 +31,7 @@ _BENCHES = {
     "lockin": ("fusion.bench._lockin", "bench_lockin"),
     "dic": ("fusion.bench._dic", "bench_dic"),
     "campaign": ("fusion.bench._campaign", "bench_campaign"),
+    "run_realistic": ("fusion.bench._realistic", "bench_realistic"),
 }
 
 _TARGETS = {
