@@ -54,6 +54,16 @@ def _parser() -> argparse.ArgumentParser:
                    help="Dask scheduler: tcp://HOST:PORT, 'processes', 'threads' or 'synchronous'")
     r.add_argument("--workers", type=_positive_int, metavar="N", help="runs processed at once")
 
+    w = sub.add_parser("watch", help="stay running and process each run as soon as its input files are "
+                                      "complete; refresh the report after each (Ctrl-C stops)")
+    w.add_argument("config", type=Path)
+    w.add_argument("--out", type=Path, help="output folder (default: [output] folder of the config)")
+    w.add_argument("--overwrite", action="store_true", help="replace results made from other inputs or settings")
+    w.add_argument("--settle", type=float, default=5.0, metavar="S",
+                   help="seconds a run's files must stay unchanged before it is processed (default 5)")
+    w.add_argument("--interval", type=float, default=1.0, metavar="S",
+                   help="seconds between two looks at the input files (default 1)")
+
     c = sub.add_parser("check", help="validate a config and its input files without processing")
     c.add_argument("config", type=Path)
 
@@ -115,6 +125,27 @@ def _cmd_run(args) -> int:
     return 0 if outcome.ok else 1
 
 
+def _cmd_watch(args) -> int:
+    import signal
+
+    from .campaign import watch_campaign
+
+    if not args.settle >= 0 or not args.interval > 0:
+        print("fusion: error: --settle must be >= 0 and --interval > 0 seconds", file=sys.stderr)
+        return 2
+
+    def _terminate(signum, frame):
+        raise KeyboardInterrupt   # SIGTERM stops like Ctrl-C: the run in progress is cleaned up
+
+    previous = signal.signal(signal.SIGTERM, _terminate)
+    try:
+        watch_campaign(args.config, out=args.out, settle=args.settle, interval=args.interval,
+                       overwrite=args.overwrite, emit=lambda line: print(line, flush=True))
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+    return 0
+
+
 def _cmd_check(args) -> int:
     from .campaign import check_campaign
 
@@ -159,7 +190,7 @@ def _cmd_bench(args) -> int:
     return 0
 
 
-_COMMANDS = {"run": _cmd_run, "check": _cmd_check, "plan": _cmd_plan, "gauge": _cmd_gauge, "demo": _cmd_demo,
+_COMMANDS = {"run": _cmd_run, "watch": _cmd_watch, "check": _cmd_check, "plan": _cmd_plan, "gauge": _cmd_gauge, "demo": _cmd_demo,
              "bench": _cmd_bench}
 
 

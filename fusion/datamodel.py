@@ -2,7 +2,7 @@
 
 One table defines the output data model of a run (the contract of
 ``result.nc``); :func:`result_dataset` builds an :class:`xarray.Dataset` from maps
-and stamps the attributes, and :func:`fusion.io.write_result` writes it.
+and stamps the attributes, and :func:`fusion.io.write_netcdf` writes it.
 The IR grid has dims ``(y, x)``: ``y`` is the IR pixel row (increasing
 downward, as the camera delivers it), ``x`` the IR pixel column. Strain
 components are always in the specimen frame (x right, y up).

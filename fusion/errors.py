@@ -7,7 +7,7 @@ only with ``--debug``.
 
 from __future__ import annotations
 
-__all__ = ["FusionError", "ConfigError", "InputError"]
+__all__ = ["FusionError", "ConfigError", "InputError", "ArgumentError"]
 
 
 class FusionError(Exception):
@@ -50,3 +50,24 @@ class InputError(FusionError, ValueError):
         self.path = str(path)
         self.message = message
         super().__init__(f"{self.path}: {message}")
+
+
+class ArgumentError(FusionError, ValueError):
+    """A value passed to a public function is outside what the argument can mean.
+
+    Raised at the door of the Python API where a value reads without error but would
+    give a confident, wrong answer (a length in millimetres where metres are expected,
+    strains in microstrain, an image axis order swapped).
+
+    Parameters
+    ----------
+    parameter : str
+        The argument's name, always named in the message.
+    message : str
+        What the value looks like and how to fix it.
+    """
+
+    def __init__(self, parameter: str, message: str):
+        self.parameter = parameter
+        self.message = message
+        super().__init__(f"{parameter}: {message}")

@@ -571,7 +571,7 @@ def test_public_api_is_pinned():
     # not a physics check: public-API guard in the manner of SciPy's test_public_api
     assert set(fd.__all__) == {
         "CALIBRATION_RANGE", "Diagnosis", "WHOLE_FIELD", "apply_calibration",
-        "calibration_factor", "diagnose", "region_mask", "region_table"}
+        "calibration_factor", "diagnose", "measured_ratio", "region_mask", "region_table"}
 
 
 def test_heat_model_is_named_only_where_no_layer_fits(rng):

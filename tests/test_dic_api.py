@@ -10,7 +10,8 @@ from fusion.bench._dic import bench_dic
 
 PUBLIC = {
     "CorrelationResult", "DicField", "REASON_CODES", "StrainRanges", "correlate",
-    "fourier_shift", "ranges_from_series", "ranges_from_states", "ranges_from_strain_table",
+    "fourier_shift", "ranges_from_displacement", "ranges_from_series", "ranges_from_states",
+    "ranges_from_strain_table",
     "ranges_from_time_series", "speckle_image", "strain_from_field", "vsg_size",
     "DEFAULT_STEP", "DEFAULT_SUBSET", "DEFAULT_WINDOW", "default_setting", "displacement_noise",
     "gain_wavelength", "recommend_setting", "setting_table", "strain_noise_factor",

@@ -210,7 +210,7 @@ def test_propagation_modes_and_seed_points_agree():
     moved = speckle_image((N, N), seed=8, displacement=disp)
     a = correlate(ref, moved, propagation="reliability", subset=SUBSET, step=STEP)
     b = correlate(ref, moved, propagation="seeded", subset=SUBSET, step=STEP)
-    c = correlate(ref, moved, seed_points=[(128, 128)], subset=SUBSET, step=STEP)
+    c = correlate(ref, moved, seeds=[(128, 128)], subset=SUBSET, step=STEP)
     for other in (b, c):
         assert np.array_equal(a.valid, other.valid)
         # both stop within the tolerance (1e-4 px) of the same optimum
@@ -240,13 +240,13 @@ def test_region_of_interest_rectangle_and_mask(reference8):
     # Exact Fourier-space translation ([Reu2011]): the shift built in is the reference, also for
     # subsets cut by the mask.
     moved = speckle_image((N, N), seed=11, bits=8, displacement=(0.25, 0.4))
-    res = correlate(reference8, moved, roi=(40, 60, 200, 180), subset=SUBSET, step=STEP)
+    res = correlate(reference8, moved, region=(60, 40, 180, 200), subset=SUBSET, step=STEP)
     assert res.rows.min() >= 40 + 10 and res.rows.max() <= 200 - 1 - 10
     assert res.cols.min() >= 60 + 10 and res.cols.max() <= 180 - 1 - 10
     assert res.valid.all()
     rr, cc = np.mgrid[0:N, 0:N]
     mask = (rr - 128) ** 2 + (cc - 128) ** 2 > 40 ** 2
-    res = correlate(reference8, moved, roi=mask, subset=SUBSET, step=STEP)
+    res = correlate(reference8, moved, region=mask, subset=SUBSET, step=STEP)
     inside = (res.rows - 128) ** 2 + (res.cols - 128) ** 2 <= 40 ** 2
     assert np.all(res.reason[inside] == K.OUTSIDE_ROI)
     assert np.all(np.isnan(res.u[inside]))
@@ -298,15 +298,15 @@ def test_to_field_converts_to_the_specimen_frame(reference8):
     (dict(subset=5), "subset"),
     (dict(step=0), "step"),
     (dict(propagation="fast"), "propagation"),
-    (dict(roi=(10, 10, 5, 5)), "roi"),
-    (dict(roi=np.zeros((N, N), dtype=bool)), "no pixel"),
-    (dict(roi=np.ones((N, N))), "bool"),
+    (dict(region=(10, 10, 5, 5)), "region"),
+    (dict(region=np.zeros((N, N), dtype=bool)), "no pixel"),
+    (dict(region=np.full((N, N), 0.5)), "0/255"),
     (dict(tolerance=0.0), "tolerance"),
-    (dict(seed_points=[(-500, -500)]), "seed_points"),
+    (dict(seeds=[(-500, -500)]), "seeds"),
 ])
 def test_bad_arguments(reference8, kwargs, match):
-    if "seed_points" in kwargs:
-        kwargs["roi"] = (100, 100, 200, 200)
+    if "seeds" in kwargs:
+        kwargs["region"] = (100, 100, 200, 200)
     with pytest.raises((ValueError, TypeError), match=match):
         correlate(reference8, reference8, **kwargs)
 

@@ -78,7 +78,7 @@ def hole(request):
     rows, cols = np.mgrid[0:n, 0:n]
     rad = np.hypot(rows - c0, cols - c0)
     mask = (rad > a) & (rad < a + MARGIN)
-    res = correlate(ref, moved, roi=mask)
+    res = correlate(ref, moved, region=mask)
     field = res.to_field()
     zero = res.to_field()
     zero.u[:] = 0.0

@@ -111,6 +111,26 @@ def test_series_slope_matches_scipy_linregress(rng):
     assert clean.attrs["load_range"] == 8.0
 
 
+def test_series_fit_scatter_is_the_residual_std_of_the_state_strains(rng):
+    # The reported scatter of the slope fit is, per point, the residual standard deviation of
+    # a straight line through the state strains (K - 2 degrees of freedom), computed here
+    # with scipy.stats.linregress on each point's states; the field's median is reported.
+    loads = np.array([0.0, 2.0, 4.0, 6.0, 8.0])
+    fields = [_field(L, rng, 3e-4) for L in loads]
+    r = ranges_from_series(fields, loads, load_range=8.0)
+    per_state = np.array([strain_from_field(f)[0] for f in fields])
+    sd = []
+    for k in np.flatnonzero(r.valid):
+        fit = stats.linregress(loads, per_state[:, k])
+        resid = per_state[:, k] - (fit.intercept + fit.slope * loads)
+        sd.append(np.sqrt(np.sum(resid ** 2) / (loads.size - 2)))
+    assert r.attrs["fit_scatter_exx"] == pytest.approx(np.median(sd), rel=1e-9)
+    assert r.attrs["states"] == 5
+    # a linear response without noise has no scatter
+    clean = ranges_from_series([_field(L) for L in loads], loads, load_range=8.0)
+    assert clean.attrs["fit_scatter_eyy"] < 1e-12
+
+
 def _cyclic_fields(rng, times, freq, delta, lag_deg, phase0, sigma, drift=0.0):
     theta = 2 * np.pi * freq * times + phase0
     # strain response delayed by lag: (delta/2) cos(theta - lag); load (dL/2) cos(theta)

@@ -116,8 +116,9 @@ def test_a_circle_hidden_inside_a_function_is_found(tmp_path):
 
 
 @pytest.mark.parametrize("layer, below", [
-    ("fusion.run", ("fusion.campaign", "fusion.cli", "fusion.demo")),
-    ("fusion.campaign", ("fusion.cli", "fusion.demo")),
+    ("fusion.run", ("fusion.api", "fusion.campaign", "fusion.cli", "fusion.demo")),
+    ("fusion.campaign", ("fusion.api", "fusion.cli", "fusion.demo")),
+    ("fusion.api", ("fusion.campaign", "fusion.cli", "fusion.demo")),
 ])
 def test_composition_layers_import_downward_only(layer, below):
     graph = import_graph(_modules())

@@ -11,6 +11,7 @@ import errno
 import json
 import os
 import subprocess
+import time
 import sys
 import textwrap
 from pathlib import Path
@@ -96,9 +97,19 @@ def test_start_up_removes_only_our_leftovers_whose_process_is_gone(tmp_path):
     (outside / "keep.txt").write_text("mine")
     link = _own_leftover(out, "R3", "partial", pid=dead)
     link.symlink_to(outside, target_is_directory=True)
+    # a worker that has ended but whose parent has not collected it yet (a zombie) is gone too
+    zombie = subprocess.Popen([sys.executable, "-c", "pass"])
+    deadline = time.monotonic() + 10
+    while Path(f"/proc/{zombie.pid}/stat").read_bytes().rsplit(b")", 1)[1].split()[0] != b"Z":
+        assert time.monotonic() < deadline
+        time.sleep(0.02)
+    of_zombie = _own_leftover(out, "R4", "partial", pid=zombie.pid)
+    of_zombie.mkdir()
     with campaign_lock(out):
         pass
+    zombie.wait()
     left = {p.name for p in out.iterdir()}
+    assert of_zombie.name not in left
     assert mine_dead.name not in left and tmp_dead.name not in left and link.name not in left
     assert {alive.name, other_host.name} <= left
     assert set(user) <= left

@@ -78,6 +78,11 @@ def test_four_point_homography_is_an_exact_fit_without_a_number(tmp_path):
     assert "warning (registration_exact_fit): registration error not estimable (exact fit)" in _terminal(summary)
     assert "not estimable (exact fit)" in _html(summary, tmp_path)
     assert np.isnan(result.dataset.attrs["registration_rms"])
+    # runs sharing the control points share the warning: the terminal says it once, not per run
+    both = CampaignOutcome(out=rc.ROOT, runs=[RunOutcome("R", "done", summary=summary),
+                                              RunOutcome("S", "done", summary=summary)]).describe()
+    assert both.count("registration error not estimable") == 1
+    assert "warning (registration_exact_fit) in every run:" in both
 
 
 def _independent_loo(src, dst, k):

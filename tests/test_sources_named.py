@@ -50,6 +50,7 @@ PHYSICS_MODULES = frozenset({
     "test_demo.py", "test_end_to_end.py",                                       # whole runs
     "test_input_units.py", "test_frequency_from_load.py", "test_stack_sanity.py",  # input checks
     "test_correlation_inputs.py", "test_sweep_statistic.py",
+    "test_api_conventions.py",                                                  # the Python API's rules
 })
 
 OTHER_MODULES = {
@@ -60,6 +61,8 @@ OTHER_MODULES = {
     "test_hostile_readers.py": "broken and hostile input files",
     "test_hostile_pipeline.py": "failures inside a campaign: exit codes, nothing half-written",
     "test_frames_io.py": "frame-stack readers",
+    "test_sequences.py": "frame and image sequences: readers, order, cache, load logs; one run compared "
+                         "across formats (its lock-in amplitude against the test's own forward model)",
     "test_dic_io.py": "correlation-field readers and their sign conventions",
     "test_cli.py": "argv and exit codes",
     "test_summary.py": "summary.json contents and schema",
@@ -67,6 +70,7 @@ OTHER_MODULES = {
     "test_report_figures.py": "figures and their file formats",
     "test_report_browser.py": "the report in a headless browser",
     "test_resume.py": "skip, resume and overwrite of runs",
+    "test_watch.py": "fusion watch: completion, settling, config reloads, kill and restart, memory",
     "test_workers.py": "local worker processes",
     "test_campaign_dask.py": "dask.distributed scheduling",
     "test_memory_budget.py": "memory use of the streaming passes",
@@ -77,6 +81,9 @@ OTHER_MODULES = {
     "test_progress.py": "the progress display",
     "test_quoting.py": "file content quoted in messages",
     "test_timings.py": "the bookkeeping of a run's step timings and their terminal line",
+    "test_api_rebuild.py": "the Python API's steps against the command line's result.nc (two code paths)",
+    "test_api_door.py": "error text of the plausibility checks at the Python API's door",
+    "test_docs.py": "the API reference, docstring references, README example and package data",
 }
 
 LIBRARIES = r"numpy|scipy|scikit-image|skimage|opencv|cv2"

@@ -80,7 +80,7 @@ def core():
     ref, moved = (read_image(p) for p in dic.images)
     mask = read_image(dic.mask) > 0
     t = time.perf_counter()
-    res = correlate(ref, moved, subset=dic.subset, step=dic.step, roi=mask)
+    res = correlate(ref, moved, subset=dic.subset, step=dic.step, region=mask)
     return t_lockin, time.perf_counter() - t, int(np.size(res.u))
 
 print(json.dumps({"imports": imports}), flush=True)

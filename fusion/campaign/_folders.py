@@ -157,7 +157,16 @@ def _process_gone(host: str, pid: int) -> bool:
         return True
     except PermissionError:   # alive, someone else's
         return False
-    return False
+    return _zombie(pid)
+
+
+def _zombie(pid: int) -> bool:
+    """A process that has ended but whose parent has not collected it yet (Linux: state Z)."""
+    try:
+        with open(f"/proc/{pid}/stat", "rb") as fh:
+            return fh.read().rsplit(b")", 1)[1].split()[0] == b"Z"
+    except (OSError, IndexError):
+        return False
 
 
 def _remove(path: Path) -> None:

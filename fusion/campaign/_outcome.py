@@ -58,6 +58,7 @@ class CampaignOutcome:
 
     def describe(self) -> str:
         lines = []
+        shared = self._shared_warnings()
         for r in self.runs:
             if r.status == "failed":
                 lines.append(f"  FAILED  {r.name}: {r.error}")
@@ -71,7 +72,9 @@ class CampaignOutcome:
                     lines.append(f"          time: {steps}")
                 # registration warnings change what the verdict means: shown here, not only in the report
                 lines += [f"          warning ({w['code']}): {w['message']}"
-                          for w in (r.summary or {}).get("warnings", ()) if w["code"].startswith("registration")]
+                          for w in _registration_warnings(r) if (w["code"], w["message"]) not in shared]
+        # a warning every finished run shares (the same control points, say) is said once
+        lines += [f"  warning ({code}) in every run: {message}" for code, message in shared]
         for e in self.campaign_errors:
             lines.append(f"  FAILED  campaign: {e}")
         n_fail = sum(r.status == "failed" for r in self.runs)
@@ -83,3 +86,15 @@ class CampaignOutcome:
         if self.report:
             lines.append(f"  report: {self.report}")
         return "\n".join(lines)
+
+    def _shared_warnings(self) -> list:
+        done = [r for r in self.runs if r.status == "done"]
+        if len(done) < 2:
+            return []
+        sets = [{(w["code"], w["message"]) for w in _registration_warnings(r)} for r in done]
+        return sorted(set.intersection(*sets))
+
+
+def _registration_warnings(outcome):
+    # registration warnings change what the verdict means: shown in the terminal, not only the report
+    return [w for w in (outcome.summary or {}).get("warnings", ()) if w["code"].startswith("registration")]

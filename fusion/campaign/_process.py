@@ -11,7 +11,7 @@ from .._timing import Timings, step
 from ..config import Config, load_config
 from ..errors import ConfigError, FusionError, InputError
 from ..io import make_temp_folder, safe_child
-from ..run import compute_run, input_files, write_run
+from ..run import compute_run, input_digests, write_run
 from ._folders import is_marked_folder, mark_folder, publish, refuse_foreign
 from ._outcome import RunOutcome
 from ._provenance import DigestCache, read_stamp, read_summary, run_stamp
@@ -47,7 +47,7 @@ def _process(config_path, run_name, out, *, overwrite, progress, config, t0) -> 
         with step("input digests"):
             stamp = run_stamp(cfg, run, digests=digests)
             # the provenance of the result: the digests the stamp was made from (no second read)
-            inputs = {str(p): digests.digest(p) for p in input_files(run)}
+            inputs = input_digests(run, digest=digests.digest)
         if ours and not overwrite:
             if read_stamp(folder) == stamp:
                 return RunOutcome(run.name, "skipped", folder, seconds=time.perf_counter() - t0,

@@ -26,6 +26,7 @@ from .. import __version__
 from ..config import Config, RunSpec
 from ..errors import InputError
 from ..io import atomic_write_text, content_digest
+from ..run import sequence_files
 
 log = logging.getLogger(__name__)
 
@@ -163,6 +164,10 @@ def run_stamp(cfg: Config, run: RunSpec, *, digests: DigestCache | None = None) 
         "output": _canonical((cfg.output.figures, cfg.output.formats, cfg.output.dpi, cfg.output.profile_line),
                              cache),
     }
+    members = sequence_files(run)
+    if members:
+        # a folder or pattern of frames or images: every member by its name and content
+        parts["sequences"] = [[p.name, cache.digest(p)] for p in members]
     return hashlib.sha256(json.dumps(parts, sort_keys=True).encode()).hexdigest()
 
 

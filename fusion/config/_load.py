@@ -43,6 +43,12 @@ class Config:
     plan: PlanSpec
     material_sources: dict = dataclasses.field(default_factory=dict)
 
+    def __repr__(self) -> str:
+        # the whole text and every table would fill a screen: name what the config holds
+        return (f"Config(path={str(self.path)!r}, runs={[r.name for r in self.runs]!r}, "
+                f"laminates={sorted(self.laminates)!r}, materials={sorted(self.materials)!r}, "
+                f"sha256={self.sha256[:12]!r}...)")
+
     @property
     def sha256(self) -> str:
         """SHA-256 of the config text (provenance)."""

@@ -64,7 +64,9 @@ class LaminateSpec:
 class ThermalSpec:
     """Infrared input of a run: exactly one of ``frames`` (raw stack) or ``maps`` (precomputed)."""
 
-    frames: Path = key(_schema.path, "Frame stack (frame, row, col): .npy, .raw/.bin, .tif, .h5, .nc.")
+    frames: Path = key(_schema.path, "Frame stack (frame, row, col): .npy, .raw/.bin, .tif, .h5, .nc; or a "
+                       "folder or glob pattern (\"ir/run3/*.tif\") of one file per frame: TIFF, PNG, "
+                       ".npy or CSV/TXT grids, ordered by the number in their names.")
     maps: Path = key(_schema.path, "Precomputed maps (NetCDF/TIFF/CSV) with T0 and delta_T (or magnitude "
                      "and phase); see \"Input files\" above.")
     delta_T_convention: str = key(_schema.choice("peak-to-peak", "amplitude"), "What the maps' delta_T (and "
@@ -75,7 +77,20 @@ class ThermalSpec:
                           "file's variable or column names, e.g. { delta_T = \"dT\" }; for a TIFF the page "
                           "order as a list.")
     frame_rate: float = key(_schema.quantity("Hz", positive=True), "Camera frame rate.", unit="Hz")
-    times: Path = key(_schema.path, "Optional file of frame times in s (.npy or one-column CSV).")
+    times: Path = key(_schema.path, "Optional frame times: .npy, one time per line, or a table with a time "
+                      "column and a file (name) or index (number in the name) column for sequences.")
+    times_columns: dict = key(_schema.mapping_of_strings, "Map our column names of the times table (file, "
+                              "index, time) to its header names.")
+    name_time: str = key(_schema.string(), "Regular expression whose first group is the frame time in each "
+                         "file name of a sequence, e.g. '_t([0-9.]+)ms'.")
+    time_unit: float = key(_schema.quantity("s", positive=True), "Unit of the times in the times table and "
+                           "the file names (\"1 ms\").", unit="s", default=1.0)
+    frame_count: int = key(_schema.integer(low=1), "Frames expected: a sequence or stack with another count "
+                           "is refused, and `fusion watch` waits for this many files.")
+    done_marker: Path = key(_schema.path, "File whose appearance says the frame sequence is complete "
+                            "(`fusion watch` waits for it).")
+    decimal: str = key(_schema.choice(".", ","), "Decimal separator of text grids and the times table.",
+                       default=".")
     load: Path = key(_schema.path, "Load signal CSV (columns time, load), per frame or on its own clock.")
     time_column: str = key(_schema.string(), "Name of the time column of the load file.", default="time")
     load_column: str = key(_schema.string(), "Name of the load column of the load file.", default="load")
@@ -112,7 +127,8 @@ class ThermalSpec:
             if unknown:
                 raise ConfigError(f"{prefix}.variables.{unknown[0]}", f"unknown quantity; expected some of "
                                   f"{', '.join(MAP_QUANTITIES)}", source=ctx.source)
-        if self.frames is not None and self.frame_rate is None and self.times is None and self.load is None:
+        if (self.frames is not None and self.frame_rate is None and self.times is None and self.load is None
+                and self.name_time is None):
             raise ConfigError(f"{prefix}.frame_rate", "is required with 'frames' (or give 'times', "
                               "or a load file whose time column matches the frames)", source=ctx.source)
 
@@ -126,9 +142,22 @@ class DicSpec:
                         "Displacement fields at minimum and maximum load (columns x, y, u, v).")
     series: tuple = key(_schema.list_of(_schema.path, min_len=3),
                         "Displacement fields at several loads (with 'loads'): slope fit.")
-    images: tuple = key(_schema.list_of(_schema.path, min_len=2),
-                        "Speckle images: the reference (minimum load) first, then loaded states.")
-    loads: tuple = key(_schema.list_of(_schema.quantity("N")), "Load of each state, series entry or image.", unit="N")
+    images: tuple = key(_schema.either(_schema.list_of(_schema.path, min_len=2), _schema.path),
+                        "Speckle images: a list (the reference first, then loaded states), or a folder "
+                        "or glob pattern of TIFF/PNG images ordered by the number in their names.")
+    loads: tuple = key(_schema.list_of(_schema.quantity("N")), "Load of each state, series entry or image (in "
+                       "name order for an image folder).", unit="N")
+    load_log: Path = key(_schema.path, "Log of the load at each image of a folder or pattern: columns image "
+                         "(file name) or index (number in the name), load, optional time.")
+    load_log_columns: dict = key(_schema.mapping_of_strings, "Map our column names of the load log (image, "
+                                 "index, load, time) to its header names.")
+    reference: str = key(_schema.string(), "File name of the reference image (default: the first listed, or "
+                         "for a folder the image at minimum load).")
+    image_count: int = key(_schema.integer(low=2), "Images expected in the folder: another count is refused, "
+                           "and `fusion watch` waits for this many.")
+    done_marker: Path = key(_schema.path, "File whose appearance says the image sequence is complete "
+                            "(`fusion watch` waits for it).")
+    decimal: str = key(_schema.choice(".", ","), "Decimal separator of the load log.", default=".")
     coordinates: str = key(_schema.choice("mm", "px"), "Units of the x, y columns.", default="mm")
     y_axis: str = key(_schema.choice("up", "down"), "Direction of the file's y axis (default: up for mm, "
                       "down for px).")
@@ -158,15 +187,32 @@ class DicSpec:
         if len(given) != 1:
             raise ConfigError(prefix, "expected exactly one of 'strain_ranges', 'states', 'series' or "
                               f"'images', got {given or 'none'}", source=ctx.source)
-        n = {"states": 2, "series": len(self.series or ()), "images": len(self.images or ())}.get(given[0])
-        if given[0] == "states" and self.loads is not None and len(self.loads) != 2:
-            raise ConfigError(f"{prefix}.loads", "expected 2 loads, one per entry of 'states' (minimum and "
-                              "maximum)", source=ctx.source)
-        if given[0] in ("series", "images") and (self.loads is None or len(self.loads) != n):
-            raise ConfigError(f"{prefix}.loads", f"expected {n} loads, one per entry of '{given[0]}'",
-                              source=ctx.source)
+        if self.image_sequence:
+            if (self.loads is None) == (self.load_log is None):
+                raise ConfigError(f"{prefix}.load_log", "an image folder or pattern needs its loads: a "
+                                  "load_log, or loads in name order (one of the two)", source=ctx.source)
+            if self.loads is not None and self.image_count is not None and len(self.loads) != self.image_count:
+                raise ConfigError(f"{prefix}.loads", f"expected {self.image_count} loads (image_count)",
+                                  source=ctx.source)
+        else:
+            n = {"states": 2, "series": len(self.series or ()), "images": len(self.images or ())}.get(given[0])
+            if given[0] == "states" and self.loads is not None and len(self.loads) != 2:
+                raise ConfigError(f"{prefix}.loads", "expected 2 loads, one per entry of 'states' (minimum and "
+                                  "maximum)", source=ctx.source)
+            if given[0] in ("series", "images") and (self.loads is None or len(self.loads) != n):
+                raise ConfigError(f"{prefix}.loads", f"expected {n} loads, one per entry of '{given[0]}'",
+                                  source=ctx.source)
+            extra = [k for k in ("load_log", "image_count", "done_marker") if getattr(self, k) is not None]
+            if extra:
+                raise ConfigError(f"{prefix}.{extra[0]}", "applies to images given as a folder or pattern",
+                                  source=ctx.source)
         if self.loads is not None and len(set(self.loads)) < 2:
             raise ConfigError(f"{prefix}.loads", "expected at least two different loads", source=ctx.source)
+
+    @property
+    def image_sequence(self) -> bool:
+        """True when ``images`` names a folder or pattern (resolved when the run is processed)."""
+        return isinstance(self.images, Path)
 
     @property
     def effective_y_axis(self) -> str:

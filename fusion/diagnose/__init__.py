@@ -6,6 +6,9 @@ laminate, through-thickness heat model) and theirs.
 
 Public names
 ------------
+measured_ratio
+    The measured ratio dT/T0, its noise, the signal-to-noise ratio and the phase lag from
+    lock-in maps, in the convention :func:`diagnose` expects.
 diagnose, Diagnosis
     Per-pixel residuals and z-scores, source map (CF flags), source probabilities,
     surface fraction and area fractions.
@@ -21,9 +24,10 @@ material properties behind each prediction.
 
 from ._calibration import CALIBRATION_RANGE, apply_calibration, calibration_factor
 from ._map import Diagnosis, diagnose
+from ._measured import measured_ratio
 from ._regions import WHOLE_FIELD, region_mask, region_table
 
 __all__ = [
     "CALIBRATION_RANGE", "Diagnosis", "WHOLE_FIELD", "apply_calibration", "calibration_factor",
-    "diagnose", "region_mask", "region_table",
+    "diagnose", "measured_ratio", "region_mask", "region_table",
 ]

@@ -7,6 +7,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .._conventions import short_repr
 from ..datamodel import EXTRA_FLAGS, SOURCES, source_flags
 
 __all__ = ["Diagnosis", "diagnose"]
@@ -68,6 +69,8 @@ class Diagnosis:
     settings : dict
         ``fit_threshold``, ``distinguish``, ``lag_std_floor`` used (for provenance).
     """
+
+    __repr__ = short_repr  # shapes, not values
 
     sources: tuple
     residual: dict

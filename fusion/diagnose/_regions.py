@@ -7,6 +7,8 @@ from numbers import Real
 
 import numpy as np
 
+from .._conventions import as_mask
+
 from ._map import NO_DATA, Diagnosis
 
 __all__ = ["region_mask", "region_table", "WHOLE_FIELD"]
@@ -36,7 +38,8 @@ def region_mask(shape, *, rect=None, circle=None, mask=None):
         strictly inside the circle (the convention of ``skimage.draw.disk``). The circle
         must lie inside the frame (pixel ``i`` spans ``i - 0.5`` to ``i + 0.5``).
     mask : (Y, X) bool ndarray, optional
-        An explicit mask (0/1 integers are accepted).
+        An explicit mask (numbers holding only 0/1 or 0/255 are accepted, as
+        :func:`fusion.io.read_image` returns a painted mask).
 
     Returns
     -------
@@ -94,12 +97,7 @@ def region_mask(shape, *, rect=None, circle=None, mask=None):
             raise ValueError(f"circle {tuple(circle)!r} is empty: no pixel centre lies inside it")
         return out
 
-    arr = np.asarray(mask)
-    if arr.dtype != bool:
-        if arr.dtype.kind in "iu" and np.all((arr == 0) | (arr == 1)):
-            arr = arr.astype(bool)
-        else:
-            raise ValueError(f"mask: expected a boolean (or 0/1) array, got dtype {arr.dtype!r}")
+    arr = as_mask(mask, "mask")
     if arr.shape != (ny, nx):
         raise ValueError(f"mask: shape {arr.shape!r} does not match the IR grid {(ny, nx)!r}")
     if not arr.any():

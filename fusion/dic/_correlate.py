@@ -9,6 +9,8 @@ from numbers import Integral, Real
 import numpy as np
 from numba import njit
 
+from .._bounds import check_pixel_size
+from .._conventions import as_mask, renamed_keyword, short_repr
 from .._progress import Progress
 from . import _icgn
 from ._field import DicField
@@ -65,6 +67,8 @@ class CorrelationResult:
         for it).
     """
 
+    __repr__ = short_repr  # shapes, not values
+
     rows: np.ndarray
     cols: np.ndarray
     u: np.ndarray
@@ -94,7 +98,9 @@ class CorrelationResult:
         Parameters
         ----------
         pixel_size : float, optional
-            Scale in mm per pixel; the field is then in mm, else in px.
+            Scale in mm of specimen per image pixel; the field is then in mm, else in
+            px. A value in metres (1e-4 for 0.1 mm) is refused
+            (:class:`~fusion.errors.ArgumentError`).
 
         Returns
         -------
@@ -112,6 +118,7 @@ class CorrelationResult:
                     or not (math.isfinite(pixel_size) and pixel_size > 0):
                 raise ValueError(f"pixel_size: expected a positive scale in mm per pixel, "
                                  f"got {pixel_size!r}")
+            check_pixel_size(pixel_size, "pixel_size")
             scale, units = float(pixel_size), "mm"
         attrs = dict(self.attrs)
         attrs.update(pixel_size=None if pixel_size is None else scale, source="fusion.dic.correlate",
@@ -143,27 +150,48 @@ def _positive_int(name, value, low):
     return int(value)
 
 
-def _roi_mask(roi, shape):
+def _region_mask(region, shape):
+    """The mask of ``region``: None (everything), a mask, or (x0, y0, x1, y1) in (col, row) px."""
     h, w = shape
-    if roi is None:
+    if region is None:
         return np.ones(shape, dtype=bool)
-    arr = np.asarray(roi)
+    arr = np.asarray(region)
     if arr.ndim == 2:
-        if arr.shape != shape:
-            raise ValueError(f"roi: a mask must have the image shape {shape!r}, got {arr.shape!r}")
-        if arr.dtype != bool:
-            raise TypeError(f"roi: a mask must be a bool array, got dtype {arr.dtype!r}")
-        return arr.copy()
+        return as_mask(arr, "region", shape=shape)
     try:
-        r0, c0, r1, c1 = (int(x) for x in roi)
+        c0, r0, c1, r1 = (int(x) for x in region)
     except (TypeError, ValueError):
-        raise ValueError(f"roi: expected (row0, col0, row1, col1) or a bool mask, got {roi!r}") from None
+        raise ValueError(f"region: expected (x0, y0, x1, y1) in (column, row) px or a mask, got "
+                         f"{region!r}") from None
     if not (0 <= r0 < r1 <= h and 0 <= c0 < c1 <= w):
-        raise ValueError(f"roi: {roi!r} is not a non-empty rectangle inside the image {shape!r} "
-                         "(rows row0..row1-1, columns col0..col1-1)")
+        raise ValueError(f"region: {region!r} is not a non-empty rectangle inside the image of {h} rows "
+                         f"and {w} columns (columns x0..x1-1, rows y0..y1-1)")
     mask = np.zeros(shape, dtype=bool)
     mask[r0:r1, c0:c1] = True
     return mask
+
+
+def _old_spellings(roi, seed_points, region, seeds):
+    """``roi`` (row0, col0, row1, col1) and ``seed_points`` (row, col) as the new keywords."""
+    if roi is not None:
+        if region is not None:
+            raise TypeError("give region= only (roi= is its deprecated spelling)")
+        renamed_keyword("roi", "region", "a rectangle is (x0, y0, x1, y1): columns first", stacklevel=4)
+        arr = np.asarray(roi)
+        if arr.ndim == 2:
+            region = arr
+        else:
+            try:
+                r0, c0, r1, c1 = (int(x) for x in roi)
+            except (TypeError, ValueError):
+                raise ValueError(f"roi: expected (row0, col0, row1, col1) or a mask, got {roi!r}") from None
+            region = (c0, r0, c1, r1)
+    if seed_points is not None:
+        if seeds is not None:
+            raise TypeError("give seeds= only (seed_points= is its deprecated spelling)")
+        renamed_keyword("seed_points", "seeds", "points are (x, y) = (column, row)", stacklevel=4)
+        seeds = np.asarray(seed_points, dtype=np.float64).reshape(-1, 2)[:, ::-1]
+    return region, seeds
 
 
 @njit(cache=True)
@@ -332,10 +360,9 @@ def _seed_candidates(status, count):
     return picks[todo]
 
 
-def correlate(reference, deformed, *, subset=DEFAULT_SUBSET, step=DEFAULT_STEP, roi=None,
-              seed_points=None,
-              max_iterations=50, tolerance=1e-4, min_zncc=0.8, propagation="reliability",
-              search=None, min_fill=0.6, progress=False):
+def correlate(reference, deformed, *, subset=DEFAULT_SUBSET, step=DEFAULT_STEP, region=None,
+              seeds=None, max_iterations=50, tolerance=1e-4, min_zncc=0.8, propagation="reliability",
+              search=None, min_fill=0.6, progress=False, roi=None, seed_points=None):
     """Displacements between two speckle images by subset correlation.
 
     Parameters
@@ -349,12 +376,15 @@ def correlate(reference, deformed, *, subset=DEFAULT_SUBSET, step=DEFAULT_STEP, 
         strain window of 7 points this resolves a hole of 60 px radius with a
         gain of 0.9 at typical image noise, and puts points within 6 px of
         every edge (:func:`fusion.dic.default_setting`).
-    roi : (row0, col0, row1, col1) or (H, W) bool ndarray, optional
-        Rectangle (rows row0..row1-1, columns col0..col1-1) or mask of the
-        region of interest. Subset centres lie on a grid over its bounding box
-        shrunk by half a subset; reference pixels outside the mask are left out
-        of a subset, and a subset needs ``min_fill`` of its pixels inside.
-    seed_points : (K, 2) array_like of (row, col), optional
+    region : (x0, y0, x1, y1) or (H, W) mask, optional
+        Region of interest: a rectangle of columns x0..x1-1 and rows y0..y1-1
+        (px, (x, y) = (column, row) order as everywhere in the package), or a
+        mask (bool, or numbers holding only 0/1 or 0/255, as
+        :func:`fusion.io.read_image` returns a painted mask). Subset centres lie
+        on a grid over its bounding box shrunk by half a subset; reference
+        pixels outside the mask are left out of a subset, and a subset needs
+        ``min_fill`` of its pixels inside.
+    seeds : (K, 2) array_like of (x, y) = (column, row) px, optional
         Where to start (the nearest grid points); default: points spread over
         the grid.
     max_iterations : int
@@ -380,6 +410,10 @@ def correlate(reference, deformed, *, subset=DEFAULT_SUBSET, step=DEFAULT_STEP, 
     progress : bool
         Points solved so far: a bar on stderr when it is a terminal, else a line at
         every quarter.
+    roi, seed_points
+        Deprecated spellings of ``region`` (as ``(row0, col0, row1, col1)``) and
+        ``seeds`` (as ``(row, col)``); they warn and are removed in the next
+        release.
 
     Returns
     -------
@@ -438,6 +472,7 @@ def correlate(reference, deformed, *, subset=DEFAULT_SUBSET, step=DEFAULT_STEP, 
     selection in digital image correlation for speckle patterns", Optics
     Express 16(10) (2008) 7037-7048.
     """
+    region, seeds = _old_spellings(roi, seed_points, region, seeds)
     ref = _as_image("reference", reference)
     dfm = _as_image("deformed", deformed)
     if ref.shape != dfm.shape:
@@ -456,15 +491,15 @@ def correlate(reference, deformed, *, subset=DEFAULT_SUBSET, step=DEFAULT_STEP, 
     half = subset // 2
     search = max(subset, 16) if search is None else _positive_int("search", search, 1)
     h, w = ref.shape
-    mask = _roi_mask(roi, ref.shape)
+    mask = _region_mask(region, ref.shape)
     if not mask.any():
-        raise ValueError("roi: the mask selects no pixel")
+        raise ValueError("region: the mask selects no pixel")
     rr = np.flatnonzero(mask.any(axis=1))
     cc = np.flatnonzero(mask.any(axis=0))
     lo_r, hi_r = max(rr[0] + half, half + 2), min(rr[-1] - half, h - half - 4)
     lo_c, hi_c = max(cc[0] + half, half + 2), min(cc[-1] - half, w - half - 4)
     if lo_r > hi_r or lo_c > hi_c:
-        raise ValueError(f"roi: the region (or image {ref.shape!r}) is too small for subset {subset}")
+        raise ValueError(f"region: the region (or image {ref.shape!r}) is too small for subset {subset}")
     rows, cols = np.meshgrid(np.arange(lo_r, hi_r + 1, step), np.arange(lo_c, hi_c + 1, step),
                              indexing="ij")
     opts = dict(max_iterations=max_iterations, tolerance=float(tolerance),
@@ -473,23 +508,23 @@ def correlate(reference, deformed, *, subset=DEFAULT_SUBSET, step=DEFAULT_STEP, 
     centre = global_shift(ref, dfm, (rr[0], cc[0], rr[-1] + 1, cc[-1] + 1))
     ny, nx = rows.shape
 
-    if seed_points is not None:
-        sp = np.asarray(seed_points, dtype=np.float64).reshape(-1, 2)
-        si = np.clip(np.rint((sp[:, 0] - lo_r) / step), 0, ny - 1).astype(np.int64)
-        sj = np.clip(np.rint((sp[:, 1] - lo_c) / step), 0, nx - 1).astype(np.int64)
-        near = (np.abs(rows[si, sj] - sp[:, 0]) <= step) & (np.abs(cols[si, sj] - sp[:, 1]) <= step)
-        seeds = np.unique(si[near] * nx + sj[near])
-        seeds = seeds[solver.status.ravel()[seeds] == _TODO]
-        if seeds.size == 0:
-            raise ValueError(f"seed_points: none of {seed_points!r} lies on a grid point "
+    if seeds is not None:
+        sp = np.asarray(seeds, dtype=np.float64).reshape(-1, 2)      # (x, y) = (col, row)
+        si = np.clip(np.rint((sp[:, 1] - lo_r) / step), 0, ny - 1).astype(np.int64)
+        sj = np.clip(np.rint((sp[:, 0] - lo_c) / step), 0, nx - 1).astype(np.int64)
+        near = (np.abs(rows[si, sj] - sp[:, 1]) <= step) & (np.abs(cols[si, sj] - sp[:, 0]) <= step)
+        picked = np.unique(si[near] * nx + sj[near])
+        picked = picked[solver.status.ravel()[picked] == _TODO]
+        if picked.size == 0:
+            raise ValueError(f"seeds: none of {sp.tolist()!r} (x, y) lies on a grid point "
                              "inside the region of interest")
     else:
         count = 4 if propagation == "reliability" else max(3, min(8, min(ny, nx) // 4))
-        seeds = _seed_candidates(solver.status, count)
+        picked = _seed_candidates(solver.status, count)
     solver.bar = Progress(int(np.count_nonzero(solver.status == _TODO)), desc="correlation", unit="points",
                           enabled=progress)
-    good = solver.seed(seeds, centre)
-    if good.size == 0 and seed_points is None:
+    good = solver.seed(picked, centre)
+    if good.size == 0 and seeds is None:
         good = solver.seed(_seed_candidates(solver.status, 6), centre)
 
     if propagation == "seeded" and good.size:

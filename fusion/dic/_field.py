@@ -6,6 +6,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .._conventions import short_repr
 __all__ = ["DicField", "StrainRanges", "UNITS"]
 
 #: Coordinate units a field may carry (displacements share them).
@@ -65,6 +66,8 @@ class DicField:
         known (from :func:`fusion.dic.correlate`); the strain fit then
         propagates them instead of estimating the noise from its residuals.
     """
+
+    __repr__ = short_repr  # shapes, not values
 
     x: np.ndarray
     y: np.ndarray
@@ -152,6 +155,8 @@ class StrainRanges:
         not valid.
     """
 
+    __repr__ = short_repr  # shapes, not values
+
     x: np.ndarray
     y: np.ndarray
     units: str
@@ -192,6 +197,22 @@ class StrainRanges:
     def size(self) -> int:
         """Number of points N."""
         return self.x.shape[0]
+
+    # the names of result.nc (fusion.datamodel) for the same quantities
+    @property
+    def delta_eps_xx(self) -> np.ndarray:
+        """Range of eps_xx (1); the same array as ``exx``."""
+        return self.exx
+
+    @property
+    def delta_eps_yy(self) -> np.ndarray:
+        """Range of eps_yy (1); the same array as ``eyy``."""
+        return self.eyy
+
+    @property
+    def delta_gamma_xy(self) -> np.ndarray:
+        """Range of the engineering shear gamma_xy (1); the same array as ``gxy``."""
+        return self.gxy
 
     def map_attrs(self, component: int) -> dict:
         """Metrology attributes of one strain map (0: eps_xx, 1: eps_yy, 2: gamma_xy).

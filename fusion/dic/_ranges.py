@@ -11,8 +11,8 @@ from ._field import DicField, StrainRanges
 from ._resolution import resolution_attrs
 from ._strain import data_edge_distance, strain_fit, vsg_attrs
 
-__all__ = ["ranges_from_states", "ranges_from_series", "ranges_from_time_series",
-           "ranges_from_strain_table"]
+__all__ = ["ranges_from_states", "ranges_from_displacement", "ranges_from_series",
+           "ranges_from_time_series", "ranges_from_strain_table"]
 
 
 def _check_field(name, f):
@@ -140,6 +140,38 @@ def ranges_from_states(field_min, field_max, *, window=5, order=1, kind="small",
                    details=details)
 
 
+def ranges_from_displacement(field, *, window=5, order=1, kind="small", min_valid=0.5):
+    """Strain ranges from one displacement field taken from minimum to maximum load.
+
+    Parameters
+    ----------
+    field : DicField
+        Displacements of the state at maximum load measured from the state at minimum
+        load, e.g. one speckle image pair correlated by :func:`fusion.dic.correlate`
+        (reference image at minimum load) and turned into the specimen frame by
+        :meth:`~fusion.dic.CorrelationResult.to_field`.
+    window, order, kind, min_valid
+        As in :func:`strain_from_field`.
+
+    Returns
+    -------
+    StrainRanges
+        ``d eps`` per point (1), with standard deviations.
+
+    Notes
+    -----
+    The same as :func:`ranges_from_states` with the minimum-load state as the reference
+    (zero displacement, no noise of its own): the field's own ``u_std``/``v_std`` carry
+    the noise of the pair.
+    """
+    _check_field("field", field)
+    reference = DicField(x=field.x, y=field.y, u=np.zeros_like(field.u), v=np.zeros_like(field.v),
+                         valid=field.valid, grid_shape=field.grid_shape, units=field.units,
+                         attrs=field.attrs)
+    return ranges_from_states(reference, field, window=window, order=order, kind=kind,
+                              min_valid=min_valid)
+
+
 def _state_strains(fields, window, order, kind, min_valid):
     for k, f in enumerate(fields):
         _check_field(f"fields[{k}]", f)
@@ -235,10 +267,27 @@ def ranges_from_series(fields, loads, *, load_range, window=5, order=1, kind="sm
     coef, std, ok = _weighted_lsq(design, strains, weights)
     ranges = coef[1] / scale * load_range
     stds = std[1] / scale * load_range
+    scatter = _fit_scatter(design, strains, weights, coef, ok)
     return _result(fields[-1], window, ranges, stds, ok,
                    f"least-squares slope over {len(fields)} states times the load range, "
                    f"{kind} strain, order-{order} fit",
-                   extra={"load_range": float(load_range)})
+                   extra={"load_range": float(load_range), "states": len(fields),
+                          **{f"fit_scatter_{c}": v for c, v in zip(("exx", "eyy", "gxy"), scatter)}})
+
+
+def _fit_scatter(design, strains, weights, coef, ok):
+    """Median over the points of the residual standard deviation of the straight-line fit
+    (strain, per component; None where no point has more states than fit parameters).
+
+    It tells how far the states stray from a linear response (noise, slip, non-linearity)."""
+    dof = weights.sum(axis=0) - design.shape[1]
+    use = ok & (dof > 0)
+    if not use.any():
+        return (None, None, None)
+    fitted = np.einsum("ki,icn->kcn", design, coef[:, :, use])
+    resid = (np.nan_to_num(strains[:, :, use]) - fitted) * weights[:, None, use]
+    sd = np.sqrt(np.sum(resid ** 2, axis=0) / dof[use])
+    return tuple(float(np.nanmedian(c)) for c in sd)
 
 
 def ranges_from_time_series(fields, times, frequency, *, window=5, order=1, kind="small",

@@ -10,7 +10,7 @@ import numpy as np
 from ._atomic import atomic_path
 from ._guard import decoding, hdf5_stays_inside, input_file
 
-__all__ = ["write_netcdf", "read_netcdf"]
+__all__ = ["write_netcdf", "read_netcdf", "netcdf_form"]
 
 # zlib level of every variable: the fastest level; higher levels shrink result maps (float32
 # with NaN outside the valid area) by a few per cent for a third more time, and neither the
@@ -35,11 +35,12 @@ def _clean_attrs(attrs: dict) -> dict:
     return out
 
 
-def write_netcdf(ds, path, *, overwrite: bool = False) -> Path:
-    """Write ``ds`` to ``path`` (NetCDF-4) via a temporary name and a rename.
+def netcdf_form(ds):
+    """``ds`` as :func:`write_netcdf` writes it and :func:`read_netcdf` reads it back.
 
-    Object-dtype coordinates are written as strings; non-scalar attributes are
-    JSON-encoded. Refuses to replace an existing file unless ``overwrite``.
+    A copy with object-dtype variables as strings, booleans as 0/1, ``None`` as ``""``
+    and attributes that NetCDF cannot hold (dicts, lists, tuples) as JSON text: the
+    in-memory twin of the file.
     """
     ds = ds.copy()
     ds.attrs = _clean_attrs(ds.attrs)
@@ -47,6 +48,17 @@ def write_netcdf(ds, path, *, overwrite: bool = False) -> Path:
         ds[name].attrs = _clean_attrs(ds[name].attrs)
         if ds[name].dtype == object:
             ds[name] = ds[name].astype(str)
+    return ds
+
+
+def write_netcdf(ds, path, *, overwrite: bool = False) -> Path:
+    """Write ``ds`` to ``path`` (NetCDF-4) via a temporary name and a rename.
+
+    Written in the form of :func:`netcdf_form`: object-dtype coordinates as strings,
+    non-scalar attributes JSON-encoded. Refuses to replace an existing file unless
+    ``overwrite``.
+    """
+    ds = netcdf_form(ds)
     encoding = {}
     for name, var in ds.data_vars.items():
         if var.dtype.kind == "f":

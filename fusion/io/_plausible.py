@@ -7,59 +7,21 @@ cyclic thermoelastic test of a laminate (or a metal) lies; outside them the run 
 with one sentence naming the file, the key and the unit the values look like.
 
 The bounds are wide on purpose: they catch factors of 100 to 1000 (percent,
-microstrain, millikelvin, kN), not a marginal test.
+microstrain, millikelvin, kN), not a marginal test. The table lives in
+``fusion/_bounds.py`` beside the bounds of the Python API's arguments (one place for
+every plausible magnitude).
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 import numpy as np
 
+from .._bounds import PLAUSIBLE, Bound
 from ..errors import InputError
 
 __all__ = ["Bound", "PLAUSIBLE", "STRAIN_UNITS", "check_strain_ranges", "check_temperatures",
            "check_ratio", "check_load_ranges", "typical_magnitude"]
 
-
-@dataclass(frozen=True)
-class Bound:
-    """Plausible range of a quantity: ``low <= typical value <= high`` in ``unit``; ``basis`` says why."""
-
-    low: float
-    high: float
-    unit: str
-    statistic: str
-    basis: str
-
-
-#: The bounds of every physical input, with the reason for each (see ``basis``).
-PLAUSIBLE = {
-    "strain_range": Bound(
-        1e-6, 0.05, "1", "90th percentile of the largest |component| per point",
-        "common practice: cyclic strain ranges of laminates under test lie between about "
-        "100 microstrain and 1 %; fibre composites fail near 1-2 % (carbon) to 3 % (glass), "
-        "resins near 3-6 %, so 5 % is beyond any elastic cycle, and under 1 microstrain a "
-        "correlation measurement (noise floor ~50-100 microstrain) holds no strain at all"),
-    "temperature": Bound(
-        100.0, 1000.0, "K", "every finite value (maps), median of sampled frames (frame stacks)",
-        "common practice: laboratory tests run from cryogenic chambers (~100 K with liquid "
-        "nitrogen) to hot cells; epoxy matrices soften below ~500 K and 1000 K leaves room for "
-        "metals; values between -100 and 100 are degrees Celsius, values in the thousands "
-        "are detector counts"),
-    "ratio": Bound(
-        0.0, 0.01, "1", "99th percentile of |delta_T / T0|",
-        "Kelvin's law dT/T0 = -K dsigma, K = alpha / (rho c): about 3e-12 /Pa for steel and "
-        "1e-11 /Pa for aluminium (handbook alpha, rho, c) gives under 3e-3 at yield; an epoxy "
-        "resin (E 3.5 GPa, nu 0.35, alpha 60e-6 /K, rho 1200, c 1100) at 2 % strain about "
-        "5e-3: 1e-2 (3 K at room temperature) is no elastic signal, while a range in "
-        "millikelvin read as kelvin gives 1e-2 and more from 3 mK up"),
-    "load_range_ratio": Bound(
-        0.01, 100.0, "1", "range of the load signal over the span of dic.loads",
-        "common practice: the correlation states are taken within or near the cycle's load "
-        "range; a factor of 1000 is a unit slip (N and kN), while a factor under 100 may be "
-        "a deliberate extrapolation of small static steps"),
-}
 
 #: Scale of each strain unit the config accepts to plain strain.
 STRAIN_UNITS = {"1": 1.0, "%": 1e-2, "microstrain": 1e-6}
@@ -157,7 +119,7 @@ def check_temperatures(values, *, where, what="T0", statistic="all", hint_counts
 
 
 def check_ratio(delta_T, T0, *, where, what="delta_T", fix="convert it to kelvin"):
-    """Refuse a temperature range whose |dT/T0| is no thermoelastic signal (millikelvin read as K)."""
+    """Refuse a temperature range whose ``|dT/T0|`` is no thermoelastic signal (millikelvin read as K)."""
     b = PLAUSIBLE["ratio"]
     with np.errstate(invalid="ignore", divide="ignore"):
         r = np.asarray(delta_T, dtype=np.float64) / np.asarray(T0, dtype=np.float64)
@@ -170,8 +132,8 @@ def check_ratio(delta_T, T0, *, where, what="delta_T", fix="convert it to kelvin
                      f"any elastic thermoelastic signal{like}")
 
 
-def check_load_ranges(signal_range, loads, *, where):
-    """Refuse a load signal whose range and the span of ``dic.loads`` differ by a unit factor."""
+def check_load_ranges(signal_range, loads, *, where, what="dic.loads"):
+    """Refuse a load signal whose range and the span of ``dic.loads`` (or of ``what``) differ by a unit factor."""
     b = PLAUSIBLE["load_range_ratio"]
     span = float(np.ptp(np.asarray(loads, dtype=np.float64)))
     if not span > 0 or not np.isfinite(signal_range):
@@ -180,6 +142,8 @@ def check_load_ranges(signal_range, loads, *, where):
     if _inside(b, k):
         return
     slip = (" (a factor of 1000: kN against N?)" if 300 < k < 3000 or 300 < 1 / k < 3000 else "")
+    unit = " N" if what == "dic.loads" else ""
+    fix = ("dic.loads takes units, e.g. \"2 kN\"" if what == "dic.loads" else
+           "convert the load log to the unit of the load signal")
     raise InputError(where, f"the load signal's range {float(signal_range):.4g} (file units) is {k:.3g} "
-                     f"times the span {span:.4g} N of dic.loads{slip}; give both in the same unit "
-                     "(dic.loads takes units, e.g. \"2 kN\")")
+                     f"times the span {span:.4g}{unit} of {what}{slip}; give both in the same unit ({fix})")

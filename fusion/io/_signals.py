@@ -14,6 +14,7 @@ import dataclasses
 import numpy as np
 
 from ..errors import InputError
+from .._conventions import short_repr
 from ._guard import MAX_READ_BYTES, check_bytes, clip, input_file, npy_header, quote, text_rows_warning
 
 __all__ = ["LoadSignal", "read_load_signal", "read_frame_times"]
@@ -36,6 +37,8 @@ class LoadSignal:
     frame : (N,) float64 ndarray or None
         Frame index of each row (NaN on rows between frames), when a frame column was read.
     """
+
+    __repr__ = short_repr  # shapes, not values
 
     times: np.ndarray
     load: np.ndarray

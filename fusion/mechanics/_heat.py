@@ -36,7 +36,9 @@ from numbers import Real
 
 import numpy as np
 
+from ._laminate import Laminate
 from ._layers import ThermalLayer
+from ._predict import thermal_layers
 
 __all__ = [
     "diffusion_length", "surface_weights", "surface_response", "transfer_coefficients",
@@ -100,6 +102,22 @@ def _check_h(value, key) -> float:
     return float(value)
 
 
+def _stack(layers, convection_front, convection_back):
+    """Thermal layers and face heat-transfer coefficients of a laminate or of a layer list.
+
+    A laminate brings its own ``convection_front`` and ``convection_back``; an explicit value
+    replaces the laminate's. A list of layers has adiabatic faces unless told otherwise.
+    """
+    if isinstance(layers, Laminate):
+        hf = layers.convection_front if convection_front is None else convection_front
+        hb = layers.convection_back if convection_back is None else convection_back
+        layers = thermal_layers(layers)
+    else:
+        hf = 0.0 if convection_front is None else convection_front
+        hb = 0.0 if convection_back is None else convection_back
+    return layers, _check_h(hf, "convection_front"), _check_h(hb, "convection_back")
+
+
 def _layer_arrays(layers):
     """Validated (thickness, rho c, k, coefficients) arrays of a viewed-face-first stack."""
     layers = list(layers)
@@ -161,17 +179,19 @@ def _weights(d, rc, k, f, h_front, h_back):
     return -(prefix * own) / (Y_b + h_front)[:, None]
 
 
-def surface_weights(layers, frequencies, *, convection_front=0.0, convection_back=0.0):
+def surface_weights(layers, frequencies, *, convection_front=None, convection_back=None):
     """Complex weight of each layer's adiabatic source in the surface response.
 
     Parameters
     ----------
-    layers : sequence of ThermalLayer
-        Viewed face first.
+    layers : Laminate or sequence of ThermalLayer
+        The laminate (its :func:`thermal_layers` and its faces' heat-transfer
+        coefficients), or the layers themselves, viewed face first.
     frequencies : (F,) array_like
         Hz, positive.
-    convection_front, convection_back : float
+    convection_front, convection_back : float, optional
         Heat-transfer coefficients of the viewed and back faces in W/(m2 K); 0 is adiabatic.
+        Default: the laminate's own, or 0 for a list of layers.
 
     Returns
     -------
@@ -192,25 +212,26 @@ def surface_weights(layers, frequencies, *, convection_front=0.0, convection_bac
     composite slabs); Almond & Patel, *Photothermal Science and Techniques*, 1996
     (thermal-wave impedance of layered media).
     """
+    layers, hf, hb = _stack(layers, convection_front, convection_back)
     d, rc, k, _ = _layer_arrays(layers)
     f = _check_frequencies(frequencies)
-    hf = _check_h(convection_front, "convection_front")
-    hb = _check_h(convection_back, "convection_back")
     return _weights(d, rc, k, f, hf, hb)
 
 
-def transfer_coefficients(layers, frequencies, *, convection_front=0.0, convection_back=0.0):
+def transfer_coefficients(layers, frequencies, *, convection_front=None, convection_back=None):
     """Complex coefficients mapping strain ranges to the surface response, per frequency.
 
     Parameters
     ----------
-    layers : sequence of ThermalLayer
-        Viewed face first; each layer's ``coefficients`` (3,) give its adiabatic dT/T0
-        per unit (d eps_xx, d eps_yy, d gamma_xy).
+    layers : Laminate or sequence of ThermalLayer
+        The laminate, or its layers viewed face first (:func:`thermal_layers`); each
+        layer's ``coefficients`` (3,) give its adiabatic dT/T0 per unit
+        (d eps_xx, d eps_yy, d gamma_xy).
     frequencies : (F,) array_like
         Hz.
-    convection_front, convection_back : float
-        W/(m2 K); 0 (default) is an adiabatic face.
+    convection_front, convection_back : float, optional
+        W/(m2 K); 0 is an adiabatic face. Default: the laminate's ``convection_front``
+        and ``convection_back``, or 0 for a list of layers (a list carries no faces).
 
     Returns
     -------
@@ -241,10 +262,9 @@ def transfer_coefficients(layers, frequencies, *, convection_front=0.0, convecti
     >>> np.allclose(transfer_coefficients(stack, [1.0, 100.0]), c)
     True
     """
+    layers, hf, hb = _stack(layers, convection_front, convection_back)
     d, rc, k, coef = _layer_arrays(layers)
     f = _check_frequencies(frequencies)
-    hf = _check_h(convection_front, "convection_front")
-    hb = _check_h(convection_back, "convection_back")
     return _weights(d, rc, k, f, hf, hb) @ coef
 
 
@@ -300,21 +320,21 @@ def _default_depths(d, points_per_layer):
     return np.concatenate(parts)
 
 
-def surface_response(layers, frequencies, *, sources=None, convection_front=0.0,
-                     convection_back=0.0, profile=False, depths=None, points_per_layer=16):
+def surface_response(layers, frequencies, *, sources=None, convection_front=None,
+                     convection_back=None, profile=False, depths=None, points_per_layer=16):
     """Complex surface dT/T0 of a layered plate with given per-layer adiabatic values.
 
     Parameters
     ----------
-    layers : sequence of ThermalLayer
-        Viewed face first.
+    layers : Laminate or sequence of ThermalLayer
+        The laminate (its :func:`thermal_layers`), or the layers, viewed face first.
     frequencies : (F,) array_like
         Hz.
     sources : (N,) array_like
         Adiabatic dT/T0 of each layer (dimensionless). Required: for strain ranges use
         :func:`transfer_coefficients` (or pass ``[la.adiabatic_ratio(strain) for la in layers]``).
-    convection_front, convection_back : float
-        W/(m2 K); 0 is adiabatic.
+    convection_front, convection_back : float, optional
+        W/(m2 K); 0 is adiabatic. Default: the laminate's own, or 0 for a list of layers.
     profile : bool
         Also return the through-thickness profile.
     depths : (Z,) array_like, optional
@@ -345,10 +365,9 @@ def surface_response(layers, frequencies, *, sources=None, convection_front=0.0,
     if sources is None:
         raise TypeError("surface_response needs the per-layer adiabatic values `sources`; for "
                         "strain ranges use transfer_coefficients(layers, frequencies)")
+    layers, hf, hb = _stack(layers, convection_front, convection_back)
     d, rc, k, _ = _layer_arrays(layers)
     f = _check_frequencies(frequencies)
-    hf = _check_h(convection_front, "convection_front")
-    hb = _check_h(convection_back, "convection_back")
     s = np.asarray(sources, dtype=float)
     if s.shape != d.shape or not np.all(np.isfinite(s)):
         raise ValueError(f"sources must be {d.size} finite values (one per layer), got {sources!r}")

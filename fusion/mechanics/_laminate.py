@@ -6,20 +6,25 @@ import math
 from dataclasses import dataclass, field
 from numbers import Real
 
+from .._bounds import length_problem
 from ._materials import IsotropicMaterial, MaterialError, OrthotropicMaterial
 
 __all__ = ["Ply", "SurfaceLayer", "Laminate"]
 
 
-def _require_thickness(value, key):
+def _require_thickness(value, key, bound):
     if isinstance(value, bool) or not (isinstance(value, Real) and math.isfinite(value) and value > 0):
         raise MaterialError(key, f"expected a positive thickness, got {value!r} m")
+    # a thickness typed in mm or um reads as metres without error: refuse it by its size
+    problem = length_problem(value, bound)
+    if problem:
+        raise MaterialError(key, problem)
 
 
 @dataclass(frozen=True)
 class Ply:
     """One ply: ``material``, ``angle`` in degrees CCW from the laminate 0° axis,
-    ``thickness`` in m."""
+    ``thickness`` in m (5 um to 10 mm; a value in mm such as 0.25 is refused)."""
 
     material: OrthotropicMaterial
     angle: float
@@ -31,12 +36,13 @@ class Ply:
                                 f"{type(self.material).__name__} {getattr(self.material, 'name', '')!r}")
         if isinstance(self.angle, bool) or not (isinstance(self.angle, Real) and math.isfinite(self.angle)):
             raise MaterialError("ply_angle", f"expected a finite angle in degrees, got {self.angle!r}")
-        _require_thickness(self.thickness, "ply_thickness")
+        _require_thickness(self.thickness, "ply_thickness", "ply_thickness")
 
 
 @dataclass(frozen=True)
 class SurfaceLayer:
-    """An isotropic layer on a face (coating, resin-rich layer): ``thickness`` in m."""
+    """An isotropic layer on a face (coating, resin-rich layer): ``thickness`` in m
+    (0.1 um to 5 mm; a value in um or mm is refused)."""
 
     material: IsotropicMaterial
     thickness: float
@@ -45,7 +51,7 @@ class SurfaceLayer:
         if not isinstance(self.material, IsotropicMaterial):
             raise MaterialError("material", f"a surface layer needs an IsotropicMaterial, got "
                                 f"{type(self.material).__name__} {getattr(self.material, 'name', '')!r}")
-        _require_thickness(self.thickness, "thickness")
+        _require_thickness(self.thickness, "thickness", "layer_thickness")
 
 
 @dataclass(frozen=True)
@@ -113,7 +119,8 @@ class Laminate:
             ``"[0/90]s"`` style code (see :func:`parse_layup`) or angles in degrees,
             viewed face first.
         ply_thickness : float
-            Cured ply thickness in m.
+            Cured ply thickness in m (0.25e-3 for 0.25 mm; 0.25 is refused as a length
+            in millimetres).
         **options
             Any other :class:`Laminate` field (``zero_direction``, ``coating``...).
 

@@ -18,10 +18,12 @@ import math
 from dataclasses import dataclass, fields
 from numbers import Real
 
+from ..errors import FusionError
+
 __all__ = ["OrthotropicMaterial", "IsotropicMaterial", "MaterialError"]
 
 
-class MaterialError(ValueError):
+class MaterialError(FusionError, ValueError):
     """A material record breaks a physical bound; ``field`` names the property."""
 
     def __init__(self, field: str, message: str):

@@ -227,7 +227,9 @@ def _select(laminate, sources) -> tuple[str, ...]:
     sources = tuple(sources)
     for s in sources:
         if s not in have:
-            hint = (f" (the {s!r} source comes from a heat model, not the adiabatic laws)"
+            hint = (f" (the {s!r} source comes from a heat model, not the adiabatic laws: "
+                    "fusion.predictions gives the through-thickness model ('model') with its standard "
+                    "deviation and phase lag at a frequency, or use transfer_coefficients with model_response)"
                     if s in ("model", "lateral") else "")
             raise ValueError(f"source {s!r} is not available for laminate {laminate.name!r}; "
                              f"available: {list(have)}{hint}")

@@ -24,6 +24,7 @@ from numbers import Real
 
 import numpy as np
 
+from .._conventions import short_repr
 from ._heat import (
     _bands, _check_frequencies, _check_tolerance, _lag, frequency_band, phase_lag,
     transfer_coefficients,
@@ -116,6 +117,8 @@ class SweepFit:
     model_frequencies, model_response : (M,) ndarray
         The fitted model curve (Hz; complex dT/T0 at the mean strain range).
     """
+
+    __repr__ = short_repr  # shapes, not values
 
     parameters: tuple
     params: dict

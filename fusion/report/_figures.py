@@ -204,7 +204,7 @@ def residuals_figure(ds, *, sources=None):
     -------
     matplotlib.figure.Figure
         Colour limits ``(-v, v)`` with ``v`` the 99th percentile of the pooled
-        |residual| values (:data:`RESIDUAL_PERCENTILE`); diverging map with a
+        ``|residual|`` values (:data:`RESIDUAL_PERCENTILE`); diverging map with a
         neutral light grey at 0 and dark grey for invalid pixels.
 
     References

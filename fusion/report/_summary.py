@@ -400,12 +400,12 @@ def summarize_run(ds, *, regions=None, warnings=None, meta=None, registration_li
     meta : dict, optional
         Free metadata kept under ``meta``. Read keys: ``recommended_band_hz``
         ``(f_low, f_high)`` for the band check, ``second_harmonic_ratio``
-        (median |2f| / |1f| amplitude, also read from the attrs), ``created``,
+        (median ``|2f| / |1f|`` amplitude, also read from the attrs), ``created``,
         ``footprint`` (``valid_reference_pixels``: IR pixels with usable thermal
         data outside markers and exclusions, the area the valid area is judged
         against).
     registration_limit_px, snr_limit, second_harmonic_limit, valid_area_limit : float
-        Thresholds of the automatic warnings (IR px; median |dT|/std;
+        Thresholds of the automatic warnings (IR px; median ``|dT|/std``;
         fraction of the fundamental; share of the usable thermal area, or of
         the whole field when ``meta`` does not give it). They are this
         project's defaults, not values from a standard; laboratories should set

@@ -12,13 +12,20 @@ write_run
     result.nc, summary.json and the figures of a computed run, written into a folder.
 check_run_inputs
     Every input of a run opened far enough to know it can be read (``fusion check``).
-input_files
-    The files a run reads.
+input_files, input_digests, sequence_files, INPUT_DIGEST
+    The files a run reads, their content digests (as result.nc records them; a frame or image
+    folder by one digest over its members), the hash that makes them, and the members of its
+    frame and image folders or patterns.
+input_state, InputState
+    Whether every input of a run is there (sequences complete) and the identity of its
+    files now (``fusion watch``).
 """
 
 from ._check import check_run_inputs
 from ._compose import RunResult, compute_run
-from ._files import input_files
+from ._files import INPUT_DIGEST, input_digests, input_files, sequence_files
+from ._inputs import InputState, input_state
 from ._write import write_run
 
-__all__ = ["RunResult", "check_run_inputs", "compute_run", "input_files", "write_run"]
+__all__ = ["INPUT_DIGEST", "InputState", "RunResult", "check_run_inputs", "compute_run", "input_digests", "input_files",
+           "input_state", "sequence_files", "write_run"]

@@ -3,8 +3,9 @@
 from __future__ import annotations
 
 from ..errors import InputError
-from ..io import check_load_ranges, open_frames, read_frame_times, read_image
+from ..io import check_load_ranges, read_image
 from ._files import need_file
+from ._inputs import frame_times, open_thermal_frames, speckle_images
 from ._strain import check_table_strains, read_field
 from ._thermal import check_frames, load_and_frequency, load_range, maps_side
 
@@ -23,25 +24,24 @@ def check_run_inputs(cfg, run, *, key) -> str:
     parts = []
     fr = None
     if t.frames is not None:
-        path = need_file(t.frames, f"{key}.thermal.frames")
-        fr = open_frames(path, dtype=t.dtype, shape=t.shape, byte_order=t.byte_order, dataset=t.dataset,
-                         header_bytes=t.header_bytes)
-        check_frames(path, t, fr)
-        parts.append(f"{fr.shape[0]} frames of {fr.shape[1]}x{fr.shape[2]} {fr.dtype}")
+        fr = open_thermal_frames(t, key=f"{key}.thermal")
+        check_frames(t.frames, t, fr)
+        seq = getattr(fr, "sequence", None)
+        where = f" in {len(seq)} {seq.kind} files" if seq is not None else ""
+        parts.append(f"{fr.shape[0]} frames of {fr.shape[1]}x{fr.shape[2]} {fr.dtype}{where}")
     else:
         need_file(t.maps, f"{key}.thermal.maps")
         maps, _, _, _ = maps_side(run)
         parts.append(f"maps {maps['T0'].shape[0]}x{maps['T0'].shape[1]}")
-    if t.times is not None:
-        # read, not only found: a damaged times file should fail here, not in the run
-        read_frame_times(need_file(t.times, f"{key}.thermal.times"),
-                         n_frames=fr.shape[0] if fr is not None else None)
-    load_span = None
+    sig = load_span = None
     if t.load is not None:
         need_file(t.load, f"{key}.thermal.load")
         sig, frequency, _, _ = load_and_frequency(run, frames=fr)
         load_span = load_range(sig, frequency)
         parts.append(f"load signal of {sig.times.size} samples at {frequency:.6g} Hz")
+    if fr is not None:
+        # read, not only found: damaged or mismatched frame times should fail here, not in the run
+        frame_times(t, fr, sig)
     if d.loads is not None and load_span is not None:
         check_load_ranges(load_span, d.loads, where=t.load)
     if d.strain_ranges is not None:
@@ -54,10 +54,16 @@ def check_run_inputs(cfg, run, *, key) -> str:
         if getattr(d, name):
             parts.append(f"{len(getattr(d, name))} displacement fields of {f.x.size} points")
     if d.images is not None:
-        shapes = {read_image(need_file(p, f"{key}.dic.images[{i}]")).shape for i, p in enumerate(d.images)}
-        if len(shapes) != 1:
-            raise InputError(d.images[0], f"the speckle images differ in size: {sorted(shapes)}")
-        parts.append(f"{len(d.images)} speckle images of {shapes.pop()}")
+        images = speckle_images(d)
+        if d.load_log is not None and load_span is not None:
+            check_load_ranges(load_span, images.loads, where=d.load_log, what="the load log's loads")
+        first = read_image(need_file(images.paths[0], f"{key}.dic.images")).shape
+        for p in images.paths[1:]:
+            shape = read_image(need_file(p, f"{key}.dic.images")).shape
+            if shape != first:
+                raise InputError(p, f"is a {shape[0]}x{shape[1]} image, the reference {images.paths[0].name} "
+                                 f"{first[0]}x{first[1]}: every speckle image must have one size")
+        parts.append(f"{len(images.paths)} speckle images of {first}")
     if d.reference_image is not None:
         read_image(need_file(d.reference_image, f"{key}.dic.reference_image"))
     return ", ".join(parts)

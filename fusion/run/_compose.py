@@ -15,14 +15,17 @@ from pathlib import Path
 import numpy as np
 
 from .. import __version__
+from .._conventions import short_repr
 from .._timing import step
 from ..datamodel import SOURCES, result_dataset
-from ..diagnose import apply_calibration, calibration_factor, diagnose, region_mask, region_table
+from ..diagnose import (apply_calibration, calibration_factor, diagnose, measured_ratio, region_mask,
+                        region_table)
 from ..errors import ConfigError, InputError
 from ..io import read_image
 from ..mechanics import ply_profile
 from ..thermal import motion_amplitude
 from ._files import need_file
+from ._inputs import reference_image_path
 from ._lateral import ir_pixel_axes
 from ._predictions import predictions
 from ._registration import check_footprint, motion_support, refine_registration, registration_side
@@ -41,6 +44,8 @@ _KEEP_OUTSIDE = ("source_layer", "source_tie", "valid", "source_probability", "T
 @dataclasses.dataclass
 class RunResult:
     """Everything one run produced, in memory."""
+
+    __repr__ = short_repr  # shapes, not values
 
     dataset: object                 # xarray.Dataset of result.nc
     regions: list                   # region-table rows
@@ -165,18 +170,8 @@ def _motion_compensated(run, budget, disp, transform, load_range, ir_shape, prog
 
 def _measured(thermal):
     """Measured ratio dT/T0, its std, the signal-to-noise ratio and the phase lag with its std."""
-    with np.errstate(invalid="ignore", divide="ignore"):
-        measured = thermal["delta_T"] / thermal["T0"]
-        measured_std = thermal["delta_T_std"] / np.abs(thermal["T0"])
-        snr = np.abs(thermal["delta_T"]) / thermal["delta_T_std"]
-    quad = thermal.get("delta_T_quadrature")
-    lag = lag_std = None
-    if quad is not None:
-        with np.errstate(invalid="ignore", divide="ignore"):
-            lag = -np.degrees(np.arctan(quad / thermal["delta_T"])).astype(np.float32)
-            mag = np.hypot(thermal["delta_T"], quad)
-            lag_std = np.degrees(thermal["delta_T_std"] / mag).astype(np.float32)
-    return measured, measured_std, snr, lag, lag_std
+    return measured_ratio(thermal["T0"], thermal["delta_T"], thermal["delta_T_std"],
+                          thermal.get("delta_T_quadrature"))
 
 
 def _calibrate(spec, regions, valid, measured, measured_std, pred, pstd):
@@ -304,7 +299,7 @@ def _ply_profile(lam, strain, valid):
 
 def _reference_on_ir(run, transform, shape):
     """The visible reference image resampled onto the IR grid (for the overlay), or None."""
-    ref = run.dic.reference_image or (run.dic.images[0] if run.dic.images else None)
+    ref = reference_image_path(run.dic)
     if ref is None or transform is None or not Path(ref).is_file():
         return None
     import cv2

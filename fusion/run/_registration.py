@@ -23,6 +23,7 @@ from ..register import (FOOTPRINT_FAIL, FOOTPRINT_WARN, Transform2D, assess_fit,
                         check_handedness, edge_distance_map, find_fiducials, fit_camera, fit_transform, footprint_share, match_fiducials,
                         refine_with_signal, resample_to_grid, shape_contains, shape_mask, warp_support_ok)
 from ._files import need_file
+from ._inputs import reference_image_path
 
 __all__ = ["Registered", "registration_side", "refine_registration", "file_to_specimen", "motion_support",
            "check_footprint"]
@@ -129,7 +130,7 @@ def _fit(reg, ir_shape, T0, run, F):
 
 
 def _fit_fiducials(reg, T0, run):
-    ref = run.dic.reference_image or (run.dic.images[0] if run.dic.images else None)
+    ref = reference_image_path(run.dic)
     if ref is None:
         raise ConfigError("dic.reference_image", "registration by fiducials needs the visible "
                           "reference image (dic.reference_image or dic.images)")

@@ -11,6 +11,7 @@ from ..dic import correlate, ranges_from_series, ranges_from_states, ranges_from
 from ..errors import ConfigError, InputError
 from ..io import check_load_ranges, check_strain_ranges, read_dic_field, read_image
 from ._files import need_file
+from ._inputs import speckle_images
 
 __all__ = ["strain_side", "read_field", "check_field_points", "check_table_strains", "MIN_POINTS"]
 
@@ -106,39 +107,48 @@ def strain_side(run, *, load_range=None, progress=False):
     if spec.series is not None:
         fields = [read_field(p, spec, f"dic.series[{i}]") for i, p in enumerate(spec.series)]
     else:
-        imgs = [read_image(need_file(p, f"dic.images[{i}]")) for i, p in enumerate(spec.images)]
-        roi = tuple(spec.roi) if spec.roi is not None else None
+        images = speckle_images(spec)
+        loads, paths = images.loads, images.paths
+        if spec.load_log is not None and load_range is not None:
+            check_load_ranges(load_range, loads, where=spec.load_log, what="the load log's loads")
+        imgs = [read_image(need_file(p, "dic.images")) for p in paths]
+        for p, img in zip(paths[1:], imgs[1:]):
+            if img.shape != imgs[0].shape:
+                raise InputError(p, f"is a {img.shape[0]}x{img.shape[1]} image, the reference {paths[0].name} "
+                                 f"{imgs[0].shape[0]}x{imgs[0].shape[1]}: every speckle image must have one size")
+        # the config's dic.roi is [row0, col0, row1, col1]; correlate takes (x0, y0, x1, y1)
+        roi = (spec.roi[1], spec.roi[0], spec.roi[3], spec.roi[2]) if spec.roi is not None else None
         if spec.mask is not None:
             m = read_image(need_file(spec.mask, "dic.mask")) > 0
             if m.shape != imgs[0].shape:
                 raise InputError(spec.mask, f"mask has shape {m.shape}, the speckle images {imgs[0].shape}")
             if roi is not None:
                 box = np.zeros_like(m)
-                box[roi[0]:roi[2], roi[1]:roi[3]] = True
+                box[spec.roi[0]:spec.roi[2], spec.roi[1]:spec.roi[3]] = True
                 m &= box
             roi = m
         fields = []
         for i, img in enumerate(imgs[1:], 1):
             try:
                 with step("correlation"):
-                    res = correlate(imgs[0], img, subset=spec.subset, step=spec.step, roi=roi,
+                    res = correlate(imgs[0], img, subset=spec.subset, step=spec.step, region=roi,
                                     progress=progress)
             except ValueError as e:
-                raise InputError(spec.images[i], f"correlation: {e}") from e
+                raise InputError(paths[i], f"correlation: {e}") from e
             ok = np.asarray(res.converged).mean() if np.size(res.converged) else 0.0
             if ok < 0.5:
-                raise InputError(spec.images[i], f"correlation with the reference converged at only "
+                raise InputError(paths[i], f"correlation with the reference converged at only "
                                  f"{100 * ok:.0f} % of the points; check the images, subset and roi")
             fields.append(res.to_field(pixel_size=spec.pixel_size))
         if len(fields) == 1:
-            r = _ranges(spec.images[1], ranges_from_states, _zero_field(fields[0]), fields[0], window=w,
+            r = _ranges(paths[1], ranges_from_states, _zero_field(fields[0]), fields[0], window=w,
                         order=order)
             f = _scale_ranges(r, load_range, loads)
-            _computed_strains(r, spec.images[1])
+            _computed_strains(r, paths[1])
             return r, (fields[0].x, fields[0].y, fields[0].u * f, fields[0].v * f)
         fields = [_zero_field(fields[0])] + fields
     lr = load_range if load_range is not None else float(loads.max() - loads.min())
-    where = (spec.series or spec.images)[-1]
+    where = spec.series[-1] if spec.series is not None else paths[-1]
     r = _ranges(where, ranges_from_series, fields, loads, load_range=lr, window=w)
     _computed_strains(r, where)
     slope_u = np.polyfit(loads, np.stack([f.u for f in fields]), 1)[0] * lr

@@ -12,12 +12,12 @@ import math
 import numpy as np
 
 from ..errors import ConfigError, InputError
-from ..io import (check_ratio, check_temperatures, open_frames, read_frame_times, read_load_signal,
-                  read_thermal_maps)
+from ..io import check_ratio, check_temperatures, read_load_signal, read_thermal_maps
 from ..register import resample_to_grid
 from ..thermal import (alias_candidates, estimate_frequency, layout_problem, load_reference, lockin,
                        motion_compensate, sample_frames)
 from ._files import need_file
+from ._inputs import frame_times, open_thermal_frames
 
 __all__ = ["thermal_side", "maps_side", "load_range", "run_load_range", "motion_field",
            "load_and_frequency", "check_frames", "LOAD_CLOCK_FACTOR", "FREQUENCY_SIGMAS", "FREQUENCY_MISMATCH",
@@ -51,29 +51,18 @@ def load_range(sig, frequency):
         raise InputError(sig.path, f"cannot find the load cycle in the load signal ({e})") from e
 
 
-def _frame_times(spec, n_frames, load_sig):
-    if spec.times is not None:
-        return read_frame_times(need_file(spec.times, "thermal.times"), n_frames=n_frames)
-    if spec.frame_rate is not None:
-        return None
-    if load_sig is not None and load_sig.times.size == n_frames:
-        return load_sig.times
-    raise ConfigError("thermal.frame_rate", "frame times unknown: give frame_rate, times, or a load "
-                      f"file with one sample per frame ({n_frames} frames)")
-
-
-def _clock(spec, n_frames, load_sig):
+def _clock(spec, frames, load_sig):
     """Frame times for the lock-in (None with a frame rate), the times themselves and the rate (Hz)."""
-    times = _frame_times(spec, n_frames, load_sig)
+    n_frames = frames.shape[0]
+    times = frame_times(spec, frames, load_sig)
     t = times if times is not None else np.arange(n_frames) / spec.frame_rate
     rate = spec.frame_rate if times is None else 1.0 / float(np.median(np.diff(times)))
     return times, t, rate
 
 
-def _open(spec):
-    path = need_file(spec.frames, "thermal.frames")
-    return path, open_frames(path, dtype=spec.dtype, shape=spec.shape, byte_order=spec.byte_order,
-                             dataset=spec.dataset, header_bytes=spec.header_bytes)
+def _open(spec, progress=False):
+    """The frames of a run: a stack file, or a folder or pattern of per-frame files."""
+    return spec.frames, open_thermal_frames(spec, progress=progress)
 
 
 def _read_load(spec):
@@ -159,7 +148,7 @@ def load_and_frequency(run, *, frames=None):
     if spec.frames is not None:
         if frames is None:
             _, frames = _open(spec)
-        _, frame_t, rate = _clock(spec, frames.shape[0], sig)
+        _, frame_t, rate = _clock(spec, frames, sig)
     f, std, notes = _resolve_frequency(run.frequency, sig, frame_t, rate)
     source = "config" if run.frequency is not None and f == run.frequency else "load signal"
     return sig, f, notes, {"frequency_source": source, "frequency_std": std}
@@ -267,10 +256,10 @@ def thermal_side(run, *, budget, motion=None, progress=False):
     if spec.maps is not None:
         return maps_side(run)
 
-    path, frames = _open(spec)
+    path, frames = _open(spec, progress=progress)
     check_frames(path, spec, frames)
     load_sig, frequency, notes, provenance = load_and_frequency(run, frames=frames)
-    times = _frame_times(spec, frames.shape[0], load_sig)
+    times = frame_times(spec, frames, load_sig)
     gain, offset = (spec.gain, spec.offset) if spec.values == "counts" else (1.0, 0.0)
     src = frames
     if motion is not None:

@@ -5,27 +5,23 @@ from __future__ import annotations
 from pathlib import Path
 
 from .._timing import current, step
-from ..io import content_digest, write_netcdf
+from ..io import write_netcdf
 from ..report import run_figures, summarize_run, write_summary
 from ._compose import RunResult
-from ._files import input_files
+from ._files import INPUT_DIGEST, input_digests
 
-__all__ = ["write_run", "INPUT_DIGEST"]
-
-#: The hash of the input digests in result.nc and summary.json (the one the campaign's stamps use).
-INPUT_DIGEST = "xxh3-128"
+__all__ = ["write_run"]
 
 
 def write_run(result: RunResult, folder: Path, *, cfg, run, stamp: str, inputs: dict | None = None) -> dict:
     """Write result.nc, summary.json and figures of a run into ``folder``; returns the summary.
 
-    ``inputs``: the content digest (:func:`fusion.io.content_digest`) of each input file by its
-    path, as the run's stamp was made from them; without it the files are read again here.
+    ``inputs``: the digests of the run's inputs (:func:`input_digests`), as the run's stamp
+    was made from them; without it the files are read again here.
     """
     if inputs is None:
         with step("input digests"):
-            inputs = {str(p): content_digest(p) for p in input_files(run) if Path(p).is_file()}
-    inputs = {str(p): d for p, d in inputs.items() if d is not None}
+            inputs = input_digests(run)
     ds = result.dataset
     ds.attrs["input_digests"] = inputs
     ds.attrs["input_digest_algorithm"] = INPUT_DIGEST

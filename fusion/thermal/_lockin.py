@@ -17,6 +17,7 @@ import math
 
 import numpy as np
 
+from .._conventions import short_repr
 from . import _kernels
 from ._frequency import estimate_frequency
 from ._sanity import CLIP_SAMPLE_FRAMES, clip_levels, sample_frames
@@ -108,6 +109,8 @@ class LockinResult:
     load : LoadReference or None
         The fitted load reference, when a load signal was given.
     """
+
+    __repr__ = short_repr  # shapes, not values
 
     T0: np.ndarray
     delta_T: np.ndarray
