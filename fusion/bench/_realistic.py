@@ -32,6 +32,7 @@ import statistics
 import subprocess
 import sys
 import tempfile
+import threading
 import time
 from pathlib import Path
 
@@ -96,24 +97,55 @@ for k in range(turns):
 """
 
 
+def _peak_rss_mb(pid: int) -> float | None:
+    """The peak resident memory of a running process so far (``VmHWM``, Linux), MB."""
+    try:
+        with open(f"/proc/{pid}/status") as fh:
+            for line in fh:
+                if line.startswith("VmHWM:"):
+                    return int(line.split()[1]) / 1024
+    except OSError:
+        pass
+    return None
+
+
 def _cli_run(cfg, out):
-    """Wall seconds and peak resident memory (MB) of one ``fusion run`` command, or (None, None)."""
+    """Wall seconds and peak resident memory (MB) of one ``fusion run`` command, or (None, None).
+
+    The peak is polled from ``/proc/<pid>/status`` while the command runs: the rusage of a
+    child (``ru_maxrss``) keeps the peak of the process it was forked from across ``exec``
+    on Linux, so it would report this benchmark's own memory. Elsewhere ``ru_maxrss``.
+    """
     root = str(Path(__file__).resolve().parents[2])
     env = dict(os.environ, PYTHONPATH=os.pathsep.join([root] + [p for p in [os.environ.get("PYTHONPATH")] if p]))
     t0 = time.perf_counter()
     proc = subprocess.Popen([sys.executable, "-m", "fusion.cli", "-q", "run", str(cfg), "--out", str(out),
                              "--overwrite"], env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+    peaks = []
+    stop = threading.Event()
+
+    def poll():
+        while not stop.wait(0.02):
+            peak = _peak_rss_mb(proc.pid)
+            if peak is not None:
+                peaks.append(peak)
+
+    watcher = threading.Thread(target=poll, daemon=True)
+    watcher.start()
     err = proc.stderr.read()
     _, status, usage = os.wait4(proc.pid, 0)
     seconds = time.perf_counter() - t0
+    stop.set()
+    watcher.join()
     proc.returncode = os.waitstatus_to_exitcode(status)
     if proc.returncode != 0:
         log.warning("benchmark run_realistic: `fusion run` failed: %s",
                     err.decode(errors="replace").strip().splitlines()[-1:] or proc.returncode)
         return None, None
+    if peaks:
+        return seconds, max(peaks)
     # ru_maxrss: kilobytes on Linux, bytes on macOS
-    peak = usage.ru_maxrss / (1024 * 1024 if sys.platform == "darwin" else 1024)
-    return seconds, peak
+    return seconds, usage.ru_maxrss / (1024 * 1024 if sys.platform == "darwin" else 1024)
 
 
 def _spread(values):
