@@ -263,6 +263,9 @@ def _check_byte_order(path, sample, byte_order):
     """
     if sample.dtype.itemsize == 1 or sample.size < 2:
         return
+    if sample.ndim == 3:
+        # whole rows, evenly spread: the median over a few dozen of them is as telling
+        sample = sample[:, ::max(1, sample.shape[1] // 64)]
     as_given = _roughness(sample)
     other = _roughness(sample.view(sample.dtype.newbyteorder("S")))
     if np.isfinite(other) and other > 0 and as_given > 50 * other:
