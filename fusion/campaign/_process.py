@@ -11,7 +11,7 @@ from .._timing import Timings, step
 from ..config import Config, load_config
 from ..errors import ConfigError, FusionError, InputError
 from ..io import make_temp_folder, safe_child
-from ..run import compute_run, input_digests, write_run
+from ..run import compute_run, frames_within_budget, input_digests, write_run
 from ._folders import is_marked_folder, mark_folder, publish, refuse_foreign
 from ._outcome import RunOutcome
 from ._provenance import DigestCache, read_stamp, read_summary, run_stamp
@@ -43,6 +43,8 @@ def _process(config_path, run_name, out, *, overwrite, progress, config, t0) -> 
         ours = is_marked_folder(folder, run.name)
         if not ours:
             refuse_foreign(folder, run.name)   # nothing there, or someone else's: never replaced
+        # a header promising frames too large for the budget: refused before the stack is hashed
+        frames_within_budget(run, cfg.compute.memory_budget)
         digests = DigestCache.load(out)        # the campaign process keeps it; read only here
         with step("input digests"):
             stamp = run_stamp(cfg, run, digests=digests)
