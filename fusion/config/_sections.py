@@ -394,8 +394,9 @@ class ComputeSpec:
 
     workers: int = key(_schema.integer(low=1, high=1024), "Runs processed at once (default: the cores, "
                        "limited to available memory / (memory_budget + 400 MB)).")
-    memory_budget: float = key(_schema.quantity("B", positive=True), "Memory a run may use for frame "
-                               "chunks.", unit="B", default=2e9)
+    memory_budget: float = key(_schema.quantity("B", positive=True), "Memory a run may use for its "
+                               "per-pixel maps and frame chunks (frames too large for it are refused from "
+                               "the file's header).", unit="B", default=2e9)
     scheduler: str = key(_schema.string(pattern=r"(tcp|tls|inproc)://\S+|processes|threads|synchronous",
                                   hint="expected tcp://HOST:PORT, 'processes', 'threads' or 'synchronous'"),
                          "Dask scheduler: 'processes' (local worker processes, the default for more "
