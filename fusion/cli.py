@@ -102,7 +102,8 @@ def _parser() -> argparse.ArgumentParser:
     b.add_argument("--quick", action="store_true", help="small sizes (CI smoke test)")
     b.add_argument("--json", action="store_true", help="print one flat JSON object")
     b.add_argument("--only", action="append", metavar="NAME",
-                   help="run only these benchmarks (lockin, dic, predict, heat, lateral, campaign)")
+                   help="run only these benchmarks (lockin, dic, predict, heat, lateral, campaign, run_realistic); "
+                        "--quick skips campaign and run_realistic unless named here")
     return p
 
 

@@ -156,7 +156,8 @@ def test_every_variable_has_units_and_long_name(demo):
         assert "long_name" in var.attrs, name
         if "flag_values" not in var.attrs and "flag_masks" not in var.attrs:   # CF flag variables: no units
             assert "units" in var.attrs, name
-    for key in ("config_text", "fusion_version", "input_sha256", "frequency", "registration_rms"):
+    for key in ("config_text", "fusion_version", "input_digests", "input_digest_algorithm", "frequency",
+                "registration_rms"):
         assert key in ds.attrs
     assert ds["T0"].dtype == np.float32 and ds["source_layer"].dtype == np.int8
     # NaN outside the valid mask
@@ -171,6 +172,30 @@ def test_summaries_validate_against_schema(demo):
         summary = json.loads((out / run.name / "summary.json").read_text())
         jsonschema.validate(summary, schema)
         assert re.fullmatch(r"[0-9a-f]{64}", summary["provenance"]["stamp"])
+
+
+def test_summaries_hold_input_digests_and_step_timings(demo):
+    # not a physics check: provenance and timings. Each input's digest is XXH3-128 of its bytes,
+    # computed here with the xxhash library; result.nc holds the same digests
+    import xxhash
+
+    from fusion._timing import STEP_ORDER
+
+    _, out, outcome = demo
+    for run in DEMO_RUNS:
+        summary = json.loads((out / run.name / "summary.json").read_text())
+        prov = summary["provenance"]
+        assert prov["input_digest"] == "xxh3-128" and prov["inputs"]
+        for path, digest in prov["inputs"].items():
+            assert digest == xxhash.xxh3_128(Path(path).read_bytes()).hexdigest(), path
+        assert json.loads(_open(out, run.name).attrs["input_digests"]) == prov["inputs"]
+        t = summary["timings"]
+        assert set(t["steps"]) <= set(STEP_ORDER)
+        assert {"lock-in" if run.thermal != "maps" else "thermal maps", "registration", "result.nc",
+                "figures"} <= set(t["steps"])
+        # the steps and what no step claims make up the run until its summary (rounded to 1 ms)
+        assert sum(t["steps"].values()) + t["other"] == pytest.approx(t["total"], abs=0.002 * len(t["steps"]) + 0.002)
+    assert outcome.describe().count("\n          time: ") == len(DEMO_RUNS)
 
 
 def test_frequency_file_has_a_group_per_specimen(demo):

@@ -298,3 +298,23 @@ def test_bad_arguments(kwargs, match):
         strain_from_field(field, **kwargs)
     with pytest.raises(TypeError, match="DicField"):
         strain_from_field({"u": 1})
+
+
+def test_window_moments_match_scipy_correlate_with_the_monomial_kernel(rng):
+    # the grid fit's window sums of x^p y^q times the field, taken as two 1-D passes, against
+    # SciPy's 2-D ndimage.correlate with the whole monomial kernel (reference library); x is the
+    # column offset, y = -row offset, zero outside the grid
+    from scipy import ndimage
+
+    from fusion.dic._gridfit import _moments
+
+    img = rng.standard_normal((23, 31))
+    img[rng.random(img.shape) < 0.1] = 0.0
+    half = 3
+    k = np.arange(-half, half + 1, dtype=np.float64)
+    rows, cols = np.meshgrid(k, k, indexing="ij")
+    got = _moments(img, half, 4)           # every monomial of degree <= 4
+    assert sorted(got) == sorted((p, q) for p in range(5) for q in range(5 - p))
+    for (p, q), m in got.items():
+        want = ndimage.correlate(img, cols ** p * (-rows) ** q, mode="constant").ravel()
+        np.testing.assert_allclose(m, want, rtol=1e-12, atol=1e-9 * np.abs(want).max())

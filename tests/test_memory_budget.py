@@ -9,6 +9,7 @@ would add its 201 MB (or more as float64) and fail the check.
 """
 
 import json
+import re
 import subprocess
 import sys
 from pathlib import Path
@@ -170,3 +171,96 @@ def test_stack_four_times_the_budget_stays_within_it(tmp_path, rng, motion):
     assert abs(float(np.mean(dT[valid])) - AMPLITUDE) < 1e-3
     per_pixel = SIGMA * np.sqrt(8 / BIG_FRAMES)
     assert float(np.std(dT[valid])) < 1.5 * per_pixel  # Kay (1993): white-noise bound, 50 % slack
+
+
+# ------------------------------------------------------------------ headers checked against the budget
+def _header_campaign(folder, frames_name, budget=None):
+    """A one-run campaign on ``frames_name`` (a strain table on an identity registration)."""
+    (folder / "strain.csv").write_text("x,y,exx,eyy,gxy\n0,0,1e-3,0,0\n1,0,1e-3,0,0\n0,1,1e-3,0,0\n"
+                                       "1,1,1e-3,0,0\n")
+    compute = f'[compute]\nmemory_budget = "{budget}"\nscheduler = "synchronous"\n' if budget else \
+        '[compute]\nscheduler = "synchronous"\n'
+    cfg = folder / "c.toml"
+    cfg.write_text(f'''material_library = "{(ROOT / "configs" / "materials.toml").as_posix()}"
+[laminate]
+layup = "[0/90]s"
+ply_material = "carbon_epoxy"
+ply_thickness = "0.25 mm"
+[registration]
+method = "identity"
+{compute}[output]
+figures = false
+report = false
+[[run]]
+name = "r"
+frequency = "{FREQ} Hz"
+[run.thermal]
+frames = "{frames_name}"
+frame_rate = "{RATE} Hz"
+[run.dic]
+strain_ranges = "strain.csv"
+coordinates = "px"
+''')
+    return cfg
+
+
+def _check_and_run_refuse(cfg, tmp_path, match):
+    from fusion.campaign import check_campaign, run_campaign
+    from fusion.errors import InputError
+
+    with pytest.raises(InputError, match=match):
+        check_campaign(cfg)
+    outcome = run_campaign(cfg, out=tmp_path / "out")
+    assert not outcome.ok
+    assert re.search(match, outcome.runs[0].error), outcome.runs[0].error
+
+
+def test_a_sparse_npy_promising_a_huge_frame_is_refused_from_its_header(tmp_path):
+    """Not a physics check: memory safety. An .npy header promising 10^12 values (frames of
+    500000 x 500000 px) on a sparse file of that size is refused by `check` and `run` alike,
+    naming the memory budget, before anything the header promises is allocated or read."""
+    shape = (4, 500_000, 500_000)
+    path = tmp_path / "ir.npy"
+    with open(path, "wb") as fh:
+        np.lib.format.write_array_header_1_0(fh, {"descr": "|i1", "fortran_order": False, "shape": shape})
+        fh.truncate(fh.tell() + int(np.prod(shape, dtype=np.float64)))   # sparse: no block written
+    cfg = _header_campaign(tmp_path, "ir.npy")
+    _check_and_run_refuse(cfg, tmp_path, r"ir\.npy.*500000x500000 px.*memory_budget")
+
+
+def test_a_compressed_tiff_of_large_pages_is_refused_before_a_page_is_decoded(tmp_path, monkeypatch):
+    """Not a physics check: memory safety. A small zlib-compressed TIFF whose two pages decode to
+    far more than the memory budget is refused by `check` and `run` alike from its header: no
+    page is decoded (decoding would fail this test)."""
+    import tifffile
+
+    path = tmp_path / "ir.tif"
+    tifffile.imwrite(path, np.zeros((2, 3000, 3000), np.float32), compression="zlib")
+    assert path.stat().st_size < 1e6
+
+    def no_decode(*args, **kwargs):
+        raise AssertionError("a page was decoded")
+
+    monkeypatch.setattr(tifffile.TiffPage, "asarray", no_decode)
+    monkeypatch.setattr(tifffile.TiffFile, "asarray", no_decode)
+    cfg = _header_campaign(tmp_path, "ir.tif", budget="100 MB")
+    _check_and_run_refuse(cfg, tmp_path, r"ir\.tif.*3000x3000 px.*memory_budget = 100 MB")
+
+
+def test_a_truncated_tiff_of_large_pages_is_named_without_decoding(tmp_path, monkeypatch):
+    """Not a physics check: file plumbing. Pages too large to decode at opening are checked for a
+    truncated copy from the header (the last page's byte ranges past the end of the file)."""
+    import tifffile
+
+    from fusion.errors import InputError
+    from fusion.io import open_frames
+
+    path = tmp_path / "ir.tif"
+    tifffile.imwrite(path, np.ones((2, 3000, 3000), np.float32), compression="zlib")
+    monkeypatch.setattr(tifffile.TiffPage, "asarray", lambda *a, **k: pytest.fail("a page was decoded"))
+    monkeypatch.setattr(tifffile.TiffFile, "asarray", lambda *a, **k: pytest.fail("a page was decoded"))
+    assert open_frames(path).shape == (2, 3000, 3000)
+    with open(path, "r+b") as fh:
+        fh.truncate(path.stat().st_size - 100)
+    with pytest.raises(InputError, match=r"ir\.tif.*truncated"):
+        open_frames(path)

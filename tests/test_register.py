@@ -242,6 +242,42 @@ def test_grid_interpolation_matches_scipy_regular_grid():
     np.testing.assert_allclose(maps[0][inside], rgi(yx), atol=1e-6)  # float32 output
 
 
+def test_grid_located_through_the_inverse_matches_scipy_and_the_iterative_path(rng):
+    # pixels located through the registration's inverse (a regular source lattice): under an
+    # affine registration the values are SciPy's bilinear RegularGridInterpolator at the exact
+    # inverse positions; under a homography the footprint, the whole-pixel test around a hole
+    # and the values are those of the path that solves the grid positions without the inverse
+    grid, gshape = dic_grid(0.7)
+    f = np.column_stack([np.sin(grid[:, 0] / 7.0) * np.cos(grid[:, 1] / 5.0), grid[:, 1] ** 2 / 100.0])
+    valid = (np.hypot(grid[:, 0] - 30, grid[:, 1] - 22) > 6.0) & (rng.random(len(grid)) > 0.02)
+    a = np.array([[4.1, 0.6, 25.0], [0.4, -3.9, 220.0], [0, 0, 1]])
+    affine = Transform2D(a, "affine")
+    maps, inside = resample_to_grid(affine.apply(grid), f, SHAPE, grid_shape=gshape,
+                                    source_points=grid, inverse=affine.inverse_apply)
+    rows, cols = np.nonzero(inside)
+    back = project(np.linalg.inv(a), np.column_stack([cols, rows]))
+    ys, xs = grid[::gshape[1], 1][::-1], grid[: gshape[1], 0]
+    yx = np.column_stack([np.clip(back[:, 1], ys[0], ys[-1]), np.clip(back[:, 0], xs[0], xs[-1])])
+    for k in range(2):
+        rgi = RegularGridInterpolator((ys, xs), f[:, k].reshape(gshape)[::-1], method="linear")
+        np.testing.assert_allclose(maps[k][inside], rgi(yx), rtol=1e-6, atol=1e-6)  # float32 output
+    homography = Transform2D(H_TRUE, "homography")
+    for whole in (False, True):
+        kw = dict(grid_shape=gshape, valid=valid, whole_pixels=whole)
+        direct = resample_to_grid(homography.apply(grid), f, SHAPE, source_points=grid,
+                                  inverse=homography.inverse_apply, **kw)
+        solved = resample_to_grid(homography.apply(grid), f, SHAPE, **kw)
+        np.testing.assert_array_equal(direct[1], solved[1])
+        np.testing.assert_allclose(direct[0], solved[0], rtol=1e-6, atol=1e-7)
+    # points that are no lattice (jittered) fall back to the iterative path: the same result
+    jitter = grid + rng.uniform(-0.05, 0.05, grid.shape)
+    direct = resample_to_grid(homography.apply(jitter), f, SHAPE, grid_shape=gshape, source_points=jitter,
+                              inverse=homography.inverse_apply)
+    solved = resample_to_grid(homography.apply(jitter), f, SHAPE, grid_shape=gshape)
+    np.testing.assert_array_equal(direct[1], solved[1])
+    np.testing.assert_array_equal(direct[0], solved[0])
+
+
 @pytest.mark.parametrize("regular", [True, False])
 def test_hole_and_edge_margin(regular):
     # open-hole coupon: correlation has no data in the hole (radius 6 mm at (30, 22) mm); the
@@ -301,6 +337,10 @@ def test_resample_errors():
         resample_to_grid(np.zeros((6, 2)), np.zeros(5), SHAPE)
     with pytest.raises(ValueError, match="edge_margin"):
         resample_to_grid(np.zeros((6, 2)), np.zeros(6), SHAPE, edge_margin=-1)
+    grid, gshape = dic_grid(15.0)
+    with pytest.raises(ValueError, match=r"source_points must have shape \(20, 2\)"):
+        resample_to_grid(grid, np.zeros(len(grid)), SHAPE, grid_shape=gshape, source_points=grid[:5],
+                         inverse=lambda q: q)
 
 
 # ---------------------------------------------------------------- ECC refinement

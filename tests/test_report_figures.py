@@ -89,12 +89,13 @@ def test_public_api_is_pinned():
 
 
 def test_png_files_have_the_figure_size_at_300_dpi(tmp_path):
+    # not a physics check: pixel size of the figures at the resolution for print
     ds = make_result()
     ref = np.random.default_rng(0).random((NY, NX))
     rows = [{"name": "ply 1", "z_top": 0.0, "z_bottom": 0.25e-3, "ratio": -3e-6},
             {"name": "ply 2", "z_top": 0.25e-3, "z_bottom": 0.5e-3, "ratio": -1e-6}]
     out = report.run_figures(ds, tmp_path, reference_image=ref, region_mask=np.ones((NY, NX), bool),
-                             ply_profile=rows, formats=("png", "pdf"))
+                             ply_profile=rows, formats=("png", "pdf"), dpi=300)
     assert list(out) == list(report.FIGURE_NAMES)
     builders = {
         "measured_vs_predicted": lambda: report.measured_vs_predicted_figure(ds),
@@ -467,3 +468,16 @@ def test_source_map_grid_has_one_panel_per_run_and_a_union_legend(tmp_path):
     w, h, _ = png_header(path)
     w_in, h_in = fig.get_size_inches()
     assert abs(w - w_in * 80) <= 1 and abs(h - h_in * 80) <= 1
+
+
+def test_maps_are_drawn_at_their_native_resolution_in_pdf(tmp_path):
+    # not a physics check: a vector file embeds each map's own pixels, not a copy resampled at
+    # the figure's dpi (image XObjects of the PDF, ISO 32000-1, 8.9.5)
+    ds = make_result()
+    out = report.run_figures(ds, tmp_path, formats=("pdf",), dpi=300)
+    for name in ("measured_vs_predicted", "residuals", "source_map"):
+        pdf = out[name].read_bytes()
+        sizes = [(int(w), int(h)) for w, h in re.findall(rb"/Width (\d+)\s*/Height (\d+)", pdf)]
+        sizes += [(int(w), int(h)) for h, w in re.findall(rb"/Height (\d+)\s*/Width (\d+)", pdf)]
+        # every image is a map at its own size, or the colour bar's strip
+        assert (NX, NY) in sizes and all(s == (NX, NY) or max(s) >= 10 * min(s) for s in sizes), (name, sizes)

@@ -536,6 +536,41 @@ def test_input_state_waits_for_count_and_marker(tmp_path, rng):
     assert len(open_sequence(tmp_path / "ir", exclude=[tmp_path / "ir" / "DONE"])) == 4
 
 
+def test_a_frame_folder_has_one_input_digest_and_each_member_is_read_once(tmp_path, rng, monkeypatch):
+    """Not a physics check: provenance plumbing. A folder of frames is one entry of the input
+    digests (over its members' names and contents, so a changed member changes it), and a run
+    of a campaign reads each member once for its stamp and its provenance together."""
+    import json
+
+    from fusion.campaign import _provenance
+    from fusion.run import input_digests
+
+    _write_tiffs(tmp_path / "ir", _frames(rng))
+    t = np.arange(FRAMES) / RATE
+    np.savetxt(tmp_path / "load.csv", np.column_stack([t, 11.0 + 4.5 * np.cos(2 * np.pi * FREQ * t)]),
+               delimiter=",", header="time,load", comments="")
+    cfg = _thermal_config(tmp_path, f'frames = "ir"\nframe_rate = "{RATE} Hz"\nload = "load.csv"')
+    x, y = (a.ravel() for a in np.meshgrid(np.arange(COLS, dtype=float), np.arange(ROWS, dtype=float)))
+    np.savetxt(tmp_path / "strain.csv", np.column_stack([x, y, np.full(x.size, 1e-3), np.zeros(x.size),
+                                                         np.zeros(x.size)]),
+               delimiter=",", header="x,y,exx,eyy,gxy", comments="")
+    run = load_config(cfg).runs[0]
+    got = input_digests(run)
+    assert [k for k in got if "ir" in os.path.basename(k)] == [str(tmp_path / "ir")]
+    _write_tiffs(tmp_path / "ir", _frames(rng, n=1), start=2)
+    assert input_digests(run)[str(tmp_path / "ir")] != got[str(tmp_path / "ir")]
+
+    calls = []
+    real = _provenance.content_digest
+    monkeypatch.setattr(_provenance, "content_digest", lambda p: calls.append(os.path.basename(p)) or real(p))
+    outcome = run_campaign(cfg, out=tmp_path / "out")
+    assert outcome.ok, outcome.describe()
+    members = [c for c in calls if c.startswith("frame_")]
+    assert sorted(members) == [f"frame_{i:04d}.tif" for i in range(FRAMES)]
+    summary = json.loads((tmp_path / "out" / "r" / "summary.json").read_text())
+    assert summary["provenance"]["inputs"][str(tmp_path / "ir")] == input_digests(run)[str(tmp_path / "ir")]
+
+
 def test_list_images_takes_only_images(tmp_path):
     _write_images(tmp_path / "vis", 3)
     (tmp_path / "vis" / "log.csv").write_text("image,load\n")

@@ -80,6 +80,7 @@ OTHER_MODULES = {
     "test_ownership.py": "what in an output folder is fusion's: publishing, recovery, refusals",
     "test_progress.py": "the progress display",
     "test_quoting.py": "file content quoted in messages",
+    "test_timings.py": "the bookkeeping of a run's step timings and their terminal line",
     "test_api_rebuild.py": "the Python API's steps against the command line's result.nc (two code paths)",
     "test_api_door.py": "error text of the plausibility checks at the Python API's door",
     "test_docs.py": "the API reference, docstring references, README example and package data",

@@ -5,7 +5,7 @@ from __future__ import annotations
 from ..config import Config, RunSpec, load_config
 from ..errors import ArgumentError
 from ..io import netcdf_form
-from ..run import compute_run, input_digests
+from ..run import INPUT_DIGEST, compute_run, input_digests
 
 __all__ = ["compute", "run_of"]
 
@@ -39,7 +39,7 @@ def compute(config, run, *, progress=False):
     xarray.Dataset
         Identical to ``<out>/<run>/result.nc`` of ``fusion run`` on the same config and inputs
         (every map with its units and long name on the IR grid ``(y, x)``, the global
-        attributes with the config text, the SHA-256 of the inputs and the strain settings as
+        attributes with the config text, the content digests of the inputs and the strain settings as
         JSON text, exactly as the file holds them). Nothing is written.
 
     Raises
@@ -59,5 +59,6 @@ def compute(config, run, *, progress=False):
     cfg, spec = run_of(config, run)
     result = compute_run(cfg, spec, progress=progress)
     ds = result.dataset
-    ds.attrs["input_sha256"] = input_digests(spec)
+    ds.attrs["input_digests"] = input_digests(spec)
+    ds.attrs["input_digest_algorithm"] = INPUT_DIGEST
     return netcdf_form(ds)

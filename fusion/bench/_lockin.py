@@ -2,13 +2,10 @@
 
 The reference is one parallel pass that reads every value of the stack and does
 almost nothing with it (:func:`reference_pass`, numba ``prange`` block sums): the
-fastest of a plain pass over rows unrolled by eight frames, a pass in the kernel's own
-groups of four frames with its software prefetch, each over image rows and over the
-kernel's bands of joined rows, and a pass giving each thread a contiguous chunk of
-whole frames summed into float32 or float64 (which is fastest depends on the dtype
-and the machine; on the development machine the prefetched rows and bands read
-fastest, the float32 frame chunks sometimes, the float64 frame chunks never: their
-parts do not stay in the L2 cache). No streaming algorithm over the stack can beat it
+fastest of a plain pass over rows unrolled by eight frames, the same over the kernel's
+bands of joined rows, and a pass giving each thread a contiguous chunk of whole frames
+summed into float32 or float64 (which is fastest depends on the dtype and the machine;
+the ratios against each are reported). No streaming algorithm over the stack can beat it
 by much. The lock-in is timed as the user calls it (:func:`fusion.thermal.lockin`,
 solve included).
 
@@ -46,7 +43,7 @@ import numpy as np
 import numba
 from numba import njit, prange
 
-from ..thermal._kernels import band_rows, banded, prefetch_group, vector_view
+from ..thermal._kernels import band_rows, banded
 
 __all__ = ["bench_lockin", "reference_pass"]
 
@@ -68,31 +65,6 @@ def _block_sum(frames, out):  # pragma: no cover - compiled
 
 
 @njit(parallel=True, cache=True)
-def _block_sum_prefetched(frames, out):  # pragma: no cover - compiled
-    # the lock-in kernel's own access pattern without its arithmetic: (n, Y, V, L) vectors,
-    # groups of four frames, the next group's lines of each vector prefetched before it
-    n, ny, nv, lanes = frames.shape
-    for y in prange(ny):
-        f = 0
-        while f + 4 <= n:
-            ahead = f + 8 <= n
-            for v in range(nv):
-                if ahead:
-                    prefetch_group(frames, f + 4, y, v)
-                for lane in range(lanes):
-                    out[y, v, lane] += ((np.float64(frames[f, y, v, lane])
-                                         + np.float64(frames[f + 1, y, v, lane]))
-                                        + (np.float64(frames[f + 2, y, v, lane])
-                                           + np.float64(frames[f + 3, y, v, lane])))
-            f += 4
-        while f < n:
-            for v in range(nv):
-                for lane in range(lanes):
-                    out[y, v, lane] += np.float64(frames[f, y, v, lane])
-            f += 1
-
-
-@njit(parallel=True, cache=True)
 def _frame_chunk_sum(frames, parts):  # pragma: no cover - compiled
     # each thread sums its own contiguous chunk of whole frames into its part: the longest
     # sequential reads there are (float32 parts stay in the L2 cache longer than float64)
@@ -105,14 +77,11 @@ def _frame_chunk_sum(frames, parts):  # pragma: no cover - compiled
                     parts[t, y, x] += frames[f, y, x]
 
 
-def reference_pass(frames, *, prefetched=False, bands=False, frame_chunks=False,
-                   chunk_dtype=np.float32):
+def reference_pass(frames, *, bands=False, frame_chunks=False, chunk_dtype=np.float32):
     """Sum of a (F, Y, X) stack over frames in one parallel pass (float64 result).
 
     The memory-bandwidth reference: every value is read once, with the row-parallel
-    schedule of the lock-in kernel; ``prefetched`` reads in the kernel's groups of four
-    frames and vectors with its software prefetch, ``bands`` walks the kernel's rows of
-    joined image rows (:func:`fusion.thermal._kernels.band_rows`). ``frame_chunks``
+    schedule of the lock-in kernel; ``bands`` walks the kernel's rows of joined image rows (:func:`fusion.thermal._kernels.band_rows`). ``frame_chunks``
     instead gives each thread a contiguous chunk of whole frames summed into
     ``chunk_dtype`` (other options ignored; float32 parts give the result float32
     rounding). Which is fastest depends on the machine and the dtype, so the benchmark
@@ -126,11 +95,7 @@ def reference_pass(frames, *, prefetched=False, bands=False, frame_chunks=False,
         return parts.sum(axis=0, dtype=np.float64)
     view = banded(frames, band_rows(ny, nx, frames.dtype) if bands else 1)
     out = np.zeros(view.shape[1:])
-    if prefetched:
-        view = vector_view(view)
-        _block_sum_prefetched(view, out.reshape(view.shape[1:]))
-    else:
-        _block_sum(view, out)
+    _block_sum(view, out)
     return out.reshape(ny, nx)
 
 
@@ -263,9 +228,9 @@ def bench_lockin(*, quick: bool = False, repeats: int | None = None) -> dict:
     i16 = _synthetic(*shape, rng, np.int16)
     f32_kw = dict(frequency=7.0, frame_rate=100.0)
     i16_kw = dict(frequency=7.0, frame_rate=100.0, gain=0.01, offset=200.0)
-    # the reads the limit is the fastest of: (prefetched, bands), bands only where rows join
-    # (a frame-chunk sum in float64, the most direct form of a block sum, comes last)
-    reads = {name: [dict(prefetched=p, bands=b) for p in (False, True) for b in (False, True)
+    # the reads the limit is the fastest of: rows, and bands where rows join (a frame-chunk
+    # sum in float64, the most direct form of a block sum, comes last)
+    reads = {name: [dict(bands=b) for b in (False, True)
                     if not b or band_rows(*stack.shape[1:], stack.dtype) > 1]
              + [dict(frame_chunks=True), dict(frame_chunks=True, chunk_dtype=np.float64)]
              for name, stack in (("f32", f32), ("i16", i16))}
@@ -286,7 +251,7 @@ def bench_lockin(*, quick: bool = False, repeats: int | None = None) -> dict:
     t_lf, t_np, t_l64, t_li = times[:4]
     nf = len(reads["f32"])
     read_f, read_i = times[4:4 + nf], times[4 + nf:]
-    plain_f, plain_i = read_f[0], read_i[0]     # (not prefetched, image rows) comes first
+    plain_f, plain_i = read_f[0], read_i[0]     # image rows come first
     t_rf, t_ri = min(read_f), min(read_i)       # the fastest read is the limit
     rows_f, rows_i = min(read_f[:-2]), min(read_i[:-2])   # reads in the kernel's row schedule
     wide_f, wide_i = read_f[-1], read_i[-1]

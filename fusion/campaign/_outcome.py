@@ -5,7 +5,23 @@ from __future__ import annotations
 import dataclasses
 from pathlib import Path
 
-__all__ = ["RunOutcome", "CampaignOutcome"]
+__all__ = ["RunOutcome", "CampaignOutcome", "timing_line"]
+
+# steps shorter than this are left out of the terminal line (summary.json has them all)
+_SHOWN_SECONDS = 0.05
+
+
+def timing_line(timings: dict | None) -> str | None:
+    """The steps of a run in one line (``correlation 3.1 s, lock-in 0.4 s, ...``), or None.
+
+    ``timings`` is summary.json's ``timings``: the steps in run order, then what no step claims.
+    """
+    if not isinstance(timings, dict) or not isinstance(timings.get("steps"), dict):
+        return None
+    parts = [(name, s) for name, s in timings["steps"].items() if isinstance(s, (int, float))]
+    parts.append(("other", timings.get("other")))
+    shown = [f"{name} {s:.1f} s" for name, s in parts if isinstance(s, (int, float)) and s >= _SHOWN_SECONDS]
+    return ", ".join(shown) or None
 
 
 @dataclasses.dataclass
@@ -51,6 +67,9 @@ class CampaignOutcome:
             else:
                 verdict = (r.summary or {}).get("verdict", "")
                 lines.append(f"  done    {r.name} ({r.seconds:.1f} s){': ' + verdict if verdict else ''}")
+                steps = timing_line((r.summary or {}).get("timings"))
+                if steps:
+                    lines.append(f"          time: {steps}")
                 # registration warnings change what the verdict means: shown here, not only in the report
                 lines += [f"          warning ({w['code']}): {w['message']}"
                           for w in _registration_warnings(r) if (w["code"], w["message"]) not in shared]

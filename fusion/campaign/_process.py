@@ -7,10 +7,11 @@ import shutil
 import time
 from pathlib import Path
 
+from .._timing import Timings, step
 from ..config import Config, load_config
 from ..errors import ConfigError, FusionError, InputError
 from ..io import make_temp_folder, safe_child
-from ..run import compute_run, write_run
+from ..run import compute_run, frames_within_budget, input_digests, write_run
 from ._folders import is_marked_folder, mark_folder, publish, refuse_foreign
 from ._outcome import RunOutcome
 from ._provenance import DigestCache, read_stamp, read_summary, run_stamp
@@ -27,6 +28,11 @@ def process_run(config_path, run_name: str, out, *, overwrite: bool = False,
     The function reads the config itself so that it can run on a Dask worker.
     """
     t0 = time.perf_counter()
+    with Timings().active():
+        return _process(config_path, run_name, out, overwrite=overwrite, progress=progress, config=config, t0=t0)
+
+
+def _process(config_path, run_name, out, *, overwrite, progress, config, t0) -> RunOutcome:
     try:
         cfg = config if config is not None else load_config(config_path)
         run = next((r for r in cfg.runs if r.name == run_name), None)
@@ -37,8 +43,13 @@ def process_run(config_path, run_name: str, out, *, overwrite: bool = False,
         ours = is_marked_folder(folder, run.name)
         if not ours:
             refuse_foreign(folder, run.name)   # nothing there, or someone else's: never replaced
+        # a header promising frames too large for the budget: refused before the stack is hashed
+        frames_within_budget(run, cfg.compute.memory_budget)
         digests = DigestCache.load(out)        # the campaign process keeps it; read only here
-        stamp = run_stamp(cfg, run, digests=digests)
+        with step("input digests"):
+            stamp = run_stamp(cfg, run, digests=digests)
+            # the provenance of the result: the digests the stamp was made from (no second read)
+            inputs = input_digests(run, digest=digests.digest)
         if ours and not overwrite:
             if read_stamp(folder) == stamp:
                 return RunOutcome(run.name, "skipped", folder, seconds=time.perf_counter() - t0,
@@ -48,7 +59,7 @@ def process_run(config_path, run_name: str, out, *, overwrite: bool = False,
         tmp = make_temp_folder(out, run.name, "partial")
         try:
             result = compute_run(cfg, run, progress=progress)
-            summary = write_run(result, tmp, cfg=cfg, run=run, stamp=stamp)
+            summary = write_run(result, tmp, cfg=cfg, run=run, stamp=stamp, inputs=inputs)
             digests.check_unchanged()          # the stamp names what was read
             mark_folder(tmp, run.name)         # last: a marked folder is a complete one
             publish(tmp, folder, run.name)

@@ -444,8 +444,9 @@ class ComputeSpec:
 
     workers: int = key(_schema.integer(low=1, high=1024), "Runs processed at once (default: the cores, "
                        "limited to available memory / (memory_budget + 400 MB)).")
-    memory_budget: float = key(_schema.quantity("B", positive=True), "Memory a run may use for frame "
-                               "chunks.", unit="B", default=2e9)
+    memory_budget: float = key(_schema.quantity("B", positive=True), "Memory a run may use for its "
+                               "per-pixel maps and frame chunks (frames too large for it are refused from "
+                               "the file's header).", unit="B", default=2e9)
     scheduler: str = key(_schema.string(pattern=r"(tcp|tls|inproc)://\S+|processes|threads|synchronous",
                                         hint="expected tcp://HOST:PORT, 'processes', 'threads' or "
                                              "'synchronous'"),
@@ -464,7 +465,8 @@ class OutputSpec:
     figures: bool = key(_schema.boolean, "Write figures.", default=True)
     formats: tuple = key(_schema.list_of(_schema.choice("png", "pdf"), min_len=1), "Figure formats.",
                          default=("png",))
-    dpi: int = key(_schema.integer(low=50, high=1200), "Figure resolution.", default=300)
+    dpi: int = key(_schema.integer(low=50, high=1200), "Resolution of PNG figures, dots per inch: 150 "
+                   "suits a screen; 300 or more for print (or formats = [\"pdf\"]).", default=150)
     profile_line: tuple = key(_schema.list_of(_schema.point, min_len=2, max_len=2),
                               "Line [[x0, y0], [x1, y1]] in IR px for the profile figure.")
     report: bool = key(_schema.boolean, "Write report.html.", default=True)

@@ -124,12 +124,11 @@ def strain_noise_factor(*, subset, step, window, order=1):
     h = window // 2
     phi = window_basis(h, order)
     ones = np.ones((window, window))
-    usable = np.zeros(window * window, dtype=np.bool_)
-    usable[h * window + h] = True
-    cov = window_covariance(ones, usable, h, lag_correlation(h, subset or None, step), phi)
+    centre = np.array([h * window + h], np.intp)
+    cov = window_covariance(ones, centre, h, lag_correlation(h, subset or None, step), phi)[0]
     a = np.einsum("pij,qij->pq", phi, phi)
     beta = np.linalg.inv(a)[1]
-    return float(math.sqrt(beta @ cov[h * window + h] @ beta))
+    return float(math.sqrt(beta @ cov @ beta))
 
 
 def resolution_attrs(*, subset, step, window, pixel_size=None):

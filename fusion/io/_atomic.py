@@ -109,8 +109,9 @@ def atomic_write_text(path, text: str, *, overwrite: bool = False) -> Path:
 def content_digest(path, *, chunk: int = 1 << 22) -> str:
     """Hex XXH3-128 digest of a file's bytes, read in chunks (constant memory).
 
-    A fast non-cryptographic hash: it tells whether content changed, not whether
-    someone forged it (the provenance of a result keeps SHA-256, :func:`sha256_file`).
+    A fast non-cryptographic hash: it tells whether content changed (the stamps that decide
+    whether a run is redone, and the provenance of a result), not whether someone forged it
+    (:func:`sha256_file` for that).
     """
     h = xxhash.xxh3_128()
     with open(path, "rb") as f:

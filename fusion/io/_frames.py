@@ -263,6 +263,9 @@ def _check_byte_order(path, sample, byte_order):
     """
     if sample.dtype.itemsize == 1 or sample.size < 2:
         return
+    if sample.ndim == 3:
+        # whole rows, evenly spread: the median over a few dozen of them is as telling
+        sample = sample[:, ::max(1, sample.shape[1] // 64)]
     as_given = _roughness(sample)
     other = _roughness(sample.view(sample.dtype.newbyteorder("S")))
     if np.isfinite(other) and other > 0 and as_given > 50 * other:
@@ -270,6 +273,11 @@ def _check_byte_order(path, sample, byte_order):
         raise InputError(path, f"looks byte-swapped: read as byte_order={byte_order!r}, neighbouring "
                          f"values differ by a median of {as_given:.3g}, read as {flip!r} by "
                          f"{other:.3g}; set byte_order = {flip!r} if the camera wrote {flip}-endian data")
+
+
+#: Frames up to this size (decoded bytes) are decoded once when a TIFF stack is opened (its last
+#: page, a check for truncation); larger ones only when read, after the memory budget is checked.
+_DECODE_CHECK_BYTES = 16 << 20
 
 
 def _open_tiff(path, dtype, shape, max_bytes):
@@ -300,7 +308,17 @@ def _open_tiff(path, dtype, shape, max_bytes):
         del mm
     except Exception:  # noqa: BLE001 - compressed or scattered pages: read page by page
         mapping = None
-    if mapping is None:
+    if mapping is None and shp[1] * shp[2] * dt.itemsize > _DECODE_CHECK_BYTES:
+        # too large to decode before the memory budget is checked: the last page's byte
+        # ranges, from the header, tell a truncated copy
+        with quiet_logger("tifffile"), decoding(path, "a TIFF stack (its last page is unreadable: truncated?)"):
+            with tifffile.TiffFile(path) as tif:
+                page = tif.series[0].pages[-1]
+                ends = [int(o) + int(n) for o, n in zip(page.dataoffsets, page.databytecounts)]
+        if not ends or max(ends) > os.path.getsize(path):
+            raise InputError(path, "its last page points past the end of the file: the file is truncated "
+                             "(copy it again)")
+    elif mapping is None:
         # the pages of a truncated copy point past the end: reading the last one tells
         with quiet_logger("tifffile"), decoding(path, "a TIFF stack (its last page is unreadable: truncated?)"):
             with tifffile.TiffFile(path) as tif:

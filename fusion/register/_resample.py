@@ -40,7 +40,9 @@ def _bilinear(p, i, j):
     i0 = np.clip(np.floor(i).astype(np.intp), 0, gy - 2)
     j0 = np.clip(np.floor(j).astype(np.intp), 0, gx - 2)
     a, b = (i - i0)[:, None], (j - j0)[:, None]
-    p00, p01, p10, p11 = p[i0, j0], p[i0, j0 + 1], p[i0 + 1, j0], p[i0 + 1, j0 + 1]
+    flat = p.reshape(-1, 2)
+    k = i0 * gx + j0                    # one flat gather per corner: faster than two index arrays
+    p00, p01, p10, p11 = flat[k], flat[k + 1], flat[k + gx], flat[k + gx + 1]
     x = (1 - a) * (1 - b) * p00 + (1 - a) * b * p01 + a * (1 - b) * p10 + a * b * p11
     da_ = (1 - b) * (p10 - p00) + b * (p11 - p01)
     db_ = (1 - a) * (p01 - p00) + a * (p11 - p10)
@@ -65,36 +67,106 @@ def _invert(p, q, i, j):
 
 # pixel corners a hair inside the pixel: on an identity grid a corner then belongs to its own node
 _CORNERS = 0.5 * (1.0 - 1e-6) * np.array([[-1, -1], [-1, 1], [1, -1], [1, 1]], np.float64)
+# a source grid is a regular lattice when every node lies this close to it, in units of its spacing
+# (text files keep about nine digits; far below what moves an interpolated value)
+_LATTICE_TOL = 1e-6
 
 
-def _grid_resample(pts, vals, ok, grid_shape, q, whole_pixels=False):
-    """Bilinear interpolation in the source grid's (row, col) parameter space.
+class _Locator:
+    """Grid parameters (i, j) of IR positions: the parameters whose bilinear blend of the four node
+    positions of their cell is the position, by Newton's method.
 
-    The IR position of a grid parameter (i, j) is the bilinear blend of the four node positions
-    of its cell; the parameter of each pixel centre is found by Newton's method started from a
-    piecewise-linear guess, then the values are blended with the same weights. For an affine
-    registration this is exact; for a homography the error is the curvature of the map over one
-    cell, negligible at correlation grid steps.
+    The first guess comes from the registration's inverse when the source points form a regular
+    lattice (``lattice`` = (origin, axes), ``inverse``): then one or two Newton steps remain, the
+    curvature of the map over a cell. Otherwise (an irregular grid, or a camera model with lens
+    distortion, which has no closed inverse) from a piecewise-linear interpolation over the
+    Delaunay triangulation of the nodes' IR positions.
+    """
+
+    def __init__(self, pts, grid_shape, lattice=None, inverse=None):
+        self.pts = pts
+        self.grid_shape = grid_shape
+        self.p = pts.reshape(*grid_shape, 2)
+        self.lattice = lattice if inverse is not None else None
+        self.inverse = inverse
+
+    def _guess(self, q):
+        if self.lattice is not None:
+            origin, axes = self.lattice
+            s = np.asarray(self.inverse(q), dtype=np.float64)
+            m = np.linalg.inv(axes)
+            dx, dy = s[:, 0] - origin[0], s[:, 1] - origin[1]
+            return np.column_stack([m[0, 0] * dx + m[0, 1] * dy, m[1, 0] * dx + m[1, 1] * dy])
+        gy, gx = self.grid_shape
+        ii, jj = np.mgrid[0:gy, 0:gx]
+        return LinearNDInterpolator(self.pts, np.column_stack([ii.ravel(), jj.ravel()]).astype(np.float64))(q)
+
+    def __call__(self, q, start=None):
+        """(i, j, found) of positions ``q``; ``start``: parameters near them (pixel corners)."""
+        if start is not None and self.lattice is None:
+            i, j = _invert(self.p, q, start[0].copy(), start[1].copy())
+            return i, j, np.isfinite(i) & np.isfinite(j)
+        guess = self._guess(q)
+        hit = np.all(np.isfinite(guess), axis=1)
+        i = np.full(len(q), np.nan)
+        j = np.full(len(q), np.nan)
+        i[hit], j[hit] = _invert(self.p, q[hit], guess[hit, 0].copy(), guess[hit, 1].copy())
+        if start is not None:
+            return i, j, np.isfinite(i) & np.isfinite(j)
+        found = hit.copy()
+        found[hit] = np.all(np.abs(q[hit] - _bilinear(self.p, i[hit], j[hit])[0]) < 1e-3, axis=1)
+        return i, j, found
+
+
+def _lattice(source, grid_shape):
+    """(origin, axes) of a regular lattice through the source points, or None when they are not one.
+
+    ``axes`` (2, 2) has the step along grid rows (i) and along grid columns (j) as its columns.
     """
     gy, gx = grid_shape
-    p = pts.reshape(gy, gx, 2)
+    s = np.asarray(source, dtype=np.float64).reshape(gy, gx, 2)
+    if not np.all(np.isfinite(s)):
+        return None
+    origin = s[0, 0]
+    step_i = (s[-1, 0] - origin) / (gy - 1)
+    step_j = (s[0, -1] - origin) / (gx - 1)
+    axes = np.column_stack([step_i, step_j])
+    spacing = min(np.hypot(*step_i), np.hypot(*step_j))
+    if not spacing > 0 or abs(np.linalg.det(axes)) < 1e-12 * spacing ** 2:
+        return None
+    ii, jj = np.mgrid[0:gy, 0:gx]
+    model = origin + ii[..., None] * step_i + jj[..., None] * step_j
+    if np.max(np.abs(s - model)) > _LATTICE_TOL * spacing:
+        return None
+    return origin, axes
+
+
+def _grid_resample(pts, vals, ok, grid_shape, q, whole_pixels=False, locate=None):
+    """Bilinear interpolation in the source grid's (row, col) parameter space.
+
+    ``locate(q)`` gives the grid parameters of IR positions (:class:`_Locator`; the IR position of
+    a parameter is the bilinear blend of the four node positions of its cell: exact for an affine
+    registration, and for a homography off by the curvature of the map over one cell, negligible
+    at correlation grid steps). The values are blended with the same weights.
+    """
+    gy, gx = grid_shape
     v = vals.reshape(gy, gx, -1)
     cell_ok = ok[:-1, :-1] & ok[1:, :-1] & ok[:-1, 1:] & ok[1:, 1:]
-    ii, jj = np.mgrid[0:gy, 0:gx]
-    guess = LinearNDInterpolator(pts, np.column_stack([ii.ravel(), jj.ravel()]).astype(np.float64))(q)
-    hit = np.all(np.isfinite(guess), axis=1)
-    q, idx = q[hit], np.flatnonzero(hit)
-    i, j = _invert(p, q, guess[hit, 0].copy(), guess[hit, 1].copy())
-    x, _, _, i0, j0, a, b = _bilinear(p, i, j)
+    if locate is None:
+        locate = _Locator(pts, grid_shape)
+    i, j, found = locate(q)
+    q, idx, i, j = q[found], np.flatnonzero(found), i[found], j[found]
+    i0 = np.clip(np.floor(i).astype(np.intp), 0, gy - 2)
+    j0 = np.clip(np.floor(j).astype(np.intp), 0, gx - 2)
+    a, b = (i - i0)[:, None], (j - j0)[:, None]
     eps = 1e-9
-    inside = (np.all(np.abs(q - x) < 1e-3, axis=1) & (i >= -eps) & (i <= gy - 1 + eps)
-              & (j >= -eps) & (j <= gx - 1 + eps) & cell_ok[i0, j0])
+    inside = ((i >= -eps) & (i <= gy - 1 + eps) & (j >= -eps) & (j <= gx - 1 + eps) & cell_ok[i0, j0])
     if whole_pixels and inside.any():
         # every part of the pixel nearer to a valid node than to a missing one; past the grid's
         # outer rows and columns the nearest node is the outermost one (unmeasured, not missing)
         sel = np.flatnonzero(inside)
         for corner in _CORNERS:
-            ci, cj = _invert(p, q[sel] + corner, i[sel].copy(), j[sel].copy())
+            ci, cj, _ = locate(q[sel] + corner, start=(i[sel], j[sel]))
             ni = np.clip(np.rint(np.nan_to_num(ci, nan=-1.0)), 0, gy - 1).astype(np.intp)
             nj = np.clip(np.rint(np.nan_to_num(cj, nan=-1.0)), 0, gx - 1).astype(np.intp)
             inside[sel] &= ok[ni, nj] & np.isfinite(ci) & np.isfinite(cj)
@@ -133,7 +205,7 @@ def _scattered_resample(pts, vals, q, max_edge, missing=None):
 
 
 def resample_to_grid(points_ir, values, shape, *, grid_shape=None, valid=None, edge_margin=0.0,
-                     max_edge=None, whole_pixels=False):
+                     max_edge=None, whole_pixels=False, source_points=None, inverse=None):
     """Resample values at correlation points onto every IR pixel centre.
 
     Parameters
@@ -165,6 +237,15 @@ def resample_to_grid(points_ir, values, shape, *, grid_shape=None, valid=None, e
         the outermost point counts). An infrared pixel averages the surface over its area, so
         one that reaches over a hole or a masked marker mixes in what the strain does not
         describe.
+    source_points : (N, 2) array_like, optional
+        With ``grid_shape`` and ``inverse``: the points before registration (e.g. correlation
+        coordinates), of which ``points_ir`` are the images.
+    inverse : callable, optional
+        Maps IR positions (M, 2) (col, row) back to the coordinates of ``source_points``, e.g.
+        ``Transform2D.inverse_apply``. When the source points form a regular lattice, each IR
+        pixel is located on the grid through it directly; otherwise (and without it, as for a
+        camera model with lens distortion) from a triangulation of ``points_ir``; either way the
+        position is then solved on the grid of ``points_ir`` by Newton's method.
 
     Returns
     -------
@@ -226,7 +307,14 @@ def resample_to_grid(points_ir, values, shape, *, grid_shape=None, valid=None, e
                 raise ValueError("points_ir must be finite on a regular grid; mark missing points "
                                  "with valid=False instead")
             q, flat = _pixel_centres((ny, nx), _bbox(pts))
-            sel, out = _grid_resample(pts, vals, ok.reshape(gy, gx), (gy, gx), q, whole_pixels)
+            lattice = None
+            if inverse is not None and source_points is not None:
+                src = np.asarray(source_points, dtype=np.float64)
+                if src.shape != pts.shape:
+                    raise ValueError(f"source_points must have shape {pts.shape!r}; got {src.shape!r}")
+                lattice = _lattice(src, (gy, gx))
+            locate = _Locator(pts, (gy, gx), lattice, inverse)
+            sel, out = _grid_resample(pts, vals, ok.reshape(gy, gx), (gy, gx), q, whole_pixels, locate)
         else:
             q, flat = _pixel_centres((ny, nx), _bbox(pts[ok]))
             located = np.all(np.isfinite(pts), axis=1)

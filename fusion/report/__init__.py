@@ -3,7 +3,8 @@
 Public names
 ------------
 run_figures
-    All figures of one run (PNG at 300 dpi, PDF/SVG on request), written atomically.
+    All figures of one run (PNG at 150 dpi for screens unless told otherwise, PDF/SVG on request),
+    written atomically.
 measured_vs_predicted_figure, residuals_figure, source_map_figure, overlay_figure,
 profile_figure, through_thickness_figure, heat_spread_figure
     The single figures as :class:`matplotlib.figure.Figure` objects.

@@ -15,7 +15,7 @@ import numpy as np
 
 from ..datamodel import SOURCES
 from ._style import (
-    CATEGORY_COLOURS, DIVERGING_CMAP, NO_DATA_COLOUR, SEQUENTIAL_CMAP, attr_float, category_label,
+    CATEGORY_COLOURS, MAP_INTERPOLATION, DIVERGING_CMAP, NO_DATA_COLOUR, SEQUENTIAL_CMAP, attr_float, category_label,
     engineering_exponent, frequency_text, pixel_size_mm, ratio_axis_label, ratio_formatter,
     ratio_limits, source_categories, symmetric_limit,
 )
@@ -123,7 +123,7 @@ def _map_grid(ds, panels, *, norm, cmap, cbar_label, exponent, title):
             ax.set_axis_off()
             continue
         name, data = panels[k]
-        im = ax.imshow(np.asarray(data), cmap=colormap, norm=norm, interpolation="nearest")
+        im = ax.imshow(np.asarray(data), cmap=colormap, norm=norm, interpolation=MAP_INTERPOLATION)
         im.set_gid(f"map:{name}")
         ax.set_title(name, fontsize=9)
         _decorate_axes(ax, ds)
@@ -258,7 +258,7 @@ def draw_source_map(ax, ds):
         index[raw == code] = i
     cmap = ListedColormap([CATEGORY_COLOURS.get(name, "#000000") for _c, name in order])
     norm = BoundaryNorm(np.arange(len(order) + 1) - 0.5, len(order))
-    im = ax.imshow(index, cmap=cmap, norm=norm, interpolation="nearest")
+    im = ax.imshow(index, cmap=cmap, norm=norm, interpolation=MAP_INTERPOLATION)
     im.set_gid("source_map")
     return present
 
@@ -340,12 +340,12 @@ def overlay_figure(ds, reference_image, *, region_mask=None, alpha: float = 0.6)
     ax = fig.subplots()
     finite = ref[np.isfinite(ref)]
     g_lo, g_hi = (np.percentile(finite, [0.5, 99.5]) if finite.size else (0.0, 1.0))
-    ax.imshow(ref, cmap="gray", vmin=g_lo, vmax=g_hi if g_hi > g_lo else g_lo + 1, interpolation="nearest",
+    ax.imshow(ref, cmap="gray", vmin=g_lo, vmax=g_hi if g_hi > g_lo else g_lo + 1, interpolation=MAP_INTERPOLATION,
               gid="reference_image")
     lo, hi = ratio_limits([measured])
     exponent = engineering_exponent(max(abs(lo), abs(hi)))
     cmap = matplotlib.colormaps[SEQUENTIAL_CMAP].with_extremes(bad=(0, 0, 0, 0))
-    im = ax.imshow(measured, cmap=cmap, norm=Normalize(lo, hi), alpha=alpha, interpolation="nearest")
+    im = ax.imshow(measured, cmap=cmap, norm=Normalize(lo, hi), alpha=alpha, interpolation=MAP_INTERPOLATION)
     im.set_gid("map:measured")
     handles = []
     if region_mask is not None:

@@ -8,7 +8,7 @@ import numpy as np
 
 from ._figures import FIGURE_WIDTH, _decorate_axes, evaluated_sources, map_title, new_figure
 from ._style import (
-    CATEGORY_COLOURS, NO_DATA_COLOUR, SEQUENTIAL_CMAP, SOURCE_LINESTYLES, attr_float, category_label,
+    CATEGORY_COLOURS, MAP_INTERPOLATION, NO_DATA_COLOUR, SEQUENTIAL_CMAP, SOURCE_LINESTYLES, attr_float, category_label,
     engineering_exponent, pixel_size_mm, ratio_axis_label, ratio_formatter, ratio_limits,
 )
 
@@ -135,7 +135,7 @@ def profile_figure(ds, line=None, *, sources=None):
     ax_map, ax = fig.subplots(1, 2, width_ratios=[1.0, 1.7])
     lo, hi = ratio_limits([measured])
     cmap = matplotlib.colormaps[SEQUENTIAL_CMAP].with_extremes(bad=NO_DATA_COLOUR)
-    ax_map.imshow(measured, cmap=cmap, norm=Normalize(lo, hi), interpolation="nearest")
+    ax_map.imshow(measured, cmap=cmap, norm=Normalize(lo, hi), interpolation=MAP_INTERPOLATION)
     ax_map.plot([x0, x1], [y0, y1], color="white", linewidth=2.6)
     ax_map.plot([x0, x1], [y0, y1], color="black", linewidth=1.2, gid="profile_line")
     for label, (x, y) in (("A", (x0, y0)), ("B", (x1, y1))):

@@ -13,7 +13,7 @@ from ._figures import (
 from ._profiles import default_profile_line, profile_figure, through_thickness_figure
 from ._spread import heat_spread_figure
 
-__all__ = ["run_figures", "save_figure", "FIGURE_NAMES"]
+__all__ = ["run_figures", "save_figure", "FIGURE_NAMES", "DEFAULT_DPI"]
 
 #: Figure names in report order.
 FIGURE_NAMES = ("measured_vs_predicted", "residuals", "heat_spread", "source_map", "overlay", "profile",
@@ -22,19 +22,28 @@ FIGURE_NAMES = ("measured_vs_predicted", "residuals", "heat_spread", "source_map
 _FORMATS = {"png", "pdf", "svg"}
 
 
-def save_figure(fig, path, *, dpi: int = 300, overwrite: bool = False) -> Path:
+#: Figure resolution (dots per inch) of PNG figures by default: sharp on a screen at the
+#: report's 7 in text width; 300 or more for print (``[output] dpi``), or PDF.
+DEFAULT_DPI = 150
+# zlib level of PNG figures: the fastest (the files are somewhat larger than at the default
+# level, and the pixels the same)
+_PNG_COMPRESSION = 1
+
+
+def save_figure(fig, path, *, dpi: int = DEFAULT_DPI, overwrite: bool = False) -> Path:
     """Write ``fig`` to ``path`` (format from the suffix) through a temporary name.
 
     PDF and SVG are written without a creation date so that the same figure
-    gives the same bytes (reproducible outputs).
+    gives the same bytes (reproducible outputs); PNG with the fastest compression.
     """
     path = Path(path)
     fmt = path.suffix.lstrip(".").lower()
     if fmt not in _FORMATS:
         raise ValueError(f"figure path {str(path)!r}: suffix must be one of {sorted(_FORMATS)}")
     metadata = {"png": None, "pdf": {"CreationDate": None}, "svg": {"Date": None}}[fmt]
+    extra = {"pil_kwargs": {"compress_level": _PNG_COMPRESSION}} if fmt == "png" else {}
     with atomic_path(path, overwrite=overwrite) as tmp:
-        fig.savefig(tmp, format=fmt, dpi=dpi, metadata=metadata)
+        fig.savefig(tmp, format=fmt, dpi=dpi, metadata=metadata, **extra)
     return path
 
 
@@ -48,7 +57,7 @@ def _check_formats(formats):
     return formats
 
 
-def run_figures(ds, out_dir, *, formats=("png",), dpi=300, reference_image=None, region_mask=None,
+def run_figures(ds, out_dir, *, formats=("png",), dpi=DEFAULT_DPI, reference_image=None, region_mask=None,
                 profile_line=None, ply_profile=None, overwrite: bool = False) -> dict[str, Path]:
     """Write the figures of one run.
 
@@ -61,7 +70,8 @@ def run_figures(ds, out_dir, *, formats=("png",), dpi=300, reference_image=None,
     formats : sequence of {"png", "pdf", "svg"}
         File formats; the first is the one returned.
     dpi : int
-        Resolution of raster output, dots per inch.
+        Resolution of raster output, dots per inch (:data:`DEFAULT_DPI` for screens; 300 or
+        more for print).
     reference_image : (Y, X) ndarray, optional
         Visible reference image on the IR grid; enables ``overlay``.
     region_mask : (Y, X) bool ndarray, optional
@@ -112,6 +122,8 @@ def run_figures(ds, out_dir, *, formats=("png",), dpi=300, reference_image=None,
             path = save_figure(fig, out_dir / f"{name}.{fmt}", dpi=int(dpi), overwrite=overwrite)
             if k == 0:
                 written[name] = path
+                # laid out once: the other formats keep the positions found for the first
+                fig.set_layout_engine("none")
     return written
 
 

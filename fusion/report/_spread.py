@@ -14,7 +14,7 @@ import numpy as np
 
 from ._figures import FIGURE_WIDTH, _decorate_axes, map_title, new_figure
 from ._style import (
-    CATEGORY_COLOURS, DIVERGING_CMAP, NO_DATA_COLOUR, SOURCE_LINESTYLES,
+    CATEGORY_COLOURS, MAP_INTERPOLATION, DIVERGING_CMAP, NO_DATA_COLOUR, SOURCE_LINESTYLES,
     engineering_exponent, pixel_size_mm, ratio_axis_label, ratio_formatter, symmetric_limit,
 )
 
@@ -113,7 +113,7 @@ def heat_spread_figure(ds):
     im = None
     for k, (s, data) in enumerate(zip(present, maps)):
         ax = fig.add_subplot(grid[0, k])
-        im = ax.imshow(data, cmap=cmap, norm=Normalize(-v, v), interpolation="nearest")
+        im = ax.imshow(data, cmap=cmap, norm=Normalize(-v, v), interpolation=MAP_INTERPOLATION)
         im.set_gid(f"map:{s}")
         if "lateral_edge" in ds.data_vars:
             cs = ax.contour(ds["lateral_edge"].values.astype(float), levels=[0.5], colors="k",

@@ -20,7 +20,7 @@ __all__ = [
     "CATEGORY_COLOURS", "SEQUENTIAL_CMAP", "DIVERGING_CMAP", "NO_DATA_COLOUR", "RATIO_PERCENTILES",
     "RESIDUAL_PERCENTILE", "category_label", "source_categories", "ratio_limits",
     "symmetric_limit", "engineering_exponent", "ratio_axis_label", "ratio_formatter",
-    "attr_float", "frequency_text", "pixel_size_mm",
+    "attr_float", "frequency_text", "pixel_size_mm", "MAP_INTERPOLATION",
 ]
 
 #: One colour for pixels without valid data in every map figure: a dark grey, far from every
@@ -50,6 +50,11 @@ SOURCE_LINESTYLES = {
     "model": (0, (1, 1)),
     "lateral": (0, (4, 1, 1, 1)),
 }
+
+#: How maps are drawn: at their native resolution. PDF and SVG embed the map's own pixels (not
+#: a copy resampled at the figure's dpi); raster output shows each figure pixel the map pixel
+#: under it, so no two values or categories are ever blended.
+MAP_INTERPOLATION = "none"
 
 SEQUENTIAL_CMAP = "viridis"
 DIVERGING_CMAP = "coolwarm"

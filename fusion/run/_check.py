@@ -24,7 +24,7 @@ def check_run_inputs(cfg, run, *, key) -> str:
     parts = []
     fr = None
     if t.frames is not None:
-        fr = open_thermal_frames(t, key=f"{key}.thermal")
+        fr = open_thermal_frames(t, key=f"{key}.thermal", budget=cfg.compute.memory_budget)
         check_frames(t.frames, t, fr)
         seq = getattr(fr, "sequence", None)
         where = f" in {len(seq)} {seq.kind} files" if seq is not None else ""

@@ -16,6 +16,7 @@ import numpy as np
 
 from .. import __version__
 from .._conventions import short_repr
+from .._timing import step
 from ..datamodel import SOURCES, result_dataset
 from ..diagnose import (apply_calibration, calibration_factor, diagnose, measured_ratio, region_mask,
                         region_table)
@@ -61,25 +62,32 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
     # a deprecated key still works this release; the run's warnings say how to rewrite it
     warnings: list = [{"code": "deprecated_key", "message": m} for m in run.deprecations()]
 
-    load_range = run_load_range(run)
-    ranges, disp = strain_side(run, load_range=load_range, progress=progress)
+    thermal_step = "lock-in" if run.thermal.frames is not None else "thermal maps"
+    with step(thermal_step):
+        load_range = run_load_range(run)
+    with step("strain inputs"):
+        ranges, disp = strain_side(run, load_range=load_range, progress=progress)
 
     budget = cfg.compute.memory_budget
-    thermal, t_valid, t_info, _ = thermal_side(run, budget=budget, progress=progress)
+    with step(thermal_step):
+        thermal, t_valid, t_info, _ = thermal_side(run, budget=budget, progress=progress)
     frequency = t_info.get("frequency") or run.frequency
     warnings += t_info.get("warnings", [])
     ir_shape = thermal["T0"].shape
 
-    registered = registration_side(run, reg, ranges, ir_shape, thermal["T0"])
-    if reg.refine and registered.transform is not None:
-        registered = refine_registration(run, reg, ranges, lam, thermal, t_valid, registered, warnings)
+    with step("registration"):
+        registered = registration_side(run, reg, ranges, ir_shape, thermal["T0"])
+        if reg.refine and registered.transform is not None:
+            registered = refine_registration(run, reg, ranges, lam, thermal, t_valid, registered, warnings)
     warnings += registered.warnings
     smaps, inside, reg_report, transform = (registered.maps, registered.inside, registered.report,
                                             registered.transform)
     if run.thermal.motion_compensation:
-        thermal, t_valid, t_info, motion = _motion_compensated(run, budget, disp, transform, load_range,
-                                                               ir_shape, progress)
-        inside = inside & motion_support(registered, motion, load_range)
+        with step(thermal_step):
+            thermal, t_valid, t_info, motion = _motion_compensated(run, budget, disp, transform, load_range,
+                                                                   ir_shape, progress)
+        with step("registration"):
+            inside = inside & motion_support(registered, motion, load_range)
 
     strain = np.moveaxis(smaps[:3], 0, -1).astype(np.float32)          # (Y, X, 3)
     strain_std = np.moveaxis(smaps[3:6], 0, -1).astype(np.float32)
@@ -93,42 +101,46 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
                          "no pixel has both usable thermal data and strain data: check the "
                          "registration (points, method) and the signal-to-noise ratio")
 
-    sources, axes = _sources(cfg, run, transform, ranges, inside)
-    pred, pstd, plag, pinfo = predictions(lam, strain, strain_std, frequency, sources=sources,
-                                          property_uncertainty=dg.property_uncertainty, pixel_axes=axes)
+    with step("predictions"):
+        sources, axes = _sources(cfg, run, transform, ranges, inside)
+        pred, pstd, plag, pinfo = predictions(lam, strain, strain_std, frequency, sources=sources,
+                                              property_uncertainty=dg.property_uncertainty, pixel_axes=axes)
     lateral_edge = pinfo.pop("lateral_edge_map", None)
     missing = [s for s in (dg.sources or ()) if s in sources and s not in pred]
     if missing:
         warnings.append(f"sources {missing} not evaluated: the laminate has no such layer")
 
-    regions = {r.name: _region(r, ir_shape) for r in dg.regions}
-    calibration = None
-    if dg.calibration is not None:
-        measured, measured_std, calibration = _calibrate(dg.calibration, regions, valid, measured,
-                                                         measured_std, pred, pstd)
-        warnings.append(f"infrared measurement calibrated by a factor {calibration['factor']:.3f} ± "
-                        f"{calibration['factor_std']:.3f} on region {dg.calibration.region!r} assumed to "
-                        f"show the {calibration['source']}")
+    with step("diagnosis"):
+        regions = {r.name: _region(r, ir_shape) for r in dg.regions}
+        calibration = None
+        if dg.calibration is not None:
+            measured, measured_std, calibration = _calibrate(dg.calibration, regions, valid, measured,
+                                                             measured_std, pred, pstd)
+            warnings.append(f"infrared measurement calibrated by a factor {calibration['factor']:.3f} ± "
+                            f"{calibration['factor_std']:.3f} on region {dg.calibration.region!r} assumed to "
+                            f"show the {calibration['source']}")
 
-    # both heat models mix layers: named only where no layer fits, the lateral one first
-    diag = diagnose(measured, measured_std, pred, pstd, valid=valid, measured_lag=lag,
-                    measured_lag_std=lag_std, predicted_lag=plag, fit_threshold=dg.fit_threshold,
-                    distinguish=dg.distinguish, secondary=("lateral", "model"))
-    table = _flat_regions(region_table(measured, diag, pred, regions=regions, valid=valid))
+        # both heat models mix layers: named only where no layer fits, the lateral one first
+        diag = diagnose(measured, measured_std, pred, pstd, valid=valid, measured_lag=lag,
+                        measured_lag_std=lag_std, predicted_lag=plag, fit_threshold=dg.fit_threshold,
+                        distinguish=dg.distinguish, secondary=("lateral", "model"))
+        table = _flat_regions(region_table(measured, diag, pred, regions=regions, valid=valid))
 
-    maps = _result_maps(thermal, measured, measured_std, snr, lag, strain, strain_std, smaps[6], pred, pstd,
-                        plag, diag, valid)
-    if lateral_edge is not None:
-        maps["lateral_edge"] = lateral_edge.astype(np.int8)
-    meta = _meta(run, lam, frequency, reg_report, t_info, ranges, calibration, pinfo, valid)
-    attrs = _attrs(cfg, run, meta, reg_report, ranges, pred, calibration)
-    ds = result_dataset(maps, attrs=attrs, sources=tuple(pred))
-    # each strain map states its spatial resolution and noise floor (and so does its std)
-    for k, name in enumerate(("delta_eps_xx", "delta_eps_yy", "delta_gamma_xy")):
-        for var in (name, f"{name}_std"):
-            ds[var].attrs.update(ranges.map_attrs(k))
-    fig_inputs = {"region_mask": inside, "ply_profile": _ply_profile(lam, strain, valid),
-                  "reference_image": _reference_on_ir(run, transform, ir_shape)}
+        maps = _result_maps(thermal, measured, measured_std, snr, lag, strain, strain_std, smaps[6], pred, pstd,
+                            plag, diag, valid)
+        if lateral_edge is not None:
+            maps["lateral_edge"] = lateral_edge.astype(np.int8)
+        meta = _meta(run, lam, frequency, reg_report, t_info, ranges, calibration, pinfo, valid)
+        attrs = _attrs(cfg, run, meta, reg_report, ranges, pred, calibration)
+        ds = result_dataset(maps, attrs=attrs, sources=tuple(pred))
+        # each strain map states its spatial resolution and noise floor (and so does its std)
+        for k, name in enumerate(("delta_eps_xx", "delta_eps_yy", "delta_gamma_xy")):
+            for var in (name, f"{name}_std"):
+                ds[var].attrs.update(ranges.map_attrs(k))
+        with step("figures"):
+            reference = _reference_on_ir(run, transform, ir_shape)
+        fig_inputs = {"region_mask": inside, "ply_profile": _ply_profile(lam, strain, valid),
+                      "reference_image": reference}
     return RunResult(ds, table, warnings, meta, fig_inputs)
 
 

@@ -3,13 +3,19 @@
 from __future__ import annotations
 
 import dataclasses
+import json
 from pathlib import Path
 
+import xxhash
+
 from ..errors import FusionError
-from ..io import input_file, is_sequence, list_images, list_sequence, sha256_file
+from ..io import content_digest, input_file, is_sequence, list_images, list_sequence
 
 __all__ = ["need_file", "input_files", "input_digests", "sequence_files", "frame_sequence", "image_sequence",
-           "beside_frames", "beside_images"]
+           "beside_frames", "beside_images", "INPUT_DIGEST"]
+
+#: The hash of the input digests in result.nc and summary.json (the one the campaign's stamps use).
+INPUT_DIGEST = "xxh3-128"
 
 
 def need_file(path: Path, key: str) -> Path:
@@ -38,13 +44,10 @@ def image_sequence(spec):
     return list_images(spec.images, exclude=beside_images(spec))
 
 
-def input_files(run) -> list[Path]:
-    """Every file a run reads, in config order (thermal side, then correlation side).
-
-    A folder or pattern of frames or images stands for its files (in frame order); one
-    that cannot be listed (missing, empty) stands for itself.
-    """
-    files = []
+def _inputs(run):
+    """(path, members) of every input of a run in config order: ``members`` are the files of a
+    folder or pattern of frames or images (in frame order), None for a single file or for a
+    sequence that cannot be listed (missing, empty)."""
     for spec in (run.thermal, run.dic):
         for f in dataclasses.fields(spec):
             v = getattr(spec, f.name)
@@ -52,13 +55,25 @@ def input_files(run) -> list[Path]:
                 try:
                     seq = frame_sequence(spec) if f.name == "frames" else image_sequence(spec)
                 except FusionError:
-                    files.append(v)
+                    yield v, None
                 else:
-                    files.extend(seq.files)
+                    yield v, list(seq.files)
             elif isinstance(v, Path):
-                files.append(v)
+                yield v, None
             elif isinstance(v, tuple) and v and all(isinstance(x, Path) for x in v):
-                files.extend(v)
+                for x in v:
+                    yield x, None
+
+
+def input_files(run) -> list[Path]:
+    """Every file a run reads, in config order (thermal side, then correlation side).
+
+    A folder or pattern of frames or images stands for its files (in frame order); one
+    that cannot be listed (missing, empty) stands for itself.
+    """
+    files = []
+    for path, members in _inputs(run):
+        files.extend(members if members is not None else [path])
     return files
 
 
@@ -75,6 +90,22 @@ def sequence_files(run) -> list[Path]:
     return files
 
 
-def input_digests(run) -> dict[str, str]:
-    """SHA-256 of every input file of a run that exists, by path (``input_sha256`` of result.nc)."""
-    return {str(p): sha256_file(p) for p in input_files(run) if Path(p).is_file()}
+def input_digests(run, digest=content_digest) -> dict[str, str]:
+    """The content digest (:data:`INPUT_DIGEST`) of every input of a run that exists, by path.
+
+    A folder or pattern of frames or images has one digest, over its members' names and
+    digests in order (its entry stays small however many frames it holds). ``digest(path)``
+    hashes one file (None when it is not a readable regular file); pass a cache's to reuse
+    digests already made (each file is then read once).
+    """
+    out = {}
+    for path, members in _inputs(run):
+        if members is None:
+            d = digest(path) if Path(path).is_file() else None
+        else:
+            parts = [[p.name, digest(p)] for p in members]
+            d = None if any(x is None for _, x in parts) else \
+                xxhash.xxh3_128(json.dumps(parts).encode()).hexdigest()
+        if d is not None:
+            out[str(path)] = d
+    return out

@@ -12,31 +12,76 @@ import numpy as np
 from ..errors import ConfigError, FusionError, InputError
 from ..io import (file_identity, is_sequence, open_frames, open_sequence, read_frame_times, read_load_log,
                   read_sequence_times)
+from ..thermal import SAMPLE_FRAMES
 from ._files import beside_frames, frame_sequence, image_sequence, need_file
 
-__all__ = ["open_thermal_frames", "frame_times", "speckle_images", "SpeckleImages", "reference_image_path",
+__all__ = ["open_thermal_frames", "frames_within_budget", "frame_memory", "PIXEL_BYTES", "MOTION_PIXEL_BYTES", "frame_times", "speckle_images", "SpeckleImages", "reference_image_path",
            "input_state", "InputState"]
 
 
-def open_thermal_frames(spec, *, key="thermal", progress=False):
+#: Memory a run holds per pixel of one frame whatever the number of frames, bytes: the
+#: lock-in's float64 sums and per-pixel limits, the maps of result.nc, the registration,
+#: prediction and diagnosis temporaries and the figures' copies.
+PIXEL_BYTES = 600
+#: The same with motion compensation (the motion field, its spline coefficients and a warped
+#: frame block beside the stack's).
+MOTION_PIXEL_BYTES = 1200
+
+
+def frame_memory(frames, *, motion=False) -> int:
+    """Bytes of a run that grow with the frame area of ``frames`` (a stack's shape and dtype),
+    not with its length: the per-pixel maps (:data:`PIXEL_BYTES`) and the frames sampled
+    for the stack checks (:data:`fusion.thermal.SAMPLE_FRAMES`, as stored)."""
+    area = int(np.prod(frames.shape[1:], dtype=np.float64))
+    sampled = min(int(frames.shape[0]), SAMPLE_FRAMES) * np.dtype(frames.dtype).itemsize
+    return area * ((MOTION_PIXEL_BYTES if motion else PIXEL_BYTES) + sampled)
+
+
+def _within_budget(path, frames, budget, motion):
+    """Refuse, from the header alone, a stack whose frames are too large for the memory budget."""
+    need = frame_memory(frames, motion=motion)
+    if need > budget:
+        ny, nx = frames.shape[1:]
+        raise InputError(path, f"frames of {ny}x{nx} px need about {need / 1e6:,.0f} MB of per-pixel maps "
+                         f"whatever their number, more than [compute] memory_budget = {budget / 1e6:,.0f} MB: "
+                         "check that the frame size (shape, or the file's header) is right, or raise "
+                         "memory_budget if this machine has the memory")
+
+
+def open_thermal_frames(spec, *, key="thermal", progress=False, budget=None):
     """The frames of a run: a stack file, or a folder or pattern of per-frame files.
 
     Returns a lazy stack (``FrameStack`` or ``SequenceStack``) the lock-in streams in blocks.
+    ``budget`` (bytes, ``[compute] memory_budget``): frames whose per-pixel memory
+    (:func:`frame_memory`) exceeds it are refused from their header, before any is read.
     """
     if is_sequence(spec.frames):
-        return open_sequence(spec.frames, name_time=spec.name_time, time_unit=spec.time_unit,
-                             decimal=spec.decimal, exclude=beside_frames(spec), frame_count=spec.frame_count,
-                             progress=progress)
-    if spec.name_time is not None:
-        raise ConfigError(f"{key}.name_time", f"reads times from the names of a folder or pattern of frame "
-                          f"files; frames = {str(spec.frames)!r} is one file (use times or frame_rate)")
-    path = need_file(spec.frames, f"{key}.frames")
-    frames = open_frames(path, dtype=spec.dtype, shape=spec.shape, byte_order=spec.byte_order,
-                         dataset=spec.dataset, header_bytes=spec.header_bytes)
-    if spec.frame_count is not None and frames.shape[0] != spec.frame_count:
-        raise InputError(path, f"holds {frames.shape[0]} frames, frame_count says {spec.frame_count}: the "
-                         "stack is incomplete or frame_count is wrong")
+        frames = open_sequence(spec.frames, name_time=spec.name_time, time_unit=spec.time_unit,
+                               decimal=spec.decimal, exclude=beside_frames(spec), frame_count=spec.frame_count,
+                               progress=progress)
+        path = spec.frames
+    else:
+        if spec.name_time is not None:
+            raise ConfigError(f"{key}.name_time", f"reads times from the names of a folder or pattern of frame "
+                              f"files; frames = {str(spec.frames)!r} is one file (use times or frame_rate)")
+        path = need_file(spec.frames, f"{key}.frames")
+        frames = open_frames(path, dtype=spec.dtype, shape=spec.shape, byte_order=spec.byte_order,
+                             dataset=spec.dataset, header_bytes=spec.header_bytes)
+        if spec.frame_count is not None and frames.shape[0] != spec.frame_count:
+            raise InputError(path, f"holds {frames.shape[0]} frames, frame_count says {spec.frame_count}: the "
+                             "stack is incomplete or frame_count is wrong")
+    if budget is not None:
+        _within_budget(path, frames, budget, bool(spec.motion_compensation))
     return frames
+
+
+def frames_within_budget(run, budget) -> None:
+    """Refuse a run's frame stack file whose header promises frames too large for ``budget``
+    (:func:`frame_memory`), reading nothing beyond the header: before the stack is hashed
+    or sampled. A folder or pattern of frames is checked when it is opened."""
+    spec = run.thermal
+    if spec.frames is not None and not is_sequence(spec.frames) and Path(spec.frames).is_file():
+        open_thermal_frames(spec, budget=budget)
 
 
 def frame_times(spec, frames, load_sig):

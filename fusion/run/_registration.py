@@ -319,16 +319,19 @@ def registration_side(run, reg, ranges, ir_shape, T0, *, previous=None, transfor
     values = np.column_stack([_arr(getattr(ranges, k), n) for k in _VALUES])
     # no margin: the strain fits keep to the valid data up to its edges; a pixel keeps a value
     # only where its whole area lies on usable correlation points
+    # a plane registration maps IR pixels straight back onto the correlation grid; a camera model
+    # with lens distortion has no closed inverse
+    direct = {} if camera is not None else {"source_points": pts, "inverse": transform.inverse_apply}
     maps, usable = resample_to_grid(ir, values, ir_shape, grid_shape=ranges.grid_shape,
-                                    valid=valid & ~dic_excl, whole_pixels=True)
+                                    valid=valid & ~dic_excl, whole_pixels=True, **direct)
     footprint = usable
     # where the grid lands at all (registration alone decides it)
-    _, covered = resample_to_grid(ir, np.zeros((n, 1)), ir_shape, grid_shape=ranges.grid_shape)
+    _, covered = resample_to_grid(ir, np.zeros((n, 1)), ir_shape, grid_shape=ranges.grid_shape, **direct)
     masked = ir_excl.copy()
     if dic_excl.any():
         # the IR image of an exclusion in correlation coordinates is masked too (not "missing")
         _, before = resample_to_grid(ir, np.zeros((n, 1)), ir_shape, grid_shape=ranges.grid_shape, valid=valid,
-                                     whole_pixels=True)
+                                     whole_pixels=True, **direct)
         masked |= before & ~usable
     centres, radii = markers
     on_markers = disk_mask(ir_shape, centres, np.asarray(radii, float) + reg.marker_margin)

@@ -6,6 +6,7 @@ import dataclasses
 
 import numpy as np
 
+from .._timing import step
 from ..dic import correlate, ranges_from_series, ranges_from_states, ranges_from_strain_table
 from ..errors import ConfigError, InputError
 from ..io import check_load_ranges, check_strain_ranges, read_dic_field, read_image
@@ -64,7 +65,8 @@ def _computed_strains(r, path):
 def _ranges(path, fn, *args, **kw):
     """A range computation whose refusal names the file it came from."""
     try:
-        return fn(*args, **kw)
+        with step("strain fit"):
+            return fn(*args, **kw)
     except ValueError as e:
         raise InputError(path, f"no strain ranges from this field: {e}") from e
 
@@ -130,8 +132,9 @@ def strain_side(run, *, load_range=None, progress=False):
         fields = []
         for i, img in enumerate(imgs[1:], 1):
             try:
-                res = correlate(imgs[0], img, subset=spec.subset, step=spec.step, region=region,
-                                progress=progress)
+                with step("correlation"):
+                    res = correlate(imgs[0], img, subset=spec.subset, step=spec.step, region=region,
+                                    progress=progress)
             except ValueError as e:
                 raise InputError(paths[i], f"correlation: {e}") from e
             ok = np.asarray(res.converged).mean() if np.size(res.converged) else 0.0

@@ -17,7 +17,7 @@ from ..register import resample_to_grid
 from ..thermal import (alias_candidates, estimate_frequency, layout_problem, load_reference, lockin,
                        motion_compensate, sample_frames)
 from ._files import need_file
-from ._inputs import frame_times, open_thermal_frames
+from ._inputs import frame_memory, frame_times, open_thermal_frames
 
 __all__ = ["thermal_side", "maps_side", "prepared_maps", "load_range", "run_load_range", "motion_field",
            "load_and_frequency", "check_frames", "LOAD_CLOCK_FACTOR", "FREQUENCY_SIGMAS", "FREQUENCY_MISMATCH",
@@ -60,9 +60,9 @@ def _clock(spec, frames, load_sig):
     return times, t, rate
 
 
-def _open(spec, progress=False):
+def _open(spec, progress=False, budget=None):
     """The frames of a run: a stack file, or a folder or pattern of per-frame files."""
-    return spec.frames, open_thermal_frames(spec, progress=progress)
+    return spec.frames, open_thermal_frames(spec, progress=progress, budget=budget)
 
 
 def _read_load(spec):
@@ -160,6 +160,10 @@ def run_load_range(run):
     return None if sig is None else load_range(sig, f)
 
 
+#: Values of the sampled frames whose median is checked against the plausible temperatures.
+_MEDIAN_VALUES = 1 << 20
+
+
 def check_frames(path, spec, frames):
     """Refuse a stack whose sampled frames look scrambled or are no temperatures in kelvin."""
     idx, sample = sample_frames(frames)
@@ -183,8 +187,12 @@ def check_frames(path, spec, frames):
                    "byte_order" if raw else "the frames are not stored as (frame, row, col): check the file")
         raise InputError(path, f"the frames look scrambled: {detail}; {fix}")
     gain, offset = (spec.gain, spec.offset) if spec.values == "counts" else (1.0, 0.0)
+    # a unit slip moves the median by orders of magnitude: an evenly strided subsample of the
+    # sampled frames tells it as well as all of their values
+    flat = sample.reshape(-1)
+    flat = flat[::max(1, flat.size // _MEDIAN_VALUES)]
     with np.errstate(invalid="ignore", over="ignore"):
-        temps = gain * sample.astype(np.float64) + offset
+        temps = gain * flat.astype(np.float64) + offset
     check_temperatures(temps, where=path, what="the frames' temperature (gain * value + offset)",
                        statistic="median",
                        hint_counts="set values = \"counts\" with gain and offset" if spec.values == "kelvin"
@@ -267,7 +275,7 @@ def thermal_side(run, *, budget, motion=None, progress=False):
     if spec.maps is not None:
         return maps_side(run)
 
-    path, frames = _open(spec, progress=progress)
+    path, frames = _open(spec, progress=progress, budget=budget)
     check_frames(path, spec, frames)
     load_sig, frequency, notes, provenance = load_and_frequency(run, frames=frames)
     times = frame_times(spec, frames, load_sig)
@@ -280,7 +288,9 @@ def thermal_side(run, *, budget, motion=None, progress=False):
         load_at_frames = np.interp(t, load_sig.times, load_sig.load)
         src = motion_compensate(frames, motion, load_at_frames)
     row_bytes = 8 * int(np.prod(frames.shape[1:]))
-    chunk = int(max(16, min(4096, budget // max(1, 4 * row_bytes))))
+    # the frame blocks get what the per-pixel maps leave of the budget
+    left = budget - frame_memory(frames, motion=motion is not None)
+    chunk = int(max(16, min(4096, left // max(1, 4 * row_bytes))))
     try:
         res = lockin(src, frequency=frequency, times=times,
                      frame_rate=spec.frame_rate if times is None else None,

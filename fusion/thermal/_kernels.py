@@ -11,12 +11,12 @@ Layout and numerics
 -------------------
 * ``frames`` is a ``(n, Y, X)`` block in its own dtype (float32/float64, or
   int16/uint16/uint8/int32 detector counts), read once and never copied (the
-  kernel sees it through views: bands of rows cut into vectors, below).
+  kernel sees it through a view: bands of rows, below).
 * Work precision (:func:`work_dtype`): float32 for float32 and 8/16-bit integer
   stacks, float64 for float64 and wider integers. In float32 work each value
-  costs half the vector lanes of float64, which is what lets the pass run near the
-  speed of memory on two cores (a float64 pass measured 1.3-1.7x the time of one
-  plain read of the stack; the products are compute-bound, not memory-bound).
+  costs half the vector lanes of float64: the products are compute-bound, not
+  memory-bound, so this is what lets the pass run near the speed of memory
+  (``fusion bench`` reports both, ``lockin_f64_work_ratio``).
 * Two-level sums keep float32 work accurate. Within a sub-block of
   :data:`SUB_BLOCK` frames the products are summed in the work dtype about that
   sub-block's first frame ``r_b`` (the *local* reference, so a drift over the
@@ -39,25 +39,17 @@ Layout and numerics
   stream past.
 * Frames are unrolled by four: the twenty basis values of those frames are
   hoisted out of the pixel loop, each partial sum is loaded and stored once per
-  four frames. Four measured as fast as eight with float32 work and needs no
-  register spills.
+  four frames.
 * Narrow rows are joined into bands (:func:`band_rows`): a C-contiguous
   ``(n, Y, X)`` block is viewed, without a copy, as ``(n, Y/k, k X)`` so that one
   kernel row holds about :data:`BAND_BYTES` of work values (its seven lines of
-  partial sums, ~18 KB, stay in the L1 cache beside the frame rows streaming past).
-  Measured on 320 columns: two image rows a kernel row brought 16-bit counts from
-  1.4x to about 1.05x of one read of the same rows, and float32 frames 4-9 %
-  faster; four rows were no faster, two rows of 640 columns slower; float64 work
-  runs best on single rows of 320. The sums, the reference, the maxima and the maps
-  share that layout; only :func:`fusion.thermal._lockin._solve` turns the maps
-  back to ``(Y, X)`` (again a view).
-* The lines of the next four frame rows are prefetched (``llvm.prefetch``) one
-  group ahead: the pass alternates between rows of far-apart frames, and the
-  requests overlap the memory latency with the arithmetic (measured 10-25 %
-  faster on the development machine). Rows of 4-byte values are walked in vectors
-  of 64 (or 32, 16) values (:func:`vector_view`), each vector's next lines requested
-  just before it, which spreads the requests over the arithmetic; other rows get
-  theirs in one burst per row (as fast or faster for them).
+  partial sums stay in the L1 cache beside the frame rows streaming past, and a
+  parallel row is long enough to be worth scheduling). The sums, the reference, the
+  maxima and the maps share that layout; only :func:`fusion.thermal._lockin._solve`
+  turns the maps back to ``(Y, X)`` (again a view).
+* Plain numba over numpy arrays, no hand-written LLVM (no software prefetch): the
+  kernel builds with any numba release; ``fusion bench`` measures the pass against
+  one plain read of the stack and against the whole realistic run.
 * NaN or infinite values need no test in the loop: they poison only the sums
   of their own pixel, which are checked after the pass. Nothing is shared
   between pixels, so a bad pixel never disturbs its neighbours.
@@ -73,15 +65,12 @@ import mmap
 import threading
 
 import numpy as np
-from llvmlite import ir
-from numba import njit, prange, types
-from numba.extending import intrinsic
+from numba import njit, prange
 
 from .._progress import Progress
 
 __all__ = ["accumulate", "solve", "stream", "stream_dask", "is_dask", "work_dtype", "block_sums",
-           "prefetch", "prefetch_group", "atan2_deg", "gram", "band_rows", "banded", "vector_view",
-           "N_SUMS", "MAP_NAMES", "SUB_BLOCK", "BAND_BYTES"]
+           "atan2_deg", "gram", "band_rows", "banded", "N_SUMS", "MAP_NAMES", "SUB_BLOCK", "BAND_BYTES"]
 
 #: Order of the maps written by :func:`solve`.
 MAP_NAMES = ("T0", "delta_T", "delta_T_quadrature", "magnitude", "delta_T_std", "second_harmonic",
@@ -137,129 +126,45 @@ def banded(arr, k):
     return arr.reshape(*lead, ny // k, k * nx)
 
 
-def vector_view(block, work=None):
-    """View a C-contiguous (n, Y, W) block as (n, Y, W/L, L) vectors of L lanes (no copy).
-
-    The kernel walks a row vector by vector and prefetches the next group's lines of each
-    vector just before it, which spreads the requests over the arithmetic. Measured on
-    the development machine (rows of 320 values): 4-byte values run fastest in vectors of
-    64 (float32 16-18 % faster than whole rows, int32 17 %; float32 in float64 work 20 %),
-    then 32; 16 helps float32 in float32 work only (float64 work is 3x slower that way).
-    1-, 2- and 8-byte values run as fast or faster in whole rows (L = W).
-    ``work`` is the work dtype (default :func:`work_dtype` of the block's dtype).
-    """
-    n, ny, w = block.shape
-    work = work_dtype(block.dtype) if work is None else np.dtype(work)
-    lanes = w
-    if block.dtype.itemsize == 4:
-        for size in (64, 32, 16):
-            if w % size == 0 and (size > 16 or work == np.float32):
-                lanes = size
-                break
-    lanes = max(lanes, 1)
-    return block.reshape(n, ny, w // lanes, lanes)
-
-
 def block_sums(basis):
     """Column sums (float64) of ``basis`` over its sub-blocks of :data:`SUB_BLOCK` rows.
 
     Sub-blocks are counted from the first row given, as :func:`accumulate` counts them.
     """
-    return _basis_block_sums(np.ascontiguousarray(basis))
+    b = np.asarray(basis, dtype=np.float64)
+    return np.add.reduceat(b, np.arange(0, b.shape[0], SUB_BLOCK), axis=0)
 
 
-@njit(cache=True)
-def _basis_block_sums(b):  # pragma: no cover - compiled
-    # compiled: after a pass has streamed the stack through every cache, a few numpy calls
-    # on small arrays cost tens of microseconds each, this loop a few
-    n, m = b.shape
-    out = np.zeros(((n + SUB_BLOCK - 1) // SUB_BLOCK, m))
-    for k in range(n):
-        for j in range(m):
-            out[k // SUB_BLOCK, j] += np.float64(b[k, j])
-    return out
-
-
-@njit(cache=True)
-def gram(b):  # pragma: no cover - compiled
-    """``b.T @ b`` in float64 for an (n, m) float32 or float64 array (compiled, see above)."""
-    n, m = b.shape
-    g = np.zeros((m, m))
-    for k in range(n):
-        for i in range(m):
-            bi = np.float64(b[k, i])
-            for j in range(i, m):
-                g[i, j] += bi * np.float64(b[k, j])
-    for i in range(m):
-        for j in range(i):
-            g[i, j] = g[j, i]
-    return g
-
-
-@intrinsic
-def prefetch(typingctx, arr, index):
-    """Hint the cache to fetch the line holding flat element ``index`` of a C-contiguous array.
-
-    A prefetch never faults: an address outside the mapped pages is simply dropped.
-    """
-    sig = types.void(arr, types.intp)
-
-    def codegen(context, builder, signature, args):
-        ary = context.make_array(signature.args[0])(context, builder, args[0])
-        ptr = builder.bitcast(builder.gep(ary.data, [args[1]]), ir.IntType(8).as_pointer())
-        i32 = ir.IntType(32)
-        fnty = ir.FunctionType(ir.VoidType(), [ptr.type, i32, i32, i32])
-        fn = builder.module.globals.get("llvm.prefetch.p0")
-        if fn is None:
-            fn = ir.Function(builder.module, fnty, name="llvm.prefetch.p0")
-        # read access, high temporal locality, data cache
-        builder.call(fn, [ptr, ir.Constant(i32, 0), ir.Constant(i32, 3), ir.Constant(i32, 1)])
-        return context.get_dummy_value()
-
-    return sig, codegen
-
-
-@njit(inline="always")
-def prefetch_group(frames, first, y, v):  # pragma: no cover - compiled
-    """Prefetch vector ``v`` of row ``y`` of the four frames from ``first`` of a (n, Y, V, L) array.
-
-    One request every 16 values (a 64-byte line of 4-byte values; two lines of 16-bit
-    counts get two requests, measured 6-10 % faster than one; float64 every other line).
-    """
-    _, ny, nv, lanes = frames.shape
-    for k in range(first, first + 4):
-        start = ((k * ny + y) * nv + v) * lanes
-        for q in range(0, lanes, 16):
-            prefetch(frames, start + q)
+def gram(b):
+    """``b.T @ b`` in float64 for an (n, m) float32 or float64 array."""
+    b = np.asarray(b, dtype=np.float64)
+    return b.T @ b
 
 
 @njit(parallel=True, cache=True, fastmath=_FASTMATH)
 def accumulate(frames, basis, bsum, ref, acc, vmax, vmin, first):  # pragma: no cover - compiled
-    """Add the lock-in sums of ``frames`` (n, Y, V, L) into ``acc`` (Y, 8, V L) float64.
+    """Add the lock-in sums of ``frames`` (n, Y, X) into ``acc`` (Y, 8, X) float64.
 
-    ``frames`` is a stack of Y rows of V L values cut into V vectors of L lanes
-    (:func:`vector_view`). With ``first`` (the first block of a pass) ``acc`` is cleared
-    row by row as the pass reaches it, so it may come uninitialised (``np.empty``: no
-    separate zeroing pass). ``basis`` is (n, 6) in the work dtype with column 0 equal to
-    one; ``bsum`` its float64 column sums per sub-block (:func:`block_sums`); ``ref`` the
-    (Y, V L) float64 global reference frame. ``vmax`` and ``vmin`` (Y, V L) in the work
-    dtype receive the largest and smallest raw value of each pixel, or are (0, 0) to skip
-    that bookkeeping.
+    With ``first`` (the first block of a pass) ``acc`` is cleared row by row as the pass
+    reaches it, so it may come uninitialised (``np.empty``: no separate zeroing pass).
+    ``basis`` is (n, 6) in the work dtype with column 0 equal to one; ``bsum`` its float64
+    column sums per sub-block (:func:`block_sums`); ``ref`` the (Y, X) float64 global
+    reference frame. ``vmax`` and ``vmin`` (Y, X) in the work dtype receive the largest and
+    smallest raw value of each pixel, or are (0, 0) to skip that bookkeeping.
     """
-    n, ny, nv, lanes = frames.shape
+    n, ny, nx = frames.shape
     track = vmax.shape[0] > 0
     for y in prange(ny):
-        p = np.zeros((7, nv, lanes), basis.dtype)    # partial sums of one sub-block
-        rb = np.empty((nv, lanes), basis.dtype)       # local reference: the sub-block's first frame
+        p = np.zeros((7, nx), basis.dtype)    # partial sums of one sub-block
+        rb = np.empty(nx, basis.dtype)        # local reference: the sub-block's first frame
         if first:
             for j in range(N_SUMS):
-                for x in range(nv * lanes):
+                for x in range(nx):
                     acc[y, j, x] = 0.0
         for f0 in range(0, n, SUB_BLOCK):
             f1 = min(n, f0 + SUB_BLOCK)
-            for v in range(nv):
-                for lane in range(lanes):
-                    rb[v, lane] = frames[f0, y, v, lane]
+            for x in range(nx):
+                rb[x] = frames[f0, y, x]
             f = f0
             while f + 4 <= f1:
                 b10, b11, b12, b13 = basis[f, 1], basis[f + 1, 1], basis[f + 2, 1], basis[f + 3, 1]
@@ -267,67 +172,56 @@ def accumulate(frames, basis, bsum, ref, acc, vmax, vmin, first):  # pragma: no 
                 b30, b31, b32, b33 = basis[f, 3], basis[f + 1, 3], basis[f + 2, 3], basis[f + 3, 3]
                 b40, b41, b42, b43 = basis[f, 4], basis[f + 1, 4], basis[f + 2, 4], basis[f + 3, 4]
                 b50, b51, b52, b53 = basis[f, 5], basis[f + 1, 5], basis[f + 2, 5], basis[f + 3, 5]
-                ahead = f + 8 <= n
-                for v in range(nv):
-                    if ahead:
-                        prefetch_group(frames, f + 4, y, v)
-                    for lane in range(lanes):
-                        r = rb[v, lane]
-                        d0 = frames[f, y, v, lane] - r
-                        d1 = frames[f + 1, y, v, lane] - r
-                        d2 = frames[f + 2, y, v, lane] - r
-                        d3 = frames[f + 3, y, v, lane] - r
-                        p[0, v, lane] += (d0 + d1) + (d2 + d3)
-                        p[1, v, lane] = p[1, v, lane] + b10 * d0 + b11 * d1 + b12 * d2 + b13 * d3
-                        p[2, v, lane] = p[2, v, lane] + b20 * d0 + b21 * d1 + b22 * d2 + b23 * d3
-                        p[3, v, lane] = p[3, v, lane] + b30 * d0 + b31 * d1 + b32 * d2 + b33 * d3
-                        p[4, v, lane] = p[4, v, lane] + b40 * d0 + b41 * d1 + b42 * d2 + b43 * d3
-                        p[5, v, lane] = p[5, v, lane] + b50 * d0 + b51 * d1 + b52 * d2 + b53 * d3
-                        p[6, v, lane] = p[6, v, lane] + d0 * d0 + d1 * d1 + d2 * d2 + d3 * d3
+                for x in range(nx):
+                    r = rb[x]
+                    d0 = frames[f, y, x] - r
+                    d1 = frames[f + 1, y, x] - r
+                    d2 = frames[f + 2, y, x] - r
+                    d3 = frames[f + 3, y, x] - r
+                    p[0, x] += (d0 + d1) + (d2 + d3)
+                    p[1, x] = p[1, x] + b10 * d0 + b11 * d1 + b12 * d2 + b13 * d3
+                    p[2, x] = p[2, x] + b20 * d0 + b21 * d1 + b22 * d2 + b23 * d3
+                    p[3, x] = p[3, x] + b30 * d0 + b31 * d1 + b32 * d2 + b33 * d3
+                    p[4, x] = p[4, x] + b40 * d0 + b41 * d1 + b42 * d2 + b43 * d3
+                    p[5, x] = p[5, x] + b50 * d0 + b51 * d1 + b52 * d2 + b53 * d3
+                    p[6, x] = p[6, x] + d0 * d0 + d1 * d1 + d2 * d2 + d3 * d3
                 if track:  # the four rows are still in the L1 cache
                     for k in range(4):
-                        for v in range(nv):
-                            for lane in range(lanes):
-                                x = v * lanes + lane
-                                vmax[y, x] = max(vmax[y, x], frames[f + k, y, v, lane])
-                                vmin[y, x] = min(vmin[y, x], frames[f + k, y, v, lane])
+                        for x in range(nx):
+                            vmax[y, x] = max(vmax[y, x], frames[f + k, y, x])
+                            vmin[y, x] = min(vmin[y, x], frames[f + k, y, x])
                 f += 4
             while f < f1:
                 b1, b2, b3, b4, b5 = basis[f, 1], basis[f, 2], basis[f, 3], basis[f, 4], basis[f, 5]
-                for v in range(nv):
-                    for lane in range(lanes):
-                        d = frames[f, y, v, lane] - rb[v, lane]
-                        p[0, v, lane] += d
-                        p[1, v, lane] += b1 * d
-                        p[2, v, lane] += b2 * d
-                        p[3, v, lane] += b3 * d
-                        p[4, v, lane] += b4 * d
-                        p[5, v, lane] += b5 * d
-                        p[6, v, lane] += d * d
+                for x in range(nx):
+                    d = frames[f, y, x] - rb[x]
+                    p[0, x] += d
+                    p[1, x] += b1 * d
+                    p[2, x] += b2 * d
+                    p[3, x] += b3 * d
+                    p[4, x] += b4 * d
+                    p[5, x] += b5 * d
+                    p[6, x] += d * d
                 if track:
-                    for v in range(nv):
-                        for lane in range(lanes):
-                            x = v * lanes + lane
-                            vmax[y, x] = max(vmax[y, x], frames[f, y, v, lane])
-                            vmin[y, x] = min(vmin[y, x], frames[f, y, v, lane])
+                    for x in range(nx):
+                        vmax[y, x] = max(vmax[y, x], frames[f, y, x])
+                        vmin[y, x] = min(vmin[y, x], frames[f, y, x])
                 f += 1
             # widen to float64 and move onto the global reference (module docstring)
             k = f0 // SUB_BLOCK
             n0, n1, n2, n3, n4, n5 = bsum[k, 0], bsum[k, 1], bsum[k, 2], bsum[k, 3], bsum[k, 4], bsum[k, 5]
-            for v in range(nv):
-                for lane in range(lanes):
-                    x = v * lanes + lane
-                    c = np.float64(rb[v, lane]) - ref[y, x]
-                    s0 = np.float64(p[0, v, lane])
-                    s6 = np.float64(p[6, v, lane])
-                    acc[y, 0, x] += s0 + n0 * c
-                    acc[y, 1, x] += np.float64(p[1, v, lane]) + n1 * c
-                    acc[y, 2, x] += np.float64(p[2, v, lane]) + n2 * c
-                    acc[y, 3, x] += np.float64(p[3, v, lane]) + n3 * c
-                    acc[y, 4, x] += np.float64(p[4, v, lane]) + n4 * c
-                    acc[y, 5, x] += np.float64(p[5, v, lane]) + n5 * c
-                    acc[y, 6, x] += s6 + c * (2.0 * s0 + n0 * c)
-                    acc[y, 7, x] += s6
+            for x in range(nx):
+                c = np.float64(rb[x]) - ref[y, x]
+                s0 = np.float64(p[0, x])
+                s6 = np.float64(p[6, x])
+                acc[y, 0, x] += s0 + n0 * c
+                acc[y, 1, x] += np.float64(p[1, x]) + n1 * c
+                acc[y, 2, x] += np.float64(p[2, x]) + n2 * c
+                acc[y, 3, x] += np.float64(p[3, x]) + n3 * c
+                acc[y, 4, x] += np.float64(p[4, x]) + n4 * c
+                acc[y, 5, x] += np.float64(p[5, x]) + n5 * c
+                acc[y, 6, x] += s6 + c * (2.0 * s0 + n0 * c)
+                acc[y, 7, x] += s6
             p[:] = 0
 
 
@@ -542,7 +436,7 @@ def _run_kernel(block, basis, ref, acc, vmax, vmin, first):
     if vmax is None:
         vmax = vmin = np.empty((0, 0), basis.dtype)
     with _KERNEL_LOCK:
-        accumulate(vector_view(block, basis.dtype), basis, bsum, ref, acc, vmax, vmin, first)
+        accumulate(block, basis, bsum, ref, acc, vmax, vmin, first)
 
 
 def is_dask(frames):

@@ -16,7 +16,6 @@ import logging
 import math
 
 import numpy as np
-from numba import njit
 
 from .._conventions import short_repr
 from . import _kernels
@@ -153,25 +152,17 @@ def _check_times(times, n, name="times"):
 
 def _design(times, frequency, phase):
     """(N, 6) basis [1, tau, cos th, sin th, cos 2th, sin 2th] and the half span of tau (s)."""
-    return _basis(np.ascontiguousarray(times, dtype=np.float64), float(frequency), float(phase))
-
-
-@njit(cache=True)
-def _basis(t, frequency, phase):  # pragma: no cover - compiled
-    # compiled: numpy's calls on small arrays cost tens of microseconds each when the
-    # caches are cold (as after a pass over a stack), this loop a few
-    n = t.size
+    t = np.asarray(times, dtype=np.float64)
     mid = 0.5 * (t[0] + t[-1])
-    half = max(0.5 * (t[-1] - t[0]), 2.2250738585072014e-308)
-    B = np.empty((n, _N_BASIS))
-    for k in range(n):
-        theta = 2.0 * math.pi * frequency * t[k] + phase
-        B[k, 0] = 1.0
-        B[k, 1] = (t[k] - mid) / half
-        B[k, 2] = math.cos(theta)
-        B[k, 3] = math.sin(theta)
-        B[k, 4] = math.cos(2.0 * theta)
-        B[k, 5] = math.sin(2.0 * theta)
+    half = max(0.5 * (t[-1] - t[0]), float(np.finfo(np.float64).tiny))
+    theta = 2.0 * math.pi * float(frequency) * t + float(phase)
+    B = np.empty((t.size, _N_BASIS))
+    B[:, 0] = 1.0
+    B[:, 1] = (t - mid) / half
+    B[:, 2] = np.cos(theta)
+    B[:, 3] = np.sin(theta)
+    B[:, 4] = np.cos(2.0 * theta)
+    B[:, 5] = np.sin(2.0 * theta)
     return B, half
 
 
