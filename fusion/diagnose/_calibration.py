@@ -6,6 +6,7 @@ import logging
 import math
 
 import numpy as np
+from scipy.special import chdtrc
 
 __all__ = ["calibration_factor", "apply_calibration", "CALIBRATION_RANGE"]
 
@@ -171,9 +172,7 @@ def calibration_factor(measured, predicted, mask, *, measured_std=None, predicte
                          "or a sign mix-up; pass allow_large=True only if you have checked")
     logger.info("calibration factor %.5g +- %.2g from %d reference pixels", k, std, n)
     if chi2 is not None and dof > 0:
-        from scipy.stats import chi2 as chi2_dist
-
-        if chi2_dist.sf(chi2, dof) < 1e-3:
+        if chdtrc(dof, chi2) < 1e-3:       # survival function of the chi-square distribution
             logger.warning("calibration: chi-square %.4g over %d degrees of freedom; the scatter "
                            "exceeds the stated uncertainties, so the factor's std is optimistic",
                            chi2, dof)

@@ -6,7 +6,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy.stats import f as f_dist
+from scipy.special import fdtrc
 
 from ._camera import fit_camera
 from ._transform import _as_points, fit_transform, min_points, n_parameters
@@ -236,7 +236,7 @@ def assess_fit(src_points, dst_points, *, method, limit, inliers=None, image_sha
     d = _predict(models[worst], src[worst:worst + 1])[0] - dst[worst]
     cov = np.eye(2) + _prediction_cov(method, models[worst].matrix, src[rest], src[worst:worst + 1])
     stat = float(d @ np.linalg.solve(cov, d)) / (2.0 * max(s_rest, 1e-12) ** 2)
-    out.p_value = float(f_dist.sf(stat, 2, dof))
+    out.p_value = float(fdtrc(2, dof, stat))     # survival function of the F(2, dof) distribution
     out.outlier = bool(loo[worst] > float(limit) and out.p_value < OUTLIER_ALPHA / n)
     if out.outlier:
         out.scatter = s_rest
