@@ -5,6 +5,8 @@ from pathlib import Path
 
 import numpy as np
 
+from _inputs import config_head, write_strain
+
 ROOT = Path(__file__).resolve().parents[1]
 ROWS, COLS = 40, 48
 T0, SIGMA, FREQ, RATE, FRAMES = 295.0, 0.02, 5.0, 50.0, 600
@@ -17,23 +19,9 @@ def write_campaign(folder, amplitudes, *, rng, extra=""):
     theta = 2 * np.pi * FREQ * t
     np.savetxt(folder / "load.csv", np.column_stack([t, 11.0 + 4.5 * np.cos(theta)]), delimiter=",",
                header="time,load", comments="")
-    x, y = (a.ravel() for a in np.meshgrid(np.arange(0, 24, 0.5), np.arange(0, 20, 0.5)))
-    np.savetxt(folder / "strain.csv", np.column_stack([x, y, np.full(x.size, -0.6e-3), np.full(x.size, 2.0e-3),
-                                                       np.zeros(x.size)]),
-               delimiter=",", header="x,y,exx,eyy,gxy", comments="")
-    lib = (ROOT / "configs" / "materials.toml").as_posix()
+    write_strain(folder / "strain.csv")
     # correlation mm (y up) onto IR px: col = 2 x, row = 39 - 2 y
-    text = f'''material_library = "{lib}"
-[laminate]
-layup = "[0/90]s"
-ply_material = "carbon_epoxy"
-ply_thickness = "0.25 mm"
-zero_direction = "90 deg"
-[registration]
-method = "affine"
-dic_points = [[0.0, 0.0], [20.0, 0.0], [0.0, 15.0], [20.0, 15.0]]
-ir_points = [[0.0, 39.0], [40.0, 39.0], [0.0, 9.0], [40.0, 9.0]]
-[output]
+    text = config_head() + f'''[output]
 figures = false
 {extra}
 '''

@@ -46,13 +46,18 @@ def write_load(path, t, f, *, mean=11.0, amp=9.0, phase=0.0):
     return path
 
 
-def write_config(folder, *, run="", thermal="", dic="", frames="ir.npy", load="load.csv",
-                 strain="strain.csv", extra=""):
-    """The config of one run named R beside its inputs; ``run``, ``thermal``, ``dic`` add keys."""
+def _toml_points(points):
+    return "[" + ", ".join(f"[{float(a)!r}, {float(b)!r}]" for a, b in points) + "]"
+
+
+def config_head(dic_points=((0.0, 0.0), (20.0, 0.0), (0.0, 15.0), (20.0, 15.0)),
+                ir_points=((0.0, 39.0), (40.0, 39.0), (0.0, 9.0), (40.0, 9.0))):
+    """A config's material library, [0/90]s carbon/epoxy laminate and affine registration.
+
+    The default points map the strain table's mm (y up) onto the IR px: col = 2 x, row = 39 - 2 y.
+    """
     lib = (ROOT / "configs" / "materials.toml").as_posix()
-    load_line = f'load = "{load}"\n' if load else ""
-    inputs = f'frames = "{frames}"\n' if frames else ""
-    text = f'''material_library = "{lib}"
+    return f'''material_library = "{lib}"
 [laminate]
 layup = "[0/90]s"
 ply_material = "carbon_epoxy"
@@ -60,9 +65,43 @@ ply_thickness = "0.25 mm"
 zero_direction = "90 deg"
 [registration]
 method = "affine"
-dic_points = [[0.0, 0.0], [20.0, 0.0], [0.0, 15.0], [20.0, 15.0]]
-ir_points = [[0.0, 39.0], [40.0, 39.0], [0.0, 9.0], [40.0, 9.0]]
-[output]
+dic_points = {_toml_points(dic_points)}
+ir_points = {_toml_points(ir_points)}
+'''
+
+
+#: One ply of a made-up material, identity registration and one run "r" at 5 Hz; the run's
+#: thermal and correlation tables follow.
+ONE_PLY_RUN = '''[laminate]
+layup = [0]
+ply_material = "m"
+ply_thickness = "1 mm"
+[materials.m]
+E1 = 1e11
+E2 = 1e10
+G12 = 5e9
+nu12 = 0.3
+alpha1 = 0
+alpha2 = 3e-5
+density = 1500
+specific_heat = 900
+k1 = 5
+k2 = 0.5
+k3 = 0.5
+[registration]
+method = "identity"
+[[run]]
+name = "r"
+frequency = "5 Hz"
+'''
+
+
+def write_config(folder, *, run="", thermal="", dic="", frames="ir.npy", load="load.csv",
+                 strain="strain.csv", extra=""):
+    """The config of one run named R beside its inputs; ``run``, ``thermal``, ``dic`` add keys."""
+    load_line = f'load = "{load}"\n' if load else ""
+    inputs = f'frames = "{frames}"\n' if frames else ""
+    text = config_head() + f'''[output]
 figures = false
 report = false
 {extra}

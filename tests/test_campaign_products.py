@@ -9,7 +9,8 @@ import numpy as np
 import pytest
 import xarray as xr
 
-from _campaigns import ROOT, T0  # noqa: F401  (shared synthetic campaign constants)
+from _campaigns import T0
+from _inputs import config_head, write_strain
 from fusion.campaign import run_campaign
 from fusion.config import load_config
 from fusion.plan import frequency_plan
@@ -24,23 +25,11 @@ def _sweep_campaign(folder, frequencies, rng):
     ranges (our scenario, made with the project's own model: these tests check files and words)."""
     folder.mkdir(parents=True, exist_ok=True)
     x, y = (a.ravel() for a in np.meshgrid(np.arange(0, 12, 1.0), np.arange(0, 8, 1.0)))
-    np.savetxt(folder / "strain.csv", np.column_stack([x, y, np.full(x.size, -0.6e-3), np.full(x.size, 2.0e-3),
-                                                       np.zeros(x.size)]),
-               delimiter=",", header="x,y,exx,eyy,gxy", comments="")
-    lib = (ROOT / "configs" / "materials.toml").as_posix()
-    text = f'''material_library = "{lib}"
-[campaign]
+    write_strain(folder / "strain.csv", points=(x, y))
+    text = config_head(dic_points=[[0.0, 0.0], [11.0, 0.0], [0.0, 7.0], [11.0, 7.0]],
+                       ir_points=[[0.0, 15.0], [22.0, 15.0], [0.0, 1.0], [22.0, 1.0]]) + '''[campaign]
 name = "sweep check"
 operator = "A. Tester"
-[laminate]
-layup = "[0/90]s"
-ply_material = "carbon_epoxy"
-ply_thickness = "0.25 mm"
-zero_direction = "90 deg"
-[registration]
-method = "affine"
-dic_points = [[0.0, 0.0], [11.0, 0.0], [0.0, 7.0], [11.0, 7.0]]
-ir_points = [[0.0, 15.0], [22.0, 15.0], [0.0, 1.0], [22.0, 1.0]]
 [output]
 figures = false
 '''

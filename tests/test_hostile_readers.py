@@ -34,6 +34,7 @@ import tifffile
 from hypothesis import HealthCheck, Phase, given, settings
 from hypothesis import strategies as st
 
+from _inputs import ONE_PLY_RUN
 from fusion.errors import InputError
 from fusion.io import (list_images, open_frames, open_sequence, read_dic_field, read_frame_times, read_image,
                        read_load_signal, read_netcdf, read_thermal_maps)
@@ -931,29 +932,7 @@ def test_image_folder_with_one_image_of_another_size(tmp_path):
     for i in range(3):
         _w_member(d / f"img_{i:03d}.png", _speckle() if i != 2 else _speckle()[:, :-4])
     np.save(tmp_path / "ir.npy", np.full((20, 4, 4), 295.0, np.float32))
-    (tmp_path / "c.toml").write_text("""
-[laminate]
-layup = [0]
-ply_material = "m"
-ply_thickness = "1 mm"
-[materials.m]
-E1 = 1e11
-E2 = 1e10
-G12 = 5e9
-nu12 = 0.3
-alpha1 = 0
-alpha2 = 3e-5
-density = 1500
-specific_heat = 900
-k1 = 5
-k2 = 0.5
-k3 = 0.5
-[registration]
-method = "identity"
-[[run]]
-name = "r"
-frequency = "5 Hz"
-[run.thermal]
+    (tmp_path / "c.toml").write_text(ONE_PLY_RUN + """[run.thermal]
 frames = "ir.npy"
 frame_rate = "50 Hz"
 [run.dic]

@@ -12,12 +12,11 @@ import json
 import re
 import subprocess
 import sys
-from pathlib import Path
 
 import numpy as np
 import pytest
 
-ROOT = Path(__file__).resolve().parents[1]
+from _inputs import ROOT, config_head, write_strain
 
 ROWS = COLS = 128
 BIG_FRAMES = 3072               # 3072 x 128 x 128 float32 = 201 MB
@@ -90,26 +89,14 @@ def _write_campaign(folder, rng, *, motion):
     # correlation grid in mm (y up) covering the IR frame: IR col = 2 x, row = 127 - 2 y
     x, y = (a.ravel() for a in np.meshgrid(np.arange(0, 64, 0.5), np.arange(0, 64, 0.5)))
     exx, eyy = -0.6e-3, 2.0e-3
-    np.savetxt(folder / "strain.csv", np.column_stack([x, y, np.full(x.size, exx), np.full(x.size, eyy),
-                                                       np.zeros(x.size)]),
-               delimiter=",", header="x,y,exx,eyy,gxy", comments="")
+    write_strain(folder / "strain.csv", exx, eyy, points=(x, y))
     for tag, frac in (("min", 0.0), ("max", 1.0)):
         # displacement of a uniform strain field, mm: u = exx x, v = eyy y
         np.savetxt(folder / f"state_{tag}.csv", np.column_stack([x, y, frac * exx * x, frac * eyy * y]),
                    delimiter=",", header="x,y,u,v", comments="")
-    lib = (ROOT / "configs" / "materials.toml").as_posix()
     dic = ('states = ["state_min.csv", "state_max.csv"]' if motion else 'strain_ranges = "strain.csv"')
-    text = f'''material_library = "{lib}"
-[laminate]
-layup = "[0/90]s"
-ply_material = "carbon_epoxy"
-ply_thickness = "0.25 mm"
-zero_direction = "90 deg"
-[registration]
-method = "affine"
-dic_points = [[0.0, 0.0], [60.0, 0.0], [0.0, 60.0], [60.0, 60.0]]
-ir_points = [[0.0, 127.0], [120.0, 127.0], [0.0, 7.0], [120.0, 7.0]]
-[compute]
+    text = config_head(dic_points=[[0.0, 0.0], [60.0, 0.0], [0.0, 60.0], [60.0, 60.0]],
+                       ir_points=[[0.0, 127.0], [120.0, 127.0], [0.0, 7.0], [120.0, 7.0]]) + '''[compute]
 memory_budget = "50 MB"
 [output]
 figures = false

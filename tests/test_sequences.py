@@ -25,6 +25,7 @@ from fusion.run._inputs import frame_times, input_state, open_thermal_frames, sp
 from fusion.run._strain import strain_side
 
 from _campaigns import ROOT
+from _inputs import ONE_PLY_RUN
 
 ROWS, COLS, T0, SIGMA, FREQ, RATE, FRAMES = 12, 16, 295.0, 0.02, 5.0, 50.0, 120
 
@@ -396,34 +397,11 @@ def test_name_time_with_one_file_is_a_config_error(tmp_path, rng):
 
 
 # ------------------------------------------------------------------------------ speckle images and their load log
-# one ply of a made-up material and one run "r"; its thermal and correlation tables follow
-_ONE_PLY_RUN = '''[laminate]
-layup = [0]
-ply_material = "m"
-ply_thickness = "1 mm"
-[materials.m]
-E1 = 1e11
-E2 = 1e10
-G12 = 5e9
-nu12 = 0.3
-alpha1 = 0
-alpha2 = 3e-5
-density = 1500
-specific_heat = 900
-k1 = 5
-k2 = 0.5
-k3 = 0.5
-[registration]
-method = "identity"
-[[run]]
-name = "r"
-frequency = "5 Hz"
-'''
 
 
 def _images_config(tmp_path, dic):
     np.save(tmp_path / "ir.npy", np.zeros((20, 4, 4), np.float32))
-    (tmp_path / "c.toml").write_text(_ONE_PLY_RUN + f'''[run.thermal]
+    (tmp_path / "c.toml").write_text(ONE_PLY_RUN + f'''[run.thermal]
 frames = "ir.npy"
 frame_rate = "50 Hz"
 [run.dic]
@@ -435,7 +413,7 @@ frame_rate = "50 Hz"
 
 def _thermal_config(tmp_path, thermal):
     (tmp_path / "strain.csv").write_text("x,y,exx,eyy,gxy\n0,0,0,0,0\n")
-    (tmp_path / "c.toml").write_text(_ONE_PLY_RUN + f'''[run.thermal]
+    (tmp_path / "c.toml").write_text(ONE_PLY_RUN + f'''[run.thermal]
 {thermal}
 [run.dic]
 strain_ranges = "strain.csv"

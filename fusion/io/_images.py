@@ -11,7 +11,7 @@ import numpy as np
 from ..errors import InputError
 from ._guard import decoding, input_file, quiet_logger
 
-__all__ = ["read_image"]
+__all__ = ["read_image", "decode_png"]
 
 _PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 _SUFFIXES = {".png": "png", ".tif": "tiff", ".tiff": "tiff"}
@@ -28,7 +28,8 @@ def _png_size(path):
     return int(height), int(width)
 
 
-def _decode_png(path):
+def decode_png(path, what="a PNG image"):
+    """The pixels of a PNG file as OpenCV decodes them (grey, grey + alpha, BGR or BGRA)."""
     import cv2
 
     raw = np.fromfile(path, dtype=np.uint8)  # imdecode also copes with non-ASCII paths
@@ -36,13 +37,18 @@ def _decode_png(path):
     level = cv2.utils.logging.getLogLevel()
     cv2.utils.logging.setLogLevel(cv2.utils.logging.LOG_LEVEL_ERROR)
     try:
-        with decoding(path, "a PNG image"):
+        with decoding(path, what):
             img = cv2.imdecode(raw, cv2.IMREAD_UNCHANGED)
     finally:
         cv2.utils.logging.setLogLevel(level)
     if img is None:
         raise InputError(path, "could not be decoded as a PNG image: probably cut short or damaged (an "
                          "interrupted copy or transfer?)")
+    return img
+
+
+def _decode_png(path):
+    img = decode_png(path)
     if img.ndim == 3:
         channels = img.shape[2]
         if channels == 2:  # grey + alpha

@@ -23,6 +23,7 @@ import numpy as np
 
 from ..errors import InputError
 from ._guard import decoding, input_file, npy_header, quiet_logger
+from ._images import decode_png
 from ._textgrids import text_grid_stack
 
 __all__ = ["SequenceFiles", "SequenceStack", "is_sequence", "list_sequence", "open_sequence", "list_images", "file_identity", "frame_header",
@@ -410,7 +411,7 @@ class SequenceStack:
                                  "the file changed or was cut after the sequence was opened")
             data = data.reshape((rows, cols), order="F" if head.fortran else "C")
         elif self.kind == "png":
-            data = _decode_png(path)
+            data = decode_png(path, "a PNG frame")
         else:
             with quiet_logger("tifffile"), decoding(path, "a TIFF frame"):
                 import tifffile
@@ -444,23 +445,6 @@ class SequenceStack:
     def __array__(self, dtype=None, copy=None):
         out = self[:]
         return out if dtype is None else out.astype(dtype)
-
-
-def _decode_png(path):
-    import cv2
-
-    raw = np.fromfile(path, dtype=np.uint8)
-    level = cv2.utils.logging.getLogLevel()
-    cv2.utils.logging.setLogLevel(cv2.utils.logging.LOG_LEVEL_ERROR)
-    try:
-        with decoding(path, "a PNG frame"):
-            img = cv2.imdecode(raw, cv2.IMREAD_UNCHANGED)
-    finally:
-        cv2.utils.logging.setLogLevel(level)
-    if img is None:
-        raise InputError(path, "could not be decoded as a PNG image: probably cut short or damaged (an "
-                         "interrupted copy or transfer?)")
-    return img
 
 
 def check_headers(sequence: SequenceFiles):
