@@ -251,3 +251,29 @@ def test_a_truncated_tiff_of_large_pages_is_named_without_decoding(tmp_path, mon
         fh.truncate(path.stat().st_size - 100)
     with pytest.raises(InputError, match=r"ir\.tif.*truncated"):
         open_frames(path)
+
+
+def test_a_folder_of_large_frames_is_refused_before_a_member_is_read(tmp_path, monkeypatch):
+    """Not a physics check: memory safety. A folder of small zlib-compressed TIFF frames that each
+    decode to more than the memory budget allows is refused by `check` and `run` from the first
+    member's header: no page is decoded and no member is read whole for the run's digest."""
+    import tifffile
+
+    import fusion.campaign._provenance as provenance
+
+    folder = tmp_path / "ir"
+    folder.mkdir()
+    for i in range(3):
+        tifffile.imwrite(folder / f"frame_{i:03d}.tif", np.zeros((3000, 3000), np.float32), compression="zlib")
+
+    def no_decode(*args, **kwargs):
+        raise AssertionError("a page was decoded")
+
+    def no_digest(*args, **kwargs):
+        raise AssertionError("a member was read for its digest")
+
+    monkeypatch.setattr(tifffile.TiffPage, "asarray", no_decode)
+    monkeypatch.setattr(tifffile.TiffFile, "asarray", no_decode)
+    monkeypatch.setattr(provenance, "content_digest", no_digest)
+    cfg = _header_campaign(tmp_path, "ir", budget="100 MB")
+    _check_and_run_refuse(cfg, tmp_path, r"3000x3000 px.*memory_budget = 100 MB")

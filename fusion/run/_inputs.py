@@ -10,8 +10,8 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import ConfigError, FusionError, InputError
-from ..io import (file_identity, is_sequence, open_frames, open_sequence, read_frame_times, read_load_log,
-                  read_sequence_times)
+from ..io import (file_identity, is_sequence, list_sequence, open_frames, open_sequence, read_frame_times,
+                  read_load_log, read_sequence_times)
 from ..thermal import SAMPLE_FRAMES
 from ._files import beside_frames, frame_sequence, image_sequence, need_file
 
@@ -76,11 +76,22 @@ def open_thermal_frames(spec, *, key="thermal", progress=False, budget=None):
 
 
 def frames_within_budget(run, budget) -> None:
-    """Refuse a run's frame stack file whose header promises frames too large for ``budget``
-    (:func:`frame_memory`), reading nothing beyond the header: before the stack is hashed
-    or sampled. A folder or pattern of frames is checked when it is opened."""
+    """Refuse a run's frames whose headers promise frames too large for ``budget``
+    (:func:`frame_memory`), reading nothing beyond the headers: before the frames are hashed
+    or sampled. A stack file, or a folder or pattern of TIFF, PNG or .npy frames; text grids
+    are checked when they are opened (their size is known only once one is parsed)."""
     spec = run.thermal
-    if spec.frames is not None and not is_sequence(spec.frames) and Path(spec.frames).is_file():
+    if spec.frames is None:
+        return
+    if is_sequence(spec.frames):
+        try:
+            kind = list_sequence(spec.frames, name_time=spec.name_time, time_unit=spec.time_unit,
+                                 exclude=beside_frames(spec)).kind
+        except InputError:
+            return          # said with its file when the frames are opened
+        if kind != "text":
+            open_thermal_frames(spec, budget=budget)
+    elif Path(spec.frames).is_file():
         open_thermal_frames(spec, budget=budget)
 
 
