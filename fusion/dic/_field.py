@@ -130,7 +130,9 @@ class StrainRanges:
     units : {"mm", "px"}
         Unit of the positions.
     exx, eyy, gxy : (N,) ndarray
-        Ranges of eps_xx, eps_yy and the engineering shear gamma_xy (1).
+        Ranges of eps_xx, eps_yy and the engineering shear gamma_xy (1): the short names of
+        strain-table columns; :func:`fusion.strain_ranges` and result.nc call them
+        ``delta_eps_xx``, ``delta_eps_yy``, ``delta_gamma_xy``.
     exx_std, eyy_std, gxy_std : (N,) ndarray
         Standard deviation of each range (1), per point or a broadcast scalar.
     valid : (N,) bool ndarray
