@@ -277,3 +277,42 @@ def test_a_folder_of_large_frames_is_refused_before_a_member_is_read(tmp_path, m
     monkeypatch.setattr(provenance, "content_digest", no_digest)
     cfg = _header_campaign(tmp_path, "ir", budget="100 MB")
     _check_and_run_refuse(cfg, tmp_path, r"3000x3000 px.*memory_budget = 100 MB")
+
+
+def _png_header_only(path, rows, cols):
+    """A PNG whose header promises rows x cols grey pixels and holds no image data."""
+    import struct
+    import zlib
+
+    ihdr = struct.pack(">IIBBBBB", cols, rows, 8, 0, 0, 0, 0)
+    chunk = struct.pack(">I", len(ihdr)) + b"IHDR" + ihdr + struct.pack(">I", zlib.crc32(b"IHDR" + ihdr))
+    path.write_bytes(b"\x89PNG\r\n\x1a\n" + chunk)
+
+
+def test_speckle_images_too_large_to_correlate_are_refused_from_their_header(tmp_path):
+    """Not a physics check: memory safety. Speckle images whose header promises 8000 x 8000 px
+    (about 5 GB to correlate) under a 1 GB budget are refused by `check` and `run` alike naming
+    the budget, before an image is decoded (these files hold no image data: decoding would say
+    so instead)."""
+    from _inputs import ONE_PLY_RUN
+
+    np.save(tmp_path / "ir.npy", np.full((20, 4, 4), 295.0, np.float32))
+    for name in ("a.png", "b.png"):
+        _png_header_only(tmp_path / name, 8000, 8000)
+    cfg = tmp_path / "c.toml"
+    cfg.write_text(ONE_PLY_RUN + '''[run.thermal]
+frames = "ir.npy"
+frame_rate = "50 Hz"
+[run.dic]
+images = ["a.png", "b.png"]
+loads = ["1 kN", "10 kN"]
+pixel_size = "0.05 mm"
+[compute]
+memory_budget = "1 GB"
+scheduler = "synchronous"
+[output]
+figures = false
+report = false
+''')
+    _check_and_run_refuse(cfg, tmp_path, r"a\.png: speckle images of 8000x8000 px need about 5,120 MB to correlate, "
+                                         r"more than \[compute\] memory_budget = 1,000 MB")

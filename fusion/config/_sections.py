@@ -445,8 +445,9 @@ class ComputeSpec:
     workers: int = key(_schema.integer(low=1, high=1024), "Runs processed at once (default: the cores, "
                        "limited to available memory / (memory_budget + 400 MB)).")
     memory_budget: float = key(_schema.quantity("B", positive=True), "Memory a run may use for its "
-                               "per-pixel maps and frame chunks (frames too large for it are refused from "
-                               "the file's header).", unit="B", default=2e9)
+                               "per-pixel maps and frame chunks, and for correlating its speckle images "
+                               "(frames or images too large for it are refused from the file's header).",
+                               unit="B", default=2e9)
     scheduler: str = key(_schema.string(pattern=r"(tcp|tls|inproc)://\S+|processes|threads|synchronous",
                                         hint="expected tcp://HOST:PORT, 'processes', 'threads' or "
                                              "'synchronous'"),

@@ -30,8 +30,9 @@ read_load_signal, LoadSignal, read_frame_times
     Load signals (CSV) and frame timestamps.
 read_thermal_maps, MAP_QUANTITIES
     Precomputed T0 / delta_T / phase maps (NetCDF, TIFF, CSV) and the quantities they may hold.
-read_dic_field, read_image
-    Exported correlation fields (CSV, NetCDF, HDF5, MATLAB) and speckle images (PNG, TIFF).
+read_dic_field, read_image, image_shape
+    Exported correlation fields (CSV, NetCDF, HDF5, MATLAB), speckle images (PNG, TIFF) and their
+    size from the header alone.
 PLAUSIBLE, STRAIN_UNITS, check_strain_ranges, check_temperatures, check_ratio, check_load_ranges
     The plausible magnitude of every physical input, and the checks that stop a run on a
     likely unit slip with one sentence naming the file, the key and the unit.
@@ -40,7 +41,7 @@ PLAUSIBLE, STRAIN_UNITS, check_strain_ranges, check_temperatures, check_ratio, c
 from ._atomic import (atomic_path, atomic_write_bytes, atomic_write_text, content_digest, make_temp_folder,
                       parse_temp_name, safe_child, sha256_file, temp_name, this_host)
 from ._dic import read_dic_field
-from ._images import read_image
+from ._images import image_shape, read_image
 from ._logs import read_load_log, read_sequence_times
 from ._frames import FrameStack, open_frames
 from ._guard import input_file
@@ -59,7 +60,7 @@ __all__ = [
     "netcdf_form", "read_netcdf", "write_netcdf",
     "open_frames", "FrameStack", "read_load_signal", "LoadSignal", "read_frame_times", "read_thermal_maps",
     "MAP_QUANTITIES",
-    "read_dic_field", "read_image", "product_mark", "MARK_KEY",
+    "read_dic_field", "read_image", "image_shape", "product_mark", "MARK_KEY",
     "PLAUSIBLE", "STRAIN_UNITS", "check_strain_ranges", "check_temperatures", "check_ratio", "check_load_ranges",
     "open_sequence", "SequenceStack", "SequenceFiles", "list_sequence", "list_images", "is_sequence",
     "read_sequence_times", "read_load_log", "text_grid_cache", "file_identity",

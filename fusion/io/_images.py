@@ -11,7 +11,7 @@ import numpy as np
 from ..errors import InputError
 from ._guard import decoding, input_file, quiet_logger
 
-__all__ = ["read_image", "decode_png"]
+__all__ = ["read_image", "image_shape", "decode_png"]
 
 _PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 _SUFFIXES = {".png": "png", ".tif": "tiff", ".tiff": "tiff"}
@@ -89,6 +89,43 @@ def _to_grey(path, img):
     return img, False
 
 
+def image_shape(path) -> tuple[int, int]:
+    """(rows, columns) of a speckle image from its header alone, nothing decoded.
+
+    Raises
+    ------
+    InputError
+        Missing file, unknown format, samples that are no grey levels.
+    """
+    _, shape = _header_pixels(Path(path))
+    return shape
+
+
+def _header_pixels(path):
+    """Pixels of one image (a stack counts all its frames) and its (rows, columns), from the header."""
+    input_file(path, "a PNG or TIFF image")
+    kind = _SUFFIXES.get(path.suffix.lower())
+    if kind is None:
+        raise InputError(path, f"has the suffix {path.suffix!r}; expected one of "
+                         f"{sorted(_SUFFIXES)} (PNG or TIFF)")
+    if kind == "png":
+        h, w = _png_size(path)
+        return h * w, (h, w)
+    shape, dtype, _ = _tiff_shape(path)
+    if dtype.kind not in "uif":
+        raise InputError(path, f"holds {dtype} samples; expected integer or float grey levels")
+    channels = 1
+    if len(shape) == 3 and shape[-1] in (2, 3, 4):
+        channels = shape[-1]
+        rows_cols = shape[:2]
+    elif len(shape) == 3 and shape[0] in (3, 4):
+        channels = shape[0]
+        rows_cols = shape[1:]
+    else:
+        rows_cols = shape[-2:]
+    return int(np.prod(shape)) // channels, (int(rows_cols[0]), int(rows_cols[1]))
+
+
 def read_image(path, *, max_pixels=100_000_000):
     """Read a speckle image as a grey (H, W) array.
 
@@ -119,24 +156,8 @@ def read_image(path, *, max_pixels=100_000_000):
     path = Path(path)
     if isinstance(max_pixels, bool) or not isinstance(max_pixels, Integral) or max_pixels < 1:
         raise ValueError(f"max_pixels: expected a positive integer, got {max_pixels!r}")
-    input_file(path, "a PNG or TIFF image")
-    kind = _SUFFIXES.get(path.suffix.lower())
-    if kind is None:
-        raise InputError(path, f"has the suffix {path.suffix!r}; expected one of "
-                         f"{sorted(_SUFFIXES)} (PNG or TIFF)")
-    if kind == "png":
-        h, w = _png_size(path)
-        pixels = h * w
-    else:
-        shape, dtype, _ = _tiff_shape(path)
-        if dtype.kind not in "uif":
-            raise InputError(path, f"holds {dtype} samples; expected integer or float grey levels")
-        channels = 1
-        if len(shape) == 3 and shape[-1] in (2, 3, 4):
-            channels = shape[-1]
-        elif len(shape) == 3 and shape[0] in (3, 4):
-            channels = shape[0]
-        pixels = int(np.prod(shape)) // channels  # a stack counts all its frames
+    pixels, _ = _header_pixels(path)
+    kind = _SUFFIXES[path.suffix.lower()]
     if pixels > max_pixels:
         raise InputError(path, f"has {pixels} pixels, more than max_pixels={max_pixels}; "
                          "crop the image or raise the limit")

@@ -3,9 +3,9 @@
 from __future__ import annotations
 
 from ..errors import InputError
-from ..io import check_load_ranges, read_image
+from ..io import check_load_ranges, image_shape, read_image
 from ._files import need_file
-from ._inputs import frame_times, open_thermal_frames, speckle_images
+from ._inputs import frame_times, images_within_budget, open_thermal_frames, speckle_images
 from ._strain import check_region, check_table_strains, read_field
 from ._thermal import check_frames, load_and_frequency, load_range, maps_side
 
@@ -57,7 +57,9 @@ def check_run_inputs(cfg, run, *, key) -> str:
         images = speckle_images(d)
         if d.load_log is not None and load_span is not None:
             check_load_ranges(load_span, images.loads, where=d.load_log, what="the load log's loads")
-        first = read_image(need_file(images.paths[0], f"{key}.dic.images")).shape
+        first = image_shape(need_file(images.paths[0], f"{key}.dic.images"))
+        images_within_budget(images.paths[0], first, cfg.compute.memory_budget)
+        first = read_image(images.paths[0]).shape
         for p in images.paths[1:]:
             shape = read_image(need_file(p, f"{key}.dic.images")).shape
             if shape != first:

@@ -65,10 +65,10 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
     thermal_step = "lock-in" if run.thermal.frames is not None else "thermal maps"
     with step(thermal_step):
         load_range = run_load_range(run)
-    with step("strain inputs"):
-        ranges, disp = strain_side(run, load_range=load_range, progress=progress)
-
     budget = cfg.compute.memory_budget
+    with step("strain inputs"):
+        ranges, disp = strain_side(run, load_range=load_range, progress=progress, budget=budget)
+
     with step(thermal_step):
         thermal, t_valid, t_info, _ = thermal_side(run, budget=budget, progress=progress)
     frequency = t_info.get("frequency") or run.frequency

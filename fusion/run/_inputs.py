@@ -15,7 +15,8 @@ from ..io import (file_identity, is_sequence, list_sequence, open_frames, open_s
 from ..thermal import SAMPLE_FRAMES
 from ._files import beside_frames, frame_sequence, image_sequence, need_file
 
-__all__ = ["open_thermal_frames", "frames_within_budget", "frame_memory", "PIXEL_BYTES", "MOTION_PIXEL_BYTES", "frame_times", "speckle_images", "SpeckleImages", "reference_image_path",
+__all__ = ["open_thermal_frames", "frames_within_budget", "images_within_budget", "frame_memory", "PIXEL_BYTES",
+           "MOTION_PIXEL_BYTES", "IMAGE_PIXEL_BYTES", "frame_times", "speckle_images", "SpeckleImages", "reference_image_path",
            "input_state", "InputState"]
 
 
@@ -26,6 +27,11 @@ PIXEL_BYTES = 600
 #: The same with motion compensation (the motion field, its spline coefficients and a warped
 #: frame block beside the stack's).
 MOTION_PIXEL_BYTES = 1200
+#: Memory the correlation of a pair of speckle images holds per image pixel, bytes: both images,
+#: the reference's gradients, the deformed image's spline coefficients and their float64
+#: temporaries (the correlation's peak is about 60 bytes per pixel whatever the step; the rest
+#: is margin for the mask and the strain fit).
+IMAGE_PIXEL_BYTES = 80
 
 
 def frame_memory(frames, *, motion=False) -> int:
@@ -93,6 +99,17 @@ def frames_within_budget(run, budget) -> None:
             open_thermal_frames(spec, budget=budget)
     elif Path(spec.frames).is_file():
         open_thermal_frames(spec, budget=budget)
+
+
+def images_within_budget(path, shape, budget) -> None:
+    """Refuse speckle images of ``shape`` (rows, columns; from the header of ``path``) whose
+    correlation would need more than ``budget`` bytes (:data:`IMAGE_PIXEL_BYTES`)."""
+    need = IMAGE_PIXEL_BYTES * int(shape[0]) * int(shape[1])
+    if budget is not None and need > budget:
+        raise InputError(path, f"speckle images of {shape[0]}x{shape[1]} px need about {need / 1e6:,.0f} MB to "
+                         f"correlate, more than [compute] memory_budget = {budget / 1e6:,.0f} MB: crop the "
+                         "images to the specimen (or bin them), or raise memory_budget if this machine has "
+                         "the memory")
 
 
 def frame_times(spec, frames, load_sig):

@@ -9,9 +9,9 @@ import numpy as np
 from .._timing import step
 from ..dic import correlate, ranges_from_series, ranges_from_states, ranges_from_strain_table
 from ..errors import ConfigError, InputError
-from ..io import check_load_ranges, check_strain_ranges, read_dic_field, read_image
+from ..io import check_load_ranges, check_strain_ranges, image_shape, read_dic_field, read_image
 from ._files import need_file
-from ._inputs import speckle_images
+from ._inputs import images_within_budget, speckle_images
 
 __all__ = ["strain_side", "read_field", "check_field_points", "check_table_strains", "check_region", "MIN_POINTS"]
 
@@ -71,8 +71,11 @@ def _ranges(path, fn, *args, **kw):
         raise InputError(path, f"no strain ranges from this field: {e}") from e
 
 
-def strain_side(run, *, load_range=None, progress=False):
+def strain_side(run, *, load_range=None, progress=False, budget=None):
     """Strain ranges of a run on its correlation grid, with the displacement range when known.
+
+    ``budget`` (bytes, ``[compute] memory_budget``): speckle images too large to correlate
+    within it are refused from the reference's header, before any is decoded.
 
     Returns
     -------
@@ -111,6 +114,7 @@ def strain_side(run, *, load_range=None, progress=False):
         loads, paths = images.loads, images.paths
         if spec.load_log is not None and load_range is not None:
             check_load_ranges(load_range, loads, where=spec.load_log, what="the load log's loads")
+        images_within_budget(paths[0], image_shape(need_file(paths[0], "dic.images")), budget)
         imgs = [read_image(need_file(p, "dic.images")) for p in paths]
         for p, img in zip(paths[1:], imgs[1:]):
             if img.shape != imgs[0].shape:
