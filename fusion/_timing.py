@@ -11,9 +11,10 @@ from __future__ import annotations
 
 import contextlib
 import contextvars
+import sys
 import time
 
-__all__ = ["Timings", "step", "current", "STEP_ORDER"]
+__all__ = ["Timings", "step", "current", "compiled_kernels", "STEP_ORDER"]
 
 #: Steps in the order of a run (summary.json and the terminal line keep this order).
 STEP_ORDER = ("input digests", "strain inputs", "correlation", "strain fit", "lock-in", "thermal maps",
@@ -79,3 +80,21 @@ def step(name: str):
         yield
     finally:
         timings._leave()
+
+
+def compiled_kernels() -> int:
+    """How many of fusion's numeric kernels this process has compiled rather than loaded from
+    numba's cache (a cache miss each): a run's first use on a fresh installation compiles them,
+    which the terminal says so that the time is not taken for the step's own."""
+    registry = sys.modules.get("numba.core.registry")
+    if registry is None:
+        return 0
+    seen, n = set(), 0
+    for name, module in list(sys.modules.items()):
+        if not name.startswith("fusion.") or module is None:
+            continue
+        for value in list(vars(module).values()):
+            if isinstance(value, registry.CPUDispatcher) and id(value) not in seen:
+                seen.add(id(value))
+                n += sum(value.stats.cache_misses.values())
+    return n

@@ -1,5 +1,7 @@
 """The seconds of a run's steps: their accounting (summary.json ``timings``) and the terminal line."""
 
+import re
+
 import pytest
 
 import fusion._timing as timing
@@ -92,3 +94,33 @@ def test_step_names_of_the_run_are_known():
     # not a physics check: the steps fusion's run records are in the order the summary keeps
     assert len(set(STEP_ORDER)) == len(STEP_ORDER)
     assert {"correlation", "lock-in", "registration", "figures", "result.nc"} <= set(STEP_ORDER)
+
+
+@pytest.mark.slow
+def test_kernels_compiled_on_first_use_are_said_once(tmp_path):
+    # not a physics check: a fresh compile cache (as on a new installation) makes the first run
+    # compile its numeric kernels; the terminal says that its time includes them, the next run
+    # (kernels from the cache) does not
+    import os
+    import subprocess
+    import sys
+
+    import numpy as np
+
+    from _inputs import stack, write_config, write_load, write_strain
+
+    rng = np.random.default_rng(5)
+    t = np.arange(400) / 50.0
+    np.save(tmp_path / "ir.npy", stack(t, 5.0, -0.08, rng))
+    write_load(tmp_path / "load.csv", t, 5.0)
+    write_strain(tmp_path / "strain.csv")
+    cfg = write_config(tmp_path, run='frequency = "5 Hz"', thermal='frame_rate = "50 Hz"', dic='coordinates = "mm"')
+    env = dict(os.environ, NUMBA_CACHE_DIR=str(tmp_path / "kernels"))
+    argv = [sys.executable, "-m", "fusion.cli", "run", str(cfg), "--out", str(tmp_path / "out"), "--overwrite"]
+    first = subprocess.run(argv, env=env, capture_output=True, text=True)
+    assert first.returncode == 0, first.stderr
+    assert re.search(r"time: .*\(includes compiling \d+ numeric kernels? on first use; cached for later runs\)",
+                     first.stdout), first.stdout
+    again = subprocess.run(argv, env=env, capture_output=True, text=True)
+    assert again.returncode == 0, again.stderr
+    assert "time:" in again.stdout and "compiling" not in again.stdout, again.stdout

@@ -39,6 +39,7 @@ class RunOutcome:
     seconds: float = 0.0
     summary: dict | None = None
     digests: dict | None = None
+    compiled: int = 0          # numeric kernels compiled (not loaded from the cache) by this run
 
 
 @dataclasses.dataclass
@@ -69,7 +70,9 @@ class CampaignOutcome:
                 lines.append(f"  done    {r.name} ({r.seconds:.1f} s){': ' + verdict if verdict else ''}")
                 steps = timing_line((r.summary or {}).get("timings"))
                 if steps:
-                    lines.append(f"          time: {steps}")
+                    first = (f" (includes compiling {r.compiled} numeric kernel{'s' if r.compiled > 1 else ''} "
+                             "on first use; cached for later runs)" if r.compiled else "")
+                    lines.append(f"          time: {steps}{first}")
                 # registration warnings change what the verdict means: shown here, not only in the report
                 lines += [f"          warning ({w['code']}): {w['message']}"
                           for w in _registration_warnings(r) if (w["code"], w["message"]) not in shared]

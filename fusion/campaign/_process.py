@@ -7,7 +7,7 @@ import shutil
 import time
 from pathlib import Path
 
-from .._timing import Timings, step
+from .._timing import Timings, compiled_kernels, step
 from ..config import Config, load_config
 from ..errors import ConfigError, FusionError, InputError
 from ..io import make_temp_folder, safe_child
@@ -33,6 +33,7 @@ def process_run(config_path, run_name: str, out, *, overwrite: bool = False,
 
 
 def _process(config_path, run_name, out, *, overwrite, progress, config, t0) -> RunOutcome:
+    compiled = compiled_kernels()
     try:
         cfg = config if config is not None else load_config(config_path)
         run = next((r for r in cfg.runs if r.name == run_name), None)
@@ -67,7 +68,7 @@ def _process(config_path, run_name, out, *, overwrite, progress, config, t0) -> 
             shutil.rmtree(tmp, ignore_errors=True)
             raise
         return RunOutcome(run.name, "done", folder, seconds=time.perf_counter() - t0, summary=summary,
-                          digests=digests.new)
+                          digests=digests.new, compiled=compiled_kernels() - compiled)
     except FusionError as e:
         log.info("run %s failed: %s", run_name, e)
         return RunOutcome(run_name, "failed", error=str(e), seconds=time.perf_counter() - t0)
