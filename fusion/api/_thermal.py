@@ -29,6 +29,24 @@ def _load(load, load_times):
     return np.asarray(load, np.float64), None if load_times is None else np.asarray(load_times, np.float64)
 
 
+def _add_measured(maps):
+    """Add the measured ratio dT/T0, its std, the SNR and (with a quadrature) the phase lag to
+    ``maps``; returns the lag's std (None without a quadrature: no lag, as in a run)."""
+    ratio, ratio_std, snr, lag, lag_std = measured_ratio(maps["T0"], maps["delta_T"], maps["delta_T_std"],
+                                                         maps.get("delta_T_quadrature"))
+    maps.update(ratio_measured=ratio, ratio_measured_std=ratio_std, snr=snr)
+    if lag is not None:
+        maps["phase_lag_measured"] = lag
+    return lag_std
+
+
+def _add_lag_std_and_valid(ds, lag_std, ok, meaning):
+    if lag_std is not None:
+        ds["phase_lag_measured_std"] = extra(("y", "x"), lag_std, "degree", "standard deviation of "
+                                             "phase_lag_measured")
+    ds["thermal_valid"] = flag(("y", "x"), ok, meaning)
+
+
 def lockin_maps(frames, *, frequency=None, frame_rate=None, times=None, load=None, load_times=None,
                 gain=1.0, offset=0.0, saturation=None, motion=None, chunk_frames=None, progress=False):
     """Lock-in maps of an infrared frame stack, labelled on the IR grid.
@@ -119,9 +137,7 @@ def lockin_maps(frames, *, frequency=None, frame_rate=None, times=None, load=Non
     ok = np.asarray(res.valid, bool)
     check_temperature(np.asarray(res.T0)[ok], "frames")
     maps = res.to_maps()
-    ratio, ratio_std, snr, lag, lag_std = measured_ratio(maps["T0"], maps["delta_T"], maps["delta_T_std"],
-                                                         maps.get("delta_T_quadrature"))
-    maps.update(ratio_measured=ratio, ratio_measured_std=ratio_std, snr=snr, phase_lag_measured=lag)
+    lag_std = _add_measured(maps)
     load_range = float("nan")
     if load_v is not None:
         lt = load_t if load_t is not None else (np.asarray(times, np.float64) if times is not None
@@ -137,10 +153,7 @@ def lockin_maps(frames, *, frequency=None, frame_rate=None, times=None, load=Non
                                       "load the frames were warped back by, (x, y) = (column, row) IR px per "
                                       "unit of the load")
         ds = ds.assign_coords(component=["x", "y"])
-    ds["phase_lag_measured_std"] = extra(("y", "x"), lag_std, "degree", "standard deviation of "
-                                         "phase_lag_measured")
-    ds["thermal_valid"] = flag(("y", "x"), ok, "pixel fitted by the lock-in (no NaN, saturated or dead "
-                               "frames)")
+    _add_lag_std_and_valid(ds, lag_std, ok, "pixel fitted by the lock-in (no NaN, saturated or dead frames)")
     ds.attrs.update(frequency=float(res.frequency), frequency_units="Hz", load_range=load_range,
                     n_frames=int(res.n_frames), frame_rate=float(res.frame_rate),
                     reference_phase=float(res.reference_phase), bad_pixels=dict(res.bad_pixels),
@@ -209,17 +222,9 @@ def thermal_maps(maps, *, delta_T_convention, frequency=None, variables=None):
         where = str(maps) if not isinstance(maps, dict) else "maps"
         arrays = read_thermal_maps(maps, variables=variables)
     out, ok, warnings = prepared_maps(arrays, delta_T_convention, where=where)
-    ratio, ratio_std, snr, lag, lag_std = measured_ratio(out["T0"], out["delta_T"], out["delta_T_std"],
-                                                         out.get("delta_T_quadrature"))
-    out.update(ratio_measured=ratio, ratio_measured_std=ratio_std, snr=snr)
-    if lag is not None:
-        # without a quadrature (or phase) the maps carry no phase lag, as in a run
-        out["phase_lag_measured"] = lag
+    lag_std = _add_measured(out)
     ds = result_dataset(out)
-    if lag_std is not None:
-        ds["phase_lag_measured_std"] = extra(("y", "x"), lag_std, "degree", "standard deviation of "
-                                             "phase_lag_measured")
-    ds["thermal_valid"] = flag(("y", "x"), ok, "pixel with T0 and delta_T in the maps")
+    _add_lag_std_and_valid(ds, lag_std, ok, "pixel with T0 and delta_T in the maps")
     ds.attrs.update(delta_T_convention=delta_T_convention, warnings=list(warnings),
                     **({"frequency": float(frequency), "frequency_units": "Hz"} if frequency is not None else {}))
     return ds

@@ -27,12 +27,11 @@ from pathlib import Path
 import numpy as np
 
 from .. import __version__
-from ..campaign import is_marked_folder, mark_folder, publish
+from ..campaign import build_marked, is_marked_folder
 from ..config import load_config
 from ..demo import cache_folder as demo_cache_folder
 from ..demo._physics import apply_homography, coupon_mask, demo_homography, kirsch_displacement, kirsch_strain
 from ..dic import speckle_image
-from ..io import make_temp_folder
 from ..mechanics import engineering_constants, thermal_layers, transfer_coefficients
 
 log = logging.getLogger(__name__)
@@ -256,13 +255,4 @@ def realistic_inputs(frames: int = FRAMES) -> Path:
         return folder
     if os.path.lexists(folder):
         raise FileExistsError(f"{folder}: exists and is not a benchmark folder fusion made; move it away")
-    folder.parent.mkdir(parents=True, exist_ok=True)
-    tmp = make_temp_folder(folder.parent, folder.name, "partial")
-    try:
-        _generate_into(tmp, frames)
-        mark_folder(tmp, _MARK)
-        publish(tmp, folder, _MARK)
-    except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
-        raise
-    return folder
+    return build_marked(folder, _MARK, lambda tmp: _generate_into(tmp, frames))

@@ -19,22 +19,23 @@ run_stamp
     The hash of everything that determines a run's result.
 campaign_lock, LOCK_NAME
     The exclusive lock of an output folder.
-mark_folder, is_marked_folder, publish, recover, foreign_message
+mark_folder, is_marked_folder, publish, recover, foreign_message, build_marked
     What in a folder is fusion's: the marker of a folder it made, publishing such a
     folder in place of fusion's old one, putting back what a crash left, and the
-    sentence that refuses anything else.
+    sentence that refuses anything else; build_marked makes such a folder whole or not at all.
 watch_campaign, refresh_products
     ``fusion watch``: each run processed as soon as its inputs are complete; the campaign
     products rebuilt from the result folders on disk.
 """
 
 from ._campaign import check_campaign, run_campaign
-from ._folders import LOCK_NAME, campaign_lock, foreign_message, is_marked_folder, mark_folder, publish, recover
+from ._folders import (LOCK_NAME, build_marked, campaign_lock, foreign_message, is_marked_folder, mark_folder,
+                       publish, recover)
 from ._outcome import CampaignOutcome, RunOutcome
 from ._process import process_run
 from ._provenance import run_stamp
 from ._watch import refresh_products, watch_campaign
 
-__all__ = ["CampaignOutcome", "LOCK_NAME", "RunOutcome", "campaign_lock", "check_campaign", "foreign_message",
-           "is_marked_folder", "mark_folder", "process_run", "publish", "recover", "refresh_products",
+__all__ = ["CampaignOutcome", "LOCK_NAME", "RunOutcome", "build_marked", "campaign_lock", "check_campaign",
+           "foreign_message", "is_marked_folder", "mark_folder", "process_run", "publish", "recover", "refresh_products",
            "run_campaign", "run_stamp", "watch_campaign"]

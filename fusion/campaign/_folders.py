@@ -39,11 +39,11 @@ from pathlib import Path
 
 from .. import __version__
 from ..errors import InputError
-from ..io import atomic_write_text, content_digest, parse_temp_name, temp_name, this_host
+from ..io import atomic_write_text, content_digest, make_temp_folder, parse_temp_name, temp_name, this_host
 
 log = logging.getLogger(__name__)
 
-__all__ = ["LOCK_NAME", "RUN_MARKER", "PRODUCTS_NAME", "campaign_lock", "check_campaign_targets", "publish",
+__all__ = ["build_marked", "LOCK_NAME", "RUN_MARKER", "PRODUCTS_NAME", "campaign_lock", "check_campaign_targets", "publish",
            "publish_steps", "recover", "mark_folder", "is_marked_folder", "refuse_foreign", "foreign_message",
            "owned_product", "product_path", "remove_product", "refuse_foreign_product"]
 
@@ -283,6 +283,22 @@ def publish(tmp: Path, folder: Path, name: str | None = None) -> None:
             with contextlib.suppress(OSError):
                 os.rename(aside, folder)
         raise
+
+
+def build_marked(folder: Path, name: str, fill) -> Path:
+    """Make ``folder`` whole or not at all: ``fill(tmp)`` writes into a temporary folder beside
+    it, which is then marked as fusion's ``name`` and published; removed if anything fails."""
+    folder = Path(folder)
+    folder.parent.mkdir(parents=True, exist_ok=True)
+    tmp = make_temp_folder(folder.parent, folder.name, "partial")
+    try:
+        fill(tmp)
+        mark_folder(tmp, name)
+        publish(tmp, folder, name)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    return folder
 
 
 def check_campaign_targets(out: Path) -> None:

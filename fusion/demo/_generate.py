@@ -13,11 +13,11 @@ from pathlib import Path
 import numpy as np
 
 from .. import __version__
-from ..campaign import foreign_message, is_marked_folder, mark_folder, publish, run_campaign
+from ..campaign import build_marked, foreign_message, is_marked_folder, run_campaign
 from ..config import load_config
 from ..dic import speckle_image
 from ..errors import InputError
-from ..io import make_temp_folder, write_netcdf
+from ..io import write_netcdf
 from ..mechanics import engineering_constants, lateral_response, thermal_layers, transfer_coefficients
 from ._physics import (apply_homography, coupon_mask, demo_homography, fiducial_centres,
                             kirsch_displacement, kirsch_strain)
@@ -334,15 +334,7 @@ def generate(folder=None, *, force=False) -> Path:
         else:
             raise InputError(folder, foreign_message("is not empty and is not a demo folder fusion made "
                                                      "(no marker inside)"))
-    folder.parent.mkdir(parents=True, exist_ok=True)
-    tmp = make_temp_folder(folder.parent, folder.name, "partial")
-    try:
-        _generate_into(tmp)
-        mark_folder(tmp, _DEMO_MARK)
-        publish(tmp, folder, _DEMO_MARK)
-    except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
-        raise
+    build_marked(folder, _DEMO_MARK, _generate_into)
     return cfg_path
 
 

@@ -30,7 +30,7 @@ import numpy as np
 
 from ..errors import InputError
 
-__all__ = ["MAX_READ_BYTES", "QUOTE_CHARS", "input_file", "check_bytes", "npy_header", "h5_dataset",
+__all__ = ["MAX_READ_BYTES", "QUOTE_CHARS", "input_file", "small_text", "check_bytes", "npy_header", "h5_dataset",
            "hdf5_stays_inside", "decoding", "quiet_logger", "text_rows_warning", "clip", "quote"]
 
 #: Largest array a reader materialises in memory at once, bytes (2 GiB, the default
@@ -97,6 +97,22 @@ def input_file(path, what: str, *, missing: str = "does not exist") -> Path:
     except OSError as e:
         raise InputError(path, f"cannot be read ({e.strerror or e}); expected {what}") from e
     return path
+
+
+def small_text(path, what: str, *, kind: str) -> tuple[Path, str]:
+    """The checked path and the text of a small text input (a table, one frame's grid).
+
+    ``what`` names the input in messages; ``kind`` is the text a file of that kind holds
+    (too large or not text: :class:`~fusion.errors.InputError` saying so).
+    """
+    path = input_file(path, what)
+    size = path.stat().st_size
+    if size > MAX_READ_BYTES // 4:
+        raise InputError(path, f"is {size / 2**20:.0f} MiB, more than {kind} may have; expected {what}")
+    try:
+        return path, path.read_bytes().decode("utf-8-sig")
+    except UnicodeDecodeError as e:
+        raise InputError(path, f"is not a text file (expected {what})") from e
 
 
 def check_bytes(path, shape, itemsize: int, *, what: str, max_bytes=None) -> int:

@@ -16,7 +16,7 @@ import math
 import numpy as np
 
 from ..errors import InputError
-from ._guard import MAX_READ_BYTES, input_file
+from ._guard import small_text
 from ._sequences import SequenceFiles
 from ._signals import read_frame_times
 from ._textgrids import text_delimiter
@@ -30,14 +30,7 @@ def _number(text, decimal):
 
 def read_table(path, *, decimal=".", what="a table"):
     """A small delimited text table: its header names (None when the first row is numbers) and rows."""
-    path = input_file(path, what)
-    size = path.stat().st_size
-    if size > MAX_READ_BYTES // 4:
-        raise InputError(path, f"is {size / 2**20:.0f} MiB, more than a text table may have; expected {what}")
-    try:
-        text = path.read_bytes().decode("utf-8-sig")
-    except UnicodeDecodeError as e:
-        raise InputError(path, f"is not a text file (expected {what})") from e
+    path, text = small_text(path, what, kind="a text table")
     lines = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
     if not lines:
         raise InputError(path, f"is empty; expected {what}")

@@ -28,7 +28,7 @@ import numpy as np
 
 from ..errors import InputError
 from ._frames import open_frames
-from ._guard import MAX_READ_BYTES, input_file, npy_header, text_rows_warning
+from ._guard import npy_header, small_text, text_rows_warning
 
 log = logging.getLogger(__name__)
 
@@ -87,14 +87,8 @@ def parse_grid(path, *, decimal="."):
     -------
     (rows, cols) float64 ndarray
     """
-    path = input_file(path, "a text grid of one frame (CSV or TXT)")
-    size = path.stat().st_size
-    if size > MAX_READ_BYTES // 4:
-        raise InputError(path, f"is {size / 2**20:.0f} MiB, more than a text grid of one frame may have")
-    try:
-        text = path.read_bytes().decode("utf-8-sig")
-    except UnicodeDecodeError as e:
-        raise InputError(path, "is not a text file (expected a grid of numbers, one frame row per line)") from e
+    path, text = small_text(path, "a grid of numbers, one frame row per line (CSV or TXT)",
+                            kind="a text grid of one frame")
     lines = text.splitlines()
     start, delim = None, None
     for i, line in enumerate(lines[:_HEADER_LINES]):
