@@ -75,6 +75,7 @@ OTHER_MODULES = {
     "test_campaign_dask.py": "dask.distributed scheduling",
     "test_memory_budget.py": "memory use of the streaming passes",
     "test_import_graph.py": "the import structure of the package",
+    "test_kernel_cache.py": "compiled kernels and numba's on-disk cache",
     "test_report_resolution.py": "resolution attributes through result.nc, summary.json and the report",
     "test_campaign_products.py": "frequency.nc, the band sentences and the report of a small campaign",
     "test_ownership.py": "what in an output folder is fusion's: publishing, recovery, refusals",

@@ -12,6 +12,8 @@ of the prefiltered deformed image (Unser 1999), evaluated with the exact
 
 from __future__ import annotations
 
+import types
+
 import numba
 import numpy as np
 from numba import njit, prange
@@ -416,8 +418,21 @@ def _batch(ref, gx, gy, coef, mask, rows, cols, p0, half, max_iter, tol, min_znc
     return p, zncc, iters, reason, sssig, noise
 
 
-_batch_parallel = njit(cache=True, parallel=True)(_batch)
-_batch_serial = njit(cache=True)(_batch)
+def _renamed(fn, name):
+    """A copy of ``fn`` under another name.
+
+    numba's on-disk cache tells functions apart by module, name and line, not by compile
+    options: a serial and a parallel compilation of one function would load each other's
+    machine code, and the parallel one could run on one thread.
+    """
+    copy = types.FunctionType(fn.__code__, fn.__globals__, name, fn.__defaults__, fn.__closure__)
+    copy.__qualname__ = name
+    copy.__doc__ = fn.__doc__
+    return copy
+
+
+_batch_parallel = njit(cache=True, parallel=True)(_renamed(_batch, "_batch_parallel"))
+_batch_serial = njit(cache=True)(_renamed(_batch, "_batch_serial"))
 
 #: Below this many subsets a batch runs on one thread: waking the thread team
 #: costs more than it saves, and much more when the cores are shared.
