@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from numbers import Integral, Real
 
@@ -245,8 +246,11 @@ class _Solver:
 
     def __init__(self, ref, deformed, mask, rows, cols, half, opts):
         self.ref, self.deformed, self.mask = ref, deformed, mask
-        self.coef = _icgn.prefilter(deformed)
-        self.gx, self.gy = _icgn.reference_gradients(_icgn.prefilter(ref))
+        # scipy.ndimage's filters release the GIL: the two images are filtered side by side
+        with ThreadPoolExecutor(1) as pool:
+            coef = pool.submit(_icgn.prefilter, deformed)
+            self.gx, self.gy = _icgn.reference_gradients(_icgn.prefilter(ref))
+            self.coef = coef.result()
         self.rows, self.cols, self.half, self.opts = rows, cols, half, opts
         shape = rows.shape
         self.p = np.full(shape + (6,), np.nan)
