@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 import re
 import struct
 import zlib
@@ -481,3 +482,42 @@ def test_maps_are_drawn_at_their_native_resolution_in_pdf(tmp_path):
         sizes += [(int(w), int(h)) for h, w in re.findall(rb"/Height (\d+)\s*/Width (\d+)", pdf)]
         # every image is a map at its own size, or the colour bar's strip
         assert (NX, NY) in sizes and all(s == (NX, NY) or max(s) >= 10 * min(s) for s in sizes), (name, sizes)
+
+
+def test_figures_drawn_aside_are_the_same_files_as_drawn_here(tmp_path):
+    # not a physics check: two code paths of the package compared (a forked process draws a
+    # share of the figures while this one writes), pixel for pixel
+    from fusion.report._aside import draw_figures_aside, split_figures
+
+    ds = make_result()
+    ref = np.random.default_rng(0).random((NY, NX))
+    kw = dict(reference_image=ref, region_mask=np.ones((NY, NX), bool), dpi=40)
+    here = report.run_figures(ds, tmp_path / "here", **kw)
+    aside, own = draw_figures_aside(ds, tmp_path / "aside", parallel=True, **kw)
+    drawn = report.run_figures(ds, tmp_path / "aside", names=own, **kw)
+    drawn.update(aside.collect())
+    assert sorted(drawn) == sorted(here) and own and len(own) < len(here)
+    for name, path in here.items():
+        assert drawn[name].read_bytes() == path.read_bytes(), name
+    # the share: every figure once, on one side only
+    away, stay = split_figures(list(report.FIGURE_NAMES))
+    assert sorted(away + stay) == sorted(report.FIGURE_NAMES) and not set(away) & set(stay)
+
+
+def test_a_failure_in_the_figure_process_reaches_the_run(tmp_path):
+    # not a physics check: the forked process's exception is raised here, the process waited for
+    from fusion.report._aside import draw_figures_aside
+
+    ds = make_result()
+    (tmp_path / "measured_vs_predicted.png").write_bytes(b"a user's file")
+    aside, own = draw_figures_aside(ds, tmp_path, parallel=True, dpi=40)
+    assert "measured_vs_predicted" not in own
+    with pytest.raises(InputError, match="exists already"):
+        aside.collect()
+    assert (tmp_path / "measured_vs_predicted.png").read_bytes() == b"a user's file"
+    # abandoned (this side failed first): the child is stopped and reaped
+    aside, _ = draw_figures_aside(ds, tmp_path / "x", parallel=True, dpi=40)
+    pid = aside._pid
+    aside.abandon()
+    with pytest.raises(ChildProcessError):
+        os.waitpid(pid, os.WNOHANG)

@@ -13,7 +13,7 @@ from ._figures import (
 from ._profiles import default_profile_line, profile_figure, through_thickness_figure
 from ._spread import heat_spread_figure
 
-__all__ = ["run_figures", "save_figure", "FIGURE_NAMES", "DEFAULT_DPI"]
+__all__ = ["run_figures", "figure_names", "save_figure", "FIGURE_NAMES", "DEFAULT_DPI"]
 
 #: Figure names in report order.
 FIGURE_NAMES = ("measured_vs_predicted", "residuals", "heat_spread", "source_map", "overlay", "profile",
@@ -58,7 +58,7 @@ def _check_formats(formats):
 
 
 def run_figures(ds, out_dir, *, formats=("png",), dpi=DEFAULT_DPI, reference_image=None, region_mask=None,
-                profile_line=None, ply_profile=None, overwrite: bool = False) -> dict[str, Path]:
+                profile_line=None, ply_profile=None, overwrite: bool = False, names=None) -> dict[str, Path]:
     """Write the figures of one run.
 
     Parameters
@@ -82,6 +82,8 @@ def run_figures(ds, out_dir, *, formats=("png",), dpi=DEFAULT_DPI, reference_ima
         Rows ``name, z_top, z_bottom (m), ratio``; enables ``through_thickness``.
     overwrite : bool
         Replace existing files (otherwise :class:`fusion.errors.InputError`).
+    names : iterable of str, optional
+        Draw only these of the figures (default: all that the inputs allow).
 
     Returns
     -------
@@ -95,9 +97,31 @@ def run_figures(ds, out_dir, *, formats=("png",), dpi=DEFAULT_DPI, reference_ima
     formats = _check_formats(formats)
     if not (isinstance(dpi, (int, np.integer)) and 30 <= dpi <= 1200):
         raise ValueError(f"dpi={dpi!r} must be an integer between 30 and 1200")
+    builders = _builders(ds, reference_image, region_mask, profile_line, ply_profile)
+    if names is not None:
+        builders = {k: v for k, v in builders.items() if k in set(names)}
+    out_dir = Path(out_dir)
+    written = {}
+    for name, build in builders.items():
+        fig = build()
+        for k, fmt in enumerate(formats):
+            path = save_figure(fig, out_dir / f"{name}.{fmt}", dpi=int(dpi), overwrite=overwrite)
+            if k == 0:
+                written[name] = path
+                # laid out once: the other formats keep the positions found for the first
+                fig.set_layout_engine("none")
+    return written
+
+
+def figure_names(ds, *, reference_image=None, profile_line=None, ply_profile=None) -> list[str]:
+    """The figures :func:`run_figures` would write for ``ds`` with these inputs, in report order."""
+    return list(_builders(ds, reference_image, None, profile_line, ply_profile))
+
+
+def _builders(ds, reference_image, region_mask, profile_line, ply_profile):
+    """Figure name to a function drawing it, in report order, for the figures ``ds`` allows."""
     if "ratio_measured" not in ds.data_vars:
         raise ValueError(f"the result has no 'ratio_measured' map; present: {sorted(ds.data_vars)}")
-    out_dir = Path(out_dir)
     builders = {"measured_vs_predicted": lambda: measured_vs_predicted_figure(ds)}
     if evaluated_sources(ds, "residual_"):
         builders["residuals"] = lambda: residuals_figure(ds)
@@ -112,19 +136,7 @@ def run_figures(ds, out_dir, *, formats=("png",), dpi=DEFAULT_DPI, reference_ima
         builders["profile"] = lambda: profile_figure(ds, line)
     if ply_profile is not None:
         builders["through_thickness"] = lambda: through_thickness_figure(ply_profile, measured=_measured_quartiles(ds))
-
-    written = {}
-    for name in FIGURE_NAMES:
-        if name not in builders:
-            continue
-        fig = builders[name]()
-        for k, fmt in enumerate(formats):
-            path = save_figure(fig, out_dir / f"{name}.{fmt}", dpi=int(dpi), overwrite=overwrite)
-            if k == 0:
-                written[name] = path
-                # laid out once: the other formats keep the positions found for the first
-                fig.set_layout_engine("none")
-    return written
+    return {name: builders[name] for name in FIGURE_NAMES if name in builders}
 
 
 def _measured_quartiles(ds):

@@ -6,7 +6,8 @@ from pathlib import Path
 
 from .._timing import current, step
 from ..io import write_netcdf
-from ..report import run_figures, summarize_run, write_summary
+from ..report import FIGURE_NAMES, run_figures, summarize_run, write_summary
+from ..report._aside import draw_figures_aside
 from ._compose import RunResult
 from ._files import INPUT_DIGEST, input_digests
 
@@ -25,15 +26,26 @@ def write_run(result: RunResult, folder: Path, *, cfg, run, stamp: str, inputs: 
     ds = result.dataset
     ds.attrs["input_digests"] = inputs
     ds.attrs["input_digest_algorithm"] = INPUT_DIGEST
-    with step("result.nc"):
-        write_netcdf(ds, folder / "result.nc")
+    figs, aside = {}, None
     if cfg.output.figures:
+        fig_kw = dict(formats=cfg.output.formats, dpi=cfg.output.dpi,
+                      reference_image=result.figure_inputs.get("reference_image"),
+                      region_mask=result.figure_inputs.get("region_mask"),
+                      profile_line=cfg.output.profile_line, ply_profile=result.figure_inputs.get("ply_profile"))
         with step("figures"):
-            figs = run_figures(ds, folder / "figures", formats=cfg.output.formats, dpi=cfg.output.dpi,
-                               reference_image=result.figure_inputs.get("reference_image"),
-                               region_mask=result.figure_inputs.get("region_mask"),
-                               profile_line=cfg.output.profile_line,
-                               ply_profile=result.figure_inputs.get("ply_profile"))
+            aside, here = draw_figures_aside(ds, folder / "figures", parallel=_cores_of_its_own(), **fig_kw)
+    try:
+        with step("result.nc"):
+            write_netcdf(ds, folder / "result.nc")
+        if cfg.output.figures:
+            with step("figures"):
+                drawn = run_figures(ds, folder / "figures", names=here, **fig_kw)
+                drawn.update(aside.collect())
+            figs = {k: drawn[k] for k in FIGURE_NAMES if k in drawn}
+    except BaseException:
+        if aside is not None:
+            aside.abandon()
+        raise
     with step("summary"):
         # the valid area is judged against the usable thermal area (meta["footprint"]), by the
         # registration's footprint rule: no limit of its own here
@@ -48,3 +60,11 @@ def write_run(result: RunResult, folder: Path, *, cfg, run, stamp: str, inputs: 
             summary["timings"] = timings.to_dict()
         write_summary(summary, folder / "summary.json")
     return summary
+
+
+def _cores_of_its_own() -> bool:
+    """Whether this run has more than one core to itself (a worker of a parallel campaign has
+    its numba threads cut to its share), so that figures may be drawn by a second process."""
+    import numba
+
+    return numba.get_num_threads() >= 2
