@@ -85,3 +85,20 @@ def test_version(capsys):
         main(["--version"])
     assert e.value.code == 0
     assert __version__ in capsys.readouterr().out
+
+
+@pytest.mark.parametrize("thread", [False, True])
+def test_leaving_flushes_output_and_runs_exit_handlers(thread):
+    # not a physics check: the command ends without the interpreter's teardown, yet output
+    # written, exit handlers and a thread still at work are kept
+    code = ("import atexit, sys, threading, time\n"
+            "from fusion.cli import leave\n"
+            "atexit.register(lambda: print('handler', flush=True))\n"
+            + ("threading.Thread(target=lambda: (time.sleep(0.3), print('thread'))).start()\n" if thread else "")
+            + "print('written', end=' ')\n"
+            "sys.stderr.write('to stderr')\n"
+            "leave(3)\n")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60)
+    assert done.returncode == 3
+    assert done.stdout.split() == (["written", "thread", "handler"] if thread else ["written", "handler"])
+    assert done.stderr == "to stderr"
