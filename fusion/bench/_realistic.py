@@ -2,7 +2,7 @@
 
 The inputs (:mod:`fusion.bench._realistic_data`) are generated once into the cache: an
 infrared stack of 640 x 512 px int16 counts (2000 frames by default, 1.3 GB), two speckle
-images of 2448 x 2048 px correlated with subsets of 31 px every 10 px (about 49 000 points), a
+images of 2448 x 2048 px correlated with subsets of 31 px every 10 px (about 35 000 points inside the coupon's mask), a
 homography from six markers. Measured, all in one call of the benchmark:
 
 * in a fresh interpreter, in turns: the **compute core** (the lock-in pass over the stack and

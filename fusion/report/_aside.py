@@ -13,6 +13,7 @@ import os
 import pickle
 import sys
 import traceback
+from pathlib import Path
 
 from ..errors import FusionError
 from ._run_figures import figure_names, run_figures
@@ -85,9 +86,9 @@ class _Aside:
         """Figure name to path for this share; re-raises the drawing's exception."""
         if self._pid is None:
             return run_figures(*self._args, names=self._names, **self._kwargs) if self._names else {}
-        with os.fdopen(self._fd, "rb") as fh:
+        fh, self._fd = os.fdopen(self._fd, "rb"), None
+        with fh:
             payload = fh.read()
-        self._fd = None
         _, status = os.waitpid(self._pid, 0)
         self._pid = None
         if not payload:
@@ -95,8 +96,6 @@ class _Aside:
                               f"(exit status {os.waitstatus_to_exitcode(status)}; out of memory?)")
         message = pickle.loads(payload)
         if message[0] == "ok":
-            from pathlib import Path
-
             return {k: Path(v) for k, v in message[1].items()}
         _, exc, text = message
         if isinstance(exc, BaseException):
@@ -114,7 +113,8 @@ class _Aside:
         except ProcessLookupError:
             pass
         os.waitpid(self._pid, 0)
-        os.close(self._fd)
+        if self._fd is not None:
+            os.close(self._fd)
         self._pid = self._fd = None
 
 
