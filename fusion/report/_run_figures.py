@@ -99,7 +99,8 @@ def run_figures(ds, out_dir, *, formats=("png",), dpi=DEFAULT_DPI, reference_ima
         raise ValueError(f"dpi={dpi!r} must be an integer between 30 and 1200")
     builders = _builders(ds, reference_image, region_mask, profile_line, ply_profile)
     if names is not None:
-        builders = {k: v for k, v in builders.items() if k in set(names)}
+        names = set(names)
+        builders = {k: v for k, v in builders.items() if k in names}
     out_dir = Path(out_dir)
     written = {}
     for name, build in builders.items():
