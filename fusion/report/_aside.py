@@ -13,6 +13,7 @@ import os
 import pickle
 import sys
 import traceback
+import warnings
 from pathlib import Path
 
 from ..errors import FusionError
@@ -58,7 +59,12 @@ class _Aside:
                 stream.flush()
             except (AttributeError, OSError, ValueError):
                 pass
-        pid = os.fork()
+        with warnings.catch_warnings():
+            # Python 3.12+ warns about fork in a process with threads (here numba's idle pool):
+            # the child only draws with matplotlib and numpy and leaves with os._exit
+            warnings.filterwarnings("ignore", message=r".*fork\(\) may lead to deadlocks",
+                                    category=DeprecationWarning)
+            pid = os.fork()
         if pid == 0:                                   # the child: draw, report, leave at once
             status = 0
             try:
