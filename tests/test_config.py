@@ -128,6 +128,15 @@ def test_missing_config_file_and_library(tmp_path):
         load_config(tmp_path / "d.toml")
 
 
+def test_home_folder_of_an_unknown_user_names_the_key(tmp_path):
+    # "~name/..." expands to that user's home; for no such user pathlib raises RuntimeError
+    cfg = tmp_path / "c.toml"
+    cfg.write_text(BASE.replace(LIB.as_posix(), "~no_such_user_7f3/materials.toml"))
+    with pytest.raises(ConfigError, match=r"material_library: .*'~no_such_user_7f3', a home folder this "
+                                          r"system does not know; write the path in full"):
+        load_config(cfg)
+
+
 # The trade's compact layup codes (common practice: "s" mirrors, a trailing count repeats the
 # group, ± expands to +a/-a, viewed face first).
 @pytest.mark.parametrize("code, expected", [

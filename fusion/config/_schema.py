@@ -114,7 +114,12 @@ def path(value, k, ctx):
         raise _err(k, f"expected a file path as a string, got {value!r}", ctx)
     if "\x00" in value:
         raise _err(k, "a path cannot contain a NUL character", ctx)
-    p = Path(value).expanduser()
+    try:
+        p = Path(value).expanduser()
+    except RuntimeError:       # "~name" of no such user, or "~" without a home folder
+        user = value.split("/", 1)[0].split("\\", 1)[0]
+        raise _err(k, f"{value!r} starts with {user!r}, a home folder this system does not know; "
+                      "write the path in full", ctx) from None
     return p if p.is_absolute() else (ctx.base / p)
 
 
