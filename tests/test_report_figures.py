@@ -542,3 +542,22 @@ def test_the_fork_warning_of_newer_pythons_is_not_raised(tmp_path, monkeypatch):
         warnings.simplefilter("error")
         aside, _ = _aside.draw_figures_aside(make_result(), tmp_path, parallel=True, dpi=40)
         assert aside.collect()
+
+
+def test_figures_are_drawn_here_when_no_process_can_be_forked(tmp_path, monkeypatch):
+    # not a physics check: a refused fork (a process limit, strict memory overcommit) costs time,
+    # never the figures
+    import errno
+
+    from fusion.report import _aside
+
+    def refused():
+        raise OSError(errno.EAGAIN, "Resource temporarily unavailable")
+
+    monkeypatch.setattr(_aside.os, "fork", refused)
+    ds = make_result()
+    aside, own = _aside.draw_figures_aside(ds, tmp_path, parallel=True, dpi=40)
+    assert aside._pid is None and aside._names
+    drawn = report.run_figures(ds, tmp_path, names=own, dpi=40)
+    drawn.update(aside.collect())
+    assert sorted(drawn) == sorted(report.run_figures(ds, tmp_path / "one", dpi=40))

@@ -53,7 +53,10 @@ class _Aside:
             self._start()
 
     def _start(self):
-        read, write = os.pipe()
+        try:
+            read, write = os.pipe()
+        except OSError:            # out of file descriptors: draw here when collected
+            return
         for stream in (sys.stdout, sys.stderr):
             try:
                 stream.flush()
@@ -64,7 +67,12 @@ class _Aside:
             # the child only draws with matplotlib and numpy and leaves with os._exit
             warnings.filterwarnings("ignore", message=r".*fork\(\) may lead to deadlocks",
                                     category=DeprecationWarning)
-            pid = os.fork()
+            try:
+                pid = os.fork()
+            except OSError:        # no process to spare (a process limit, strict memory overcommit)
+                os.close(read)
+                os.close(write)
+                return
         if pid == 0:                                   # the child: draw, report, leave at once
             status = 0
             try:
