@@ -561,3 +561,48 @@ def test_figures_are_drawn_here_when_no_process_can_be_forked(tmp_path, monkeypa
     drawn = report.run_figures(ds, tmp_path, names=own, dpi=40)
     drawn.update(aside.collect())
     assert sorted(drawn) == sorted(report.run_figures(ds, tmp_path / "one", dpi=40))
+
+
+def _text_and_map_boxes(fig):
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    FigureCanvasAgg(fig)
+    fig.set_dpi(72)
+    fig.canvas.draw()
+    r = fig.canvas.get_renderer()
+    maps = [ax for ax in fig.axes if ax.images and ax.get_label() != "<colorbar>"]
+    boxes = [("suptitle", fig._suptitle.get_window_extent(r))] if fig._suptitle else []
+    boxes += [(f"title of {ax.get_title()!r}", ax.title.get_window_extent(r)) for ax in maps]
+    boxes += [(f"map of {ax.get_title()!r}", ax.get_window_extent(r)) for ax in maps]
+    return boxes, fig.canvas.get_width_height()
+
+
+# the layout depends on the maps' aspect only: 640 x 512 stands for 320 x 256 and 1280 x 1024 too
+@pytest.mark.parametrize("ny, nx", [(512, 640), (480, 640), (500, 500), (640, 512), (300, 600), (400, 1600),
+                                    (900, 400)])
+def test_map_grid_titles_clear_the_maps_for_common_camera_formats(ny, nx):
+    # not a physics check: layout. A figure too short for its fixed-aspect maps made the layout
+    # squeeze the gaps, and panel titles ran into the maps above and into the figure's title
+    # (640 x 512 and 1280 x 1024 cameras with three or more panels)
+    import itertools
+
+    import xarray as xr
+
+    base = -1e-4 * (1 + 0.1 * np.random.default_rng(0).standard_normal((ny, nx)))
+    base[: ny // 5, : nx // 5] = np.nan
+    names = ["coating", "resin_layer", "surface_ply", "laminate", "model", "lateral"]
+    for k in (1, 3, 6):
+        data = {"ratio_measured": (("y", "x"), base)}
+        for s in names[:k]:
+            data[f"ratio_{s}"] = (("y", "x"), base * 1.1)
+            data[f"residual_{s}"] = (("y", "x"), base * 0.1)
+        ds = xr.Dataset(data, attrs={"run_name": "S-1", "frequency": 10.0})
+        for build in (report.measured_vs_predicted_figure, report.residuals_figure):
+            boxes, (width, height) = _text_and_map_boxes(build(ds))
+            for (na, a), (nb, b) in itertools.combinations(boxes, 2):
+                if na.startswith("map") and nb.startswith("map") or na.replace("title", "map") == nb:
+                    continue
+                assert not a.overlaps(b), f"{build.__name__}, {k} sources, {ny} x {nx}: {na} overlaps {nb}"
+            for n, b in boxes:
+                assert b.x0 >= -1 and b.x1 <= width + 1 and b.y0 >= -1 and b.y1 <= height + 1, \
+                    f"{build.__name__}, {k} sources, {ny} x {nx}: {n} leaves the figure"

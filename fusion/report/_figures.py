@@ -10,6 +10,7 @@ scripts look for carry a ``gid`` (``"colorbar"``, ``"scalebar"``,
 from __future__ import annotations
 
 import math
+import textwrap
 
 import numpy as np
 
@@ -48,15 +49,35 @@ def map_title(ds) -> str:
     return f"{name} · {f}" if f else name
 
 
-def _grid_shape(n: int, ny: int, nx: int) -> tuple[int, int, tuple[float, float]]:
+#: Font size of a panel title (points) and the characters of it per inch of panel width (an
+#: average glyph of DejaVu Sans is a little over half its size wide).
+_PANEL_TITLE_PT = 9
+_TITLE_CHARS_PER_IN = 72.0 / (0.6 * _PANEL_TITLE_PT)
+
+
+def _panel_titles(names, panel_w: float) -> list[str]:
+    """Panel titles wrapped to the panel width, so none runs into its neighbour or off the page."""
+    width = max(12, int(panel_w * _TITLE_CHARS_PER_IN))
+    return [textwrap.fill(str(n), width=width, break_long_words=False) or str(n) for n in names]
+
+
+def _grid_shape(n: int, ny: int, nx: int, title_lines: int = 1) -> tuple[int, int, tuple[float, float]]:
+    """(rows, columns, figure size in inches) of a grid of ``n`` maps of ``ny`` x ``nx`` pixels.
+
+    The layout gives a map nearly the whole width of its panel; the figure is made tall enough for
+    each row's map and title and for the super-title, colour bar and legend, because a layout
+    engine short of height squeezes the gaps between fixed-aspect maps instead of shrinking them,
+    and titles then run into the maps above.
+    """
     aspect = ny / nx
     ncols = 1 if aspect < 0.3 else (2 if aspect < 0.6 else 3)
     ncols = max(1, min(n, ncols))
     nrows = math.ceil(n / ncols)
     panel_w = FIGURE_WIDTH / ncols
     # keep one map at most ~5 in tall, so tall coupons still fit a page
-    map_h = min(panel_w * 0.82 * aspect, 5.0)
-    height = nrows * (map_h + 0.5) + 1.0
+    map_h = min((panel_w - 0.1) * aspect, 5.0)
+    row_h = map_h + 0.12 + 0.17 * title_lines
+    height = nrows * row_h + 1.4
     return nrows, ncols, (FIGURE_WIDTH, float(np.clip(height, 2.4, 9.5)))
 
 
@@ -112,7 +133,9 @@ def _map_grid(ds, panels, *, norm, cmap, cbar_label, exponent, title):
     import matplotlib
 
     ny, nx = ds.sizes["y"], ds.sizes["x"]
-    nrows, ncols, size = _grid_shape(len(panels), ny, nx)
+    ncols = _grid_shape(len(panels), ny, nx)[1]
+    titles = _panel_titles([p[0] for p in panels], FIGURE_WIDTH / ncols)
+    nrows, ncols, size = _grid_shape(len(panels), ny, nx, max(t.count("\n") + 1 for t in titles))
     fig = new_figure(*size)
     axes = fig.subplots(nrows, ncols, squeeze=False)
     colormap = matplotlib.colormaps[cmap].with_extremes(bad=NO_DATA_COLOUR)
@@ -125,7 +148,7 @@ def _map_grid(ds, panels, *, norm, cmap, cbar_label, exponent, title):
         name, data = panels[k]
         im = ax.imshow(np.asarray(data), cmap=colormap, norm=norm, interpolation=MAP_INTERPOLATION)
         im.set_gid(f"map:{name}")
-        ax.set_title(name, fontsize=9)
+        ax.set_title(titles[k], fontsize=_PANEL_TITLE_PT)
         _decorate_axes(ax, ds)
         used.append(ax)
     cb = fig.colorbar(im, ax=used, location="bottom", shrink=0.7, aspect=35,
