@@ -178,3 +178,14 @@ def test_a_load_covering_part_of_the_record(tmp_path, rng, capsys):
     assert any("covers only 80% of the frames' record" in w for w in info["warnings"])
     assert dT == pytest.approx(-0.2, rel=5e-3)
 
+
+def test_a_frame_rate_typed_ten_times_too_low_is_named(tmp_path, rng):
+    # not a physics check: frames at 50 Hz with their load logged per frame, the config typing
+    # 5 Hz: the frames seem ten times longer than the load, and the message names the rate and
+    # the rate the load's span fits
+    cfg = _run(tmp_path, rng, run='frequency = "2 Hz"')
+    cfg.write_text(cfg.read_text().replace('frame_rate = "50.0 Hz"', 'frame_rate = "5 Hz"'))
+    with pytest.raises(InputError, match=r"covers 10% of the frames' record .* thermal\.frame_rate "
+                                         r"\(5 Hz; the load's span would fit 50 Hz\)"):
+        _median_dT(cfg)
+

@@ -79,7 +79,7 @@ def _coverage(sig, frame_t):
     return min(share, 1.0), (a0, a1), (b0, b1)
 
 
-def _resolve_frequency(configured, sig, frame_t, frame_rate):
+def _resolve_frequency(configured, sig, frame_t, frame_rate, rate_from_config=False):
     """The loading frequency of a run with a load signal, and notes for the run's warnings.
 
     The load shows the frequency the machine ran at: it is estimated with its standard
@@ -90,9 +90,14 @@ def _resolve_frequency(configured, sig, frame_t, frame_rate):
         share, (a0, a1), (b0, b1) = _coverage(sig, frame_t)
         where = f"{b0:.6g}..{b1:.6g} s against the frames' {a0:.6g}..{a1:.6g} s"
         if share < LOAD_COVERAGE_FLOOR:
+            rate = ""
+            if rate_from_config and b1 > b0:
+                # the frames' times come from the configured rate: a mistyped rate shows up here
+                rate = (f", thermal.frame_rate ({frame_rate:.6g} Hz; the load's span would fit "
+                        f"{frame_rate * (a1 - a0) / (b1 - b0):.4g} Hz)")
             raise InputError(sig.path, f"covers {share:.0%} of the frames' record ({where}); at least "
                              f"{LOAD_COVERAGE_FLOOR:.0%} is needed: check the time column (seconds, on the "
-                             "frames' clock) or cut the frames to the loaded part")
+                             f"frames' clock){rate} or cut the frames to the loaded part")
         if share < LOAD_COVERAGE_WARN:
             notes.append(f"the load signal covers only {share:.0%} of the frames' record ({where}): the "
                          "reference phase is extrapolated over the rest, where the load was not recorded")
@@ -148,8 +153,9 @@ def load_and_frequency(run, *, frames=None):
     if spec.frames is not None:
         if frames is None:
             _, frames = _open(spec)
-        _, frame_t, rate = _clock(spec, frames, sig)
-    f, std, notes = _resolve_frequency(run.frequency, sig, frame_t, rate)
+        times, frame_t, rate = _clock(spec, frames, sig)
+    f, std, notes = _resolve_frequency(run.frequency, sig, frame_t, rate,
+                                       rate_from_config=spec.frames is not None and times is None)
     source = "config" if run.frequency is not None and f == run.frequency else "load signal"
     return sig, f, notes, {"frequency_source": source, "frequency_std": std}
 
