@@ -179,6 +179,19 @@ def test_a_load_covering_part_of_the_record(tmp_path, rng, capsys):
     assert dT == pytest.approx(-0.2, rel=5e-3)
 
 
+def test_a_frame_rate_typed_ten_times_too_high_is_named(tmp_path, rng):
+    # not a physics check: frames at 50 Hz with their load logged per frame, the config typing
+    # 500 Hz: the load covers the frames' record, so nothing is refused, but the run's warnings
+    # say which frame rate the per-frame load implies
+    cfg = _run(tmp_path, rng, run='frequency = "2 Hz"')
+    cfg.write_text(cfg.read_text().replace('frame_rate = "50.0 Hz"', 'frame_rate = "500 Hz"'))
+    _, info = _median_dT(cfg)
+    assert any("one sample per frame (1000)" in w and "the frame rate is 50 Hz" in w for w in info["warnings"])
+    # typed right, no such note
+    cfg.write_text(cfg.read_text().replace('frame_rate = "500 Hz"', 'frame_rate = "50.0 Hz"'))
+    assert not any("one sample per frame" in w for w in _median_dT(cfg)[1]["warnings"])
+
+
 def test_a_frame_rate_typed_ten_times_too_low_is_named(tmp_path, rng):
     # not a physics check: frames at 50 Hz with their load logged per frame, the config typing
     # 5 Hz: the frames seem ten times longer than the load, and the message names the rate and

@@ -98,6 +98,12 @@ def _resolve_frequency(configured, sig, frame_t, frame_rate, rate_from_config=Fa
             raise InputError(sig.path, f"covers {share:.0%} of the frames' record ({where}); at least "
                              f"{LOAD_COVERAGE_FLOOR:.0%} is needed: check the time column (seconds, on the "
                              f"frames' clock){rate} or cut the frames to the loaded part")
+        if (rate_from_config and len(sig.times) == len(frame_t) and b1 > b0
+                and abs((b1 - b0) / (a1 - a0) - 1.0) > 0.05):
+            notes.append(f"the load signal has one sample per frame ({len(frame_t)}) but spans {b1 - b0:.6g} s "
+                         f"against the frames' {a1 - a0:.6g} s at thermal.frame_rate = {frame_rate:.6g} Hz: if "
+                         f"the load was logged with each frame, the frame rate is "
+                         f"{frame_rate * (a1 - a0) / (b1 - b0):.4g} Hz")
         if share < LOAD_COVERAGE_WARN:
             notes.append(f"the load signal covers only {share:.0%} of the frames' record ({where}): the "
                          "reference phase is extrapolated over the rest, where the load was not recorded")
