@@ -164,6 +164,31 @@ def test_a_footprint_of_ten_percent_warns_naming_registration(tmp_path):
     assert "registration_footprint" in _terminal(summary)
 
 
+def test_a_weak_thermal_signal_is_named_and_the_registration_not_blamed(tmp_path):
+    # independent forward model (_registration_cases.py), then the maps' noise raised 10^4 times:
+    # few pixels reach the signal-to-noise floor, so the usable thermal area shrinks to scattered
+    # pixels; before, the run blamed the registration for the small overlap (a frame rate typed
+    # ten times too high ends the same way: the lock-in finds little signal at the load frequency)
+    import xarray as xr
+
+    from fusion.io import write_netcdf
+
+    case = _case(tmp_path, rc.control("table_mm", "affine"))
+    cfg = load_config(rc.ROOT / "configs" / "demo.toml")
+    path = case.write(cfg.materials["carbon_epoxy"], 45.0)
+    maps = xr.load_dataset(tmp_path / "maps.nc")
+    maps["delta_T_std"] = np.abs(maps["delta_T"]) * (0.3 + np.random.default_rng(1).random(maps["delta_T"].shape))
+    write_netcdf(maps, tmp_path / "maps.nc", overwrite=True)
+    cfg = load_config(path)
+    result = compute_run(cfg, cfg.runs[0])
+    summary = summarize_run(result.dataset, warnings=result.warnings, meta=result.meta)
+    codes = _codes(summary)
+    assert "registration_footprint" not in codes
+    w = [w["message"] for w in summary["warnings"] if w["code"] == "low_snr" and "under the correlation" in w["message"]]
+    assert len(w) == 1 and "the thermal signal is weak there" in w[0] and "delta_T and its std" in w[0]
+    assert "low_snr" in _terminal(summary)
+
+
 def test_a_footprint_below_five_percent_fails(tmp_path):
     with pytest.raises(ConfigError, match=r"registration\.dic_points / ir_points: the correlation data land "
                                           r"on [0-4] % .* below 5 %: registration .* is the likely cause"):

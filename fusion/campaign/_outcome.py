@@ -75,7 +75,7 @@ class CampaignOutcome:
                     lines.append(f"          time: {steps}{first}")
                 # registration warnings change what the verdict means: shown here, not only in the report
                 lines += [f"          warning ({w['code']}): {w['message']}"
-                          for w in _registration_warnings(r) if (w["code"], w["message"]) not in shared]
+                          for w in _verdict_warnings(r) if (w["code"], w["message"]) not in shared]
         # a warning every finished run shares (the same control points, say) is said once
         lines += [f"  warning ({code}) in every run: {message}" for code, message in shared]
         for e in self.campaign_errors:
@@ -94,10 +94,12 @@ class CampaignOutcome:
         done = [r for r in self.runs if r.status == "done"]
         if len(done) < 2:
             return []
-        sets = [{(w["code"], w["message"]) for w in _registration_warnings(r)} for r in done]
+        sets = [{(w["code"], w["message"]) for w in _verdict_warnings(r)} for r in done]
         return sorted(set.intersection(*sets))
 
 
-def _registration_warnings(outcome):
-    # registration warnings change what the verdict means: shown in the terminal, not only the report
-    return [w for w in (outcome.summary or {}).get("warnings", ()) if w["code"].startswith("registration")]
+def _verdict_warnings(outcome):
+    # registration warnings and a weak thermal signal change what the verdict means: shown in the
+    # terminal, not only the report
+    return [w for w in (outcome.summary or {}).get("warnings", ())
+            if w["code"].startswith("registration") or w["code"] == "low_snr"]

@@ -28,7 +28,8 @@ from ._files import need_file
 from ._inputs import reference_image_path
 from ._lateral import ir_pixel_axes
 from ._predictions import predictions
-from ._registration import check_footprint, motion_support, refine_registration, registration_side
+from ._registration import (check_footprint, check_thermal_signal, motion_support, refine_registration,
+                            registration_side)
 from ._strain import strain_side
 from ._thermal import motion_field, run_load_range, thermal_side
 
@@ -93,8 +94,10 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
     strain_std = np.moveaxis(smaps[3:6], 0, -1).astype(np.float32)
     measured, measured_std, snr, lag, lag_std = _measured(thermal)
     thermal_ok = t_valid & np.isfinite(measured) & np.isfinite(measured_std) & (snr >= dg.min_snr)
-    reg_report["footprint"], reg_warn = check_footprint(reg, registered, thermal_ok)
-    warnings += reg_warn
+    weak, weak_warn = check_thermal_signal(registered, t_valid, snr, dg.min_snr, frequency,
+                                           from_frames=run.thermal.frames is not None)
+    reg_report["footprint"], reg_warn = check_footprint(reg, registered, thermal_ok, weak_signal=weak)
+    warnings += weak_warn + reg_warn
     valid = thermal_ok & inside & np.all(np.isfinite(strain), axis=-1)
     if not valid.any():
         raise InputError(run.thermal.frames or run.thermal.maps,

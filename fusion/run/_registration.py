@@ -370,17 +370,48 @@ def motion_support(registered, motion, load_range):
     return warp_support_ok(known, -np.abs(half), np.abs(half), reach=(1, 2))
 
 
-def check_footprint(reg, registered, thermal_ok):
+#: Below this share of strong-signal pixels under the correlation data, a small usable thermal
+#: area is put down to the thermal signal, not to the registration.
+WEAK_SIGNAL_SHARE = 0.5
+
+
+def check_thermal_signal(registered, t_valid, snr, min_snr, frequency, *, from_frames: bool):
+    """Whether the thermal signal is weak where the correlation data land, and a warning if so.
+
+    The usable thermal area (signal-to-noise ratio at least ``diagnosis.min_snr``) is what the
+    footprint check measures the registration against; when most pixels under the correlation
+    data fall short, a wrong clock or frequency is likelier than a wrong registration.
+    """
+    under = t_valid & registered.covered & ~registered.masked & np.isfinite(snr)
+    n = int(np.count_nonzero(under))
+    if n == 0:
+        return False, []
+    strong = int(np.count_nonzero(under & (snr >= min_snr)))
+    if strong >= WEAK_SIGNAL_SHARE * n:
+        return False, []
+    at = f" at {frequency:g} Hz" if frequency else ""
+    causes = ("thermal.frame_rate or the frame times (a wrong clock moves the signal off the lock-in "
+              "frequency), the loading frequency, " if from_frames else "the thermal maps' delta_T and its std, ")
+    text = (f"only {100 * strong / n:.0f} % of the {n} IR pixels under the correlation data reach a "
+            f"signal-to-noise ratio of {min_snr:g}{at} (median {float(np.median(snr[under])):.2g}): the "
+            f"thermal signal is weak there; check {causes}a load too small for the camera's noise, "
+            "or diagnosis.min_snr")
+    return True, [_w("low_snr", text)]
+
+
+def check_footprint(reg, registered, thermal_ok, *, weak_signal: bool = False):
     """Coverage of the usable thermal area by the correlation data, as far as registration
     decides it: a warning below ``FOOTPRINT_WARN``, a :class:`ConfigError` below ``FOOTPRINT_FAIL``.
 
+    With ``weak_signal`` (see :func:`check_thermal_signal`) the usable area is small because
+    the signal is, so a short coverage is left to that warning and the registration not blamed.
     Returns the numbers (for the summary) and the warnings.
     """
     area = thermal_ok & ~registered.masked
     info = footprint_share(registered.covered, area)
     info["valid_reference_pixels"] = info["thermal_pixels"]
     share, n_t, n_f = info["share"], info["thermal_pixels"], info["footprint_pixels"]
-    if n_t == 0:
+    if n_t == 0 or weak_signal:
         return info, []
     text = (f"the correlation data land on {100 * share:.0f} % of the {n_t} IR pixels with usable thermal "
             f"data (correlation footprint {n_f} px, overlap {info['overlap_pixels']} px)")
