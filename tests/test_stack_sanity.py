@@ -140,6 +140,22 @@ def test_rows_and_columns_swapped_are_refused(tmp_path, rng, capsys):
     assert "rows and columns look swapped" in capsys.readouterr().err
 
 
+def test_rows_and_columns_swapped_on_a_flat_specimen_are_refused(rng):
+    # independent reference: a numpy-made scene without texture (a uniform specimen on a cooler
+    # background, as an infrared camera sees a coupon) read with rows and columns swapped. Its
+    # noise makes the median difference of neighbours alike both ways; the mean difference shows
+    # the specimen's edges sheared across every read row (the case: a 640 x 512 camera typed
+    # shape = [n, 640, 512] went through to a verdict)
+    r, c = np.mgrid[0:ROWS, 0:COLS]
+    T = 293.0 + 4.0 * ((np.abs(r - ROWS / 2) < ROWS / 3) & (np.abs(c - COLS / 2) < COLS / 4))
+    frames = _frames(rng, scene=T, sigma=0.05)
+    idx, sample = sample_frames(frames)
+    assert layout_problem(sample, indices=idx) is None
+    swapped = frames.reshape(N, COLS, ROWS)
+    kind, detail = layout_problem(sample_frames(swapped)[1], indices=idx)
+    assert kind == "swapped" and f"read as {COLS} rows of {ROWS}" in detail
+
+
 def test_a_wrong_row_length_is_refused(tmp_path, rng):
     # 40 x 48 frames read as 30 x 64 (same bytes): every read row wraps over a scene row and a third
     _counts(_frames(rng, scene=_scene() + 8.0 * (np.mgrid[0:ROWS, 0:COLS][0] > 20))).tofile(tmp_path / "ir.raw")
@@ -149,11 +165,13 @@ def test_a_wrong_row_length_is_refused(tmp_path, rng):
         thermal_side(load_config(cfg).runs[0], budget=2e9)
 
 
-@pytest.mark.parametrize("scene", ["specimen", "horizontal bands", "vertical bands"])
+@pytest.mark.parametrize("scene", ["specimen", "horizontal bands", "vertical bands", "flat coupon", "noise only"])
 def test_layouts_that_are_right_pass(scene, rng):
     # independent reference: numpy-made scenes that are right (no false alarm)
     r, c = np.mgrid[0:ROWS, 0:COLS]
     T = {"specimen": _scene(), "horizontal bands": 295.0 + 3.0 * ((r // 8) % 2),
-         "vertical bands": 295.0 + 3.0 * ((c // 8) % 2)}[scene]
+         "vertical bands": 295.0 + 3.0 * ((c // 8) % 2),
+         "flat coupon": 293.0 + 4.0 * ((np.abs(r - 20) < 12) & (np.abs(c - 24) < 5)),
+         "noise only": np.full((ROWS, COLS), 295.0)}[scene]
     idx, sample = sample_frames(_frames(rng, scene=T))
     assert layout_problem(sample, indices=idx) is None

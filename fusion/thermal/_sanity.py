@@ -9,7 +9,8 @@ record, never at the whole stack:
   a pixel's values, so a value that many samples share exactly at the very top (or
   bottom) of the range is where the detector or its export cut the signal off;
 * :func:`layout_problem` compares the mean frame as read with the same values read with
-  rows and columns swapped, neighbouring rows with neighbouring columns (an image read
+  rows and columns swapped (by the median and by the mean difference of neighbours),
+  neighbouring rows with neighbouring columns (an image read
   with the wrong row length has rows that hardly resemble each other), and the first
   frame with the others (a header read as a frame).
 """
@@ -134,10 +135,10 @@ def clip_levels(sample):
     return _pile_up(s, high, varying, True), _pile_up(s, low, varying, False)
 
 
-def _roughness(a, axis):
+def _roughness(a, axis, stat=np.median):
     d = np.abs(np.diff(a, axis=axis))
     d = d[np.isfinite(d)]
-    return float(np.median(d)) if d.size else 0.0
+    return float(stat(d)) if d.size else 0.0
 
 
 def layout_problem(sample, *, indices=None):
@@ -191,10 +192,14 @@ def layout_problem(sample, *, indices=None):
             rows, cols = _roughness(mean, 0), _roughness(mean, 1)
             if ny != nx:
                 other = mean.reshape(nx, ny)
-                as_read, swapped = rows + cols, _roughness(other, 0) + _roughness(other, 1)
-                if swapped > 0 and as_read > SWAP_LIMIT * swapped:
-                    return ("swapped", f"its mean frame read as {ny} rows of {nx} is {as_read / swapped:.3g} "
-                            f"times rougher than read as {nx} rows of {ny}")
+                # the median difference shows a textured scene; the mean also the edges of a flat
+                # one (a specimen before its background), which a wrong row length shears apart
+                for stat in (np.median, np.mean):
+                    as_read = _roughness(mean, 0, stat) + _roughness(mean, 1, stat)
+                    swapped = _roughness(other, 0, stat) + _roughness(other, 1, stat)
+                    if swapped > 0 and as_read > SWAP_LIMIT * swapped:
+                        return ("swapped", f"its mean frame read as {ny} rows of {nx} is {as_read / swapped:.3g} "
+                                f"times rougher than read as {nx} rows of {ny}")
             if cols > 0 and rows > ROW_ROUGHNESS_LIMIT * cols:
                 return ("rows", f"neighbouring rows of its mean frame differ by a median of {rows:.4g}, "
                         f"neighbouring columns by {cols:.4g}")
