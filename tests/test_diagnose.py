@@ -646,3 +646,30 @@ def test_tied_sources_match_the_rule_written_by_hand(rng):
     ds = result_dataset(d.to_maps(), sources=d.sources)
     assert list(ds["source_tie"].attrs["flag_masks"]) == [1 << SOURCES.index(s) for s in d.sources]
     assert ds["source_tie"].attrs["flag_meanings"].split() == list(d.sources)
+
+
+def test_a_measurement_fitting_only_turned_over_predictions_is_told_apart(rng):
+    # common practice (thermoelastic stress analysis): measured and predicted dT/T0 carry one
+    # sign convention, so a measurement that every prediction explains only turned over points
+    # at a strain or temperature range of the wrong sign (images in the wrong order, say).
+    # The fits are checked against numpy's least squares.
+    from fusion.diagnose._sign import REVERSED_SHARE, sign_reversal
+
+    y, x = np.mgrid[0:40, 0:50]
+    ply = -1e-4 * (1.0 + 0.5 * np.cos(x / 8.0))            # a pattern, as around a hole
+    lam = 0.6 * ply + 2e-5 * np.sin(y / 6.0)
+    valid = np.ones(ply.shape, bool)
+    noise = 3e-6 * rng.standard_normal(ply.shape)
+    preds = {"surface_ply": ply, "laminate": lam}
+    source, factor, share, as_given = sign_reversal(-ply + noise, preds, valid)
+    k_ref = np.linalg.lstsq(ply.reshape(-1, 1), (-ply + noise).ravel(), rcond=None)[0][0]
+    assert source == "surface_ply" and factor == pytest.approx(k_ref, rel=1e-9) and factor < 0
+    assert REVERSED_SHARE < share <= 1.0 and as_given == 0.0     # both predictions have the other sign
+    # the sign given: nothing to say; a source of the right sign that fits as well: nothing either
+    assert sign_reversal(ply + noise, preds, valid) is None
+    assert sign_reversal(-ply + noise, {"surface_ply": ply, "coating": -ply}, valid) is None
+    # a uniform source with the measurement's sign explains most of it (its mean): the check
+    # stays quiet rather than call a reversal a right-signed source nearly matches
+    assert sign_reversal(-ply + noise, {"surface_ply": ply, "coating": np.full(ply.shape, 1e-4)}, valid) is None
+    # pure noise turned over is no reversal: the fit must explain the measurement
+    assert sign_reversal(noise, preds, valid) is None

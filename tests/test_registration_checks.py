@@ -189,6 +189,28 @@ def test_a_weak_thermal_signal_is_named_and_the_registration_not_blamed(tmp_path
     assert "low_snr" in _terminal(summary)
 
 
+def test_maps_with_the_temperature_range_turned_over_are_named(tmp_path):
+    # independent forward model (_registration_cases.py) with delta_T written with the other
+    # sign (T at minimum load minus T at maximum): before, the run said only that no source fits
+    import xarray as xr
+
+    from fusion.io import write_netcdf
+
+    case = _case(tmp_path, rc.control("table_mm", "affine"))
+    cfg = load_config(rc.ROOT / "configs" / "demo.toml")
+    path = case.write(cfg.materials["carbon_epoxy"], 45.0)
+    maps = xr.load_dataset(tmp_path / "maps.nc")
+    maps["delta_T"] = -maps["delta_T"]
+    write_netcdf(maps, tmp_path / "maps.nc", overwrite=True)
+    cfg = load_config(path)
+    result = compute_run(cfg, cfg.runs[0])
+    summary = summarize_run(result.dataset, warnings=result.warnings, meta=result.meta)
+    w = [w["message"] for w in summary["warnings"] if w["code"] == "sign_reversed"]
+    assert len(w) == 1 and re.search(r"measured = -1\.00 x predicted surface ply, explaining 100% of it; with "
+                                     r"their own sign the predictions explain \d+% at best", w[0])
+    assert "sign_reversed" in _terminal(summary) and "dic.images: the reference at minimum load first" in w[0]
+
+
 def test_a_footprint_below_five_percent_fails(tmp_path):
     with pytest.raises(ConfigError, match=r"registration\.dic_points / ir_points: the correlation data land "
                                           r"on [0-4] % .* below 5 %: registration .* is the likely cause"):

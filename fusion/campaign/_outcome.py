@@ -99,7 +99,7 @@ class CampaignOutcome:
 
 
 def _verdict_warnings(outcome):
-    # registration warnings and a weak thermal signal change what the verdict means: shown in the
-    # terminal, not only the report
+    # registration warnings, a weak thermal signal and a reversed sign change what the verdict
+    # means: shown in the terminal, not only the report
     return [w for w in (outcome.summary or {}).get("warnings", ())
-            if w["code"].startswith("registration") or w["code"] == "low_snr"]
+            if w["code"].startswith("registration") or w["code"] in ("low_snr", "sign_reversed")]

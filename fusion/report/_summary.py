@@ -26,7 +26,7 @@ __all__ = [
 
 WARNING_CODES = ("registration_error", "registration_exact_fit", "registration_outlier", "registration_footprint",
                  "registration_refinement", "low_snr", "dissipative_heating", "low_valid_area",
-                 "deprecated_key", "other")
+                 "sign_reversed", "deprecated_key", "other")
 
 # the registration step judges its own error (with the reason); the summary's own check of the
 # RMS is for results made without it

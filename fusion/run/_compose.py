@@ -20,9 +20,11 @@ from .._timing import step
 from ..datamodel import SOURCES, result_dataset
 from ..diagnose import (apply_calibration, calibration_factor, diagnose, measured_ratio, region_mask,
                         region_table)
+from ..diagnose._sign import sign_reversal
 from ..errors import ConfigError, InputError
 from ..io import read_image
 from ..mechanics import ply_profile
+from ..report._style import category_label
 from ..thermal import motion_amplitude
 from ._files import need_file
 from ._inputs import reference_image_path
@@ -128,6 +130,7 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
                         measured_lag_std=lag_std, predicted_lag=plag, fit_threshold=dg.fit_threshold,
                         distinguish=dg.distinguish, secondary=("lateral", "model"))
         table = _flat_regions(region_table(measured, diag, pred, regions=regions, valid=valid))
+        warnings += _reversed_sign(measured, pred, valid, frequency)
 
         maps = _result_maps(thermal, measured, measured_std, snr, lag, strain, strain_std, smaps[6], pred, pstd,
                             plag, diag, valid)
@@ -148,6 +151,20 @@ def compute_run(cfg, run, *, progress=False) -> RunResult:
 
 
 # --------------------------------------------------------------------------- steps
+def _reversed_sign(measured, pred, valid, frequency):
+    """A warning when the measurement fits the predictions only turned over (see sign_reversal)."""
+    found = sign_reversal(measured, pred, valid)
+    if found is None:
+        return []
+    source, factor, share, as_given = found
+    return [{"code": "sign_reversed", "message": (
+        f"the measurement matches a prediction turned over (measured = {factor:.2f} x predicted "
+        f"{category_label(source, frequency)}, explaining {share:.0%} of it; with their own sign the "
+        f"predictions explain {as_given:.0%} at best): check the order of the correlation images or states "
+        "(dic.images: the reference at minimum load first; dic.loads), strains taken on unloading, "
+        "and the sign of the temperature range (the load signal, delta_T_convention of maps)")}]
+
+
 def _sources(cfg, run, transform, ranges, inside):
     """The candidate sources of a run and, with the lateral heat model, the IR pixel (m)."""
     dg = cfg.diagnosis
