@@ -191,8 +191,12 @@ def _scale_ranges(r, load_range, loads):
                                    "taken as the minimum and maximum of the cycle")
         return 1.0
     f = load_range / float(loads[1] - loads[0])
-    for name in ("exx", "eyy", "gxy", "exx_std", "eyy_std", "gxy_std"):
+    # loads in falling order turn the ranges over (the images then run from high to low load);
+    # a standard deviation scales by the size of the factor
+    for name in ("exx", "eyy", "gxy"):
         setattr(r, name, np.asarray(getattr(r, name)) * f)
+    for name in ("exx_std", "eyy_std", "gxy_std"):
+        setattr(r, name, np.asarray(getattr(r, name)) * abs(f))
     r.attrs["load_scaling"] = (f"ranges scaled by {f:.6g}: the load signal's range {load_range:.6g} over "
                                f"dic.loads {loads[1]:.6g} - {loads[0]:.6g}")
     return f
