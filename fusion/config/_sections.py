@@ -7,6 +7,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .._bounds import BOUNDS
 from ..errors import ConfigError
 from ..io import MAP_QUANTITIES
 from . import _schema
@@ -215,7 +216,23 @@ class DicSpec:
                                   source=ctx.source)
         if self.loads is not None and len(set(self.loads)) < 2:
             raise ConfigError(f"{prefix}.loads", "expected at least two different loads", source=ctx.source)
+        if self.images is not None and self.subset % 2 == 0:
+            raise ConfigError(f"{prefix}.subset", f"expected an odd size in pixels (a subset is centred on a "
+                              f"pixel), got {self.subset}: {self.subset - 1} or {self.subset + 1}", source=ctx.source)
+        if self.pixel_size is not None:
+            self._check_pixel_size(prefix, ctx)
         self._check_region(prefix, ctx)
+
+    def _check_pixel_size(self, prefix, ctx):
+        # the run checks it too (fusion.dic); here fusion check refuses it before any file is read
+        b = BOUNDS["pixel_size"]
+        v = float(self.pixel_size)
+        if b.low <= v <= b.high:
+            return
+        hints = [f"{v * k:g} mm" for k in (1e-3, 1e3) if b.low <= v * k <= b.high]
+        hint = f": {hints[0]} meant? (check the unit)" if hints else ""
+        raise ConfigError(f"{prefix}.pixel_size", f"{v:g} mm per pixel is outside the plausible {b.low:g} .. "
+                          f"{b.high:g} mm of a visible-camera pixel on the specimen{hint}", source=ctx.source)
 
     def _check_region(self, prefix, ctx):
         if self.region is not None and self.roi is not None:
