@@ -118,3 +118,30 @@ def test_the_rewrite_reaches_the_terminal_the_summary_and_watch(tmp_path, capsys
     lines = []
     _Watcher(cfg, tmp_path / "results", settle=1.0, overwrite=False, emit=lines.append).reload()
     assert [s[9:] for s in lines] == [f"warning: {REWRITE}"]       # after the HH:MM:SS stamp
+
+
+def test_an_even_subset_and_a_pixel_size_in_metres_are_refused_by_check(tmp_path):
+    # not a physics check: both were refused only once the run had read the images (subset) or
+    # not by `fusion check` at all (pixel size): now the config names the key
+    with pytest.raises(ConfigError, match=r"run 'R'\.dic\.subset: expected an odd size in pixels .* got 30: "
+                                          r"29 or 31"):
+        load_config(_config(tmp_path, subset=30))
+    with pytest.raises(ConfigError, match=r"run 'R'\.dic\.pixel_size: 100 mm per pixel is outside the plausible "
+                                          r".* mm of a visible-camera pixel on the specimen: 0\.1 mm meant\?"):
+        load_config(_config(tmp_path, pixel_size="0.1 m"))
+
+
+def test_a_mask_that_leaves_out_most_of_the_specimen_is_named_beside_the_registration(tmp_path):
+    # not a physics check: a mask nearly all zero (inverted, say) leaves few correlation points,
+    # all where they should be: the message names the mask beside a registration that would
+    # shrink the field (before, only the registration)
+    import cv2
+
+    mask = np.zeros(rc.VIS_SHAPE, np.uint8)
+    mask[60:100, 100:140] = 255
+    cv2.imwrite(str(tmp_path / "mask.png"), mask)
+    cfg = load_config(_config(tmp_path, mask="mask.png"))
+    with pytest.raises(ConfigError, match=r"registration\.dic_points / ir_points: the correlation data land on "
+                                          r"\d+ % .* below 5 %: registration .* is the likely cause if it shrinks "
+                                          r"the field .* check dic\.mask, dic\.region and the correlation's failures"):
+        compute_run(cfg, cfg.runs[0])

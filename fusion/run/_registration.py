@@ -418,6 +418,14 @@ def check_footprint(reg, registered, thermal_ok, *, weak_signal: bool = False):
     cause = (f"registration (method {reg.method!r}, {_points_key(reg)}) is the likely cause: "
              "check the points' coordinates (dic: the data's own x, y; IR: [col, row]); if the cameras "
              "see different areas on purpose, exclude the uncovered part (registration.exclude)")
+    if n_f > 0 and info["overlap_pixels"] >= 0.8 * n_f:
+        # nearly all the correlation data land on usable thermal data: a registration that shrinks
+        # the field, or correlation data that cover that little (a mask, a region, failed subsets)
+        cause = (f"registration (method {reg.method!r}, {_points_key(reg)}) is the likely cause if it "
+                 "shrinks the field (control points in another unit than the data?); nearly all the "
+                 "correlation data land on usable thermal data, so they may also just cover that little: "
+                 "check dic.mask, dic.region and the correlation's failures; if the cameras see different "
+                 "areas on purpose, exclude the uncovered part (registration.exclude)")
     if share < FOOTPRINT_FAIL:
         raise ConfigError(_points_key(reg), f"{text}, below {100 * FOOTPRINT_FAIL:.0f} %: {cause}")
     if share < FOOTPRINT_WARN:

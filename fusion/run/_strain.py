@@ -143,8 +143,11 @@ def strain_side(run, *, load_range=None, progress=False, budget=None):
                 raise InputError(paths[i], f"correlation: {e}") from e
             ok = np.asarray(res.converged).mean() if np.size(res.converged) else 0.0
             if ok < 0.5:
+                where = ", region and dic.mask (non-zero where to correlate: inverted?)" if spec.mask else \
+                    " and region"
                 raise InputError(paths[i], f"correlation with the reference converged at only "
-                                 f"{100 * ok:.0f} % of the points; check the images, subset and region")
+                                 f"{100 * ok:.0f} % of the points{_main_failure(res)}; check the images, "
+                                 f"subset{where}")
             fields.append(res.to_field(pixel_size=spec.pixel_size))
         if len(fields) == 1:
             r = _ranges(paths[1], ranges_from_states, _zero_field(fields[0]), fields[0], window=w,
@@ -176,6 +179,19 @@ def _zero_field(field):
     # is carried by the other field)
     return dataclasses.replace(field, u=np.zeros_like(field.u), v=np.zeros_like(field.v),
                                u_std=None, v_std=None)
+
+
+def _main_failure(res):
+    """", most failed for: <reason> (<share> of the points)" from a correlation's reason codes."""
+    from ..dic._icgn import OK, REASON_CODES
+
+    reason = np.asarray(res.reason).ravel()
+    failed = reason[reason != OK]
+    if failed.size == 0:
+        return ""
+    codes, counts = np.unique(failed, return_counts=True)
+    k = int(np.argmax(counts))
+    return f", most failed for: {REASON_CODES[int(codes[k])]} ({100 * counts[k] / reason.size:.0f} % of the points)"
 
 
 def _scale_ranges(r, load_range, loads):
