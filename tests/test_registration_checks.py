@@ -15,11 +15,13 @@ import numpy as np
 import pytest
 import skimage.draw
 import skimage.transform as skt
+import xarray as xr
 from scipy.optimize import least_squares
 
 from fusion.campaign import CampaignOutcome, RunOutcome
 from fusion.config import load_config, loads_config
 from fusion.errors import ConfigError
+from fusion.io import write_netcdf
 from fusion.report import render_report, summarize_run
 from fusion.run import compute_run
 
@@ -38,9 +40,14 @@ def _small_table(folder, half):
     return {"strain_ranges": "strain.csv", "coordinates": "mm"}
 
 
-def _run(case):
+def _run(case, *, maps_change=None):
+    """The run of ``case`` and its summary; ``maps_change(maps)`` edits its thermal maps first."""
     cfg = load_config(rc.ROOT / "configs" / "demo.toml")
     path = case.write(cfg.materials["carbon_epoxy"], 45.0)
+    if maps_change is not None:
+        maps = xr.load_dataset(case.folder / "maps.nc")
+        maps_change(maps)
+        write_netcdf(maps, case.folder / "maps.nc", overwrite=True)
     cfg = load_config(path)
     result = compute_run(cfg, cfg.runs[0])
     summary = summarize_run(result.dataset, warnings=result.warnings, meta=result.meta,
@@ -169,19 +176,10 @@ def test_a_weak_thermal_signal_is_named_and_the_registration_not_blamed(tmp_path
     # few pixels reach the signal-to-noise floor, so the usable thermal area shrinks to scattered
     # pixels; before, the run blamed the registration for the small overlap (a frame rate typed
     # ten times too high ends the same way: the lock-in finds little signal at the load frequency)
-    import xarray as xr
+    def noisier(maps):
+        maps["delta_T_std"] = np.abs(maps["delta_T"]) * (0.3 + np.random.default_rng(1).random(maps["delta_T"].shape))
 
-    from fusion.io import write_netcdf
-
-    case = _case(tmp_path, rc.control("table_mm", "affine"))
-    cfg = load_config(rc.ROOT / "configs" / "demo.toml")
-    path = case.write(cfg.materials["carbon_epoxy"], 45.0)
-    maps = xr.load_dataset(tmp_path / "maps.nc")
-    maps["delta_T_std"] = np.abs(maps["delta_T"]) * (0.3 + np.random.default_rng(1).random(maps["delta_T"].shape))
-    write_netcdf(maps, tmp_path / "maps.nc", overwrite=True)
-    cfg = load_config(path)
-    result = compute_run(cfg, cfg.runs[0])
-    summary = summarize_run(result.dataset, warnings=result.warnings, meta=result.meta)
+    _, summary = _run(_case(tmp_path, rc.control("table_mm", "affine")), maps_change=noisier)
     codes = _codes(summary)
     assert "registration_footprint" not in codes
     w = [w["message"] for w in summary["warnings"] if w["code"] == "low_snr" and "under the correlation" in w["message"]]
@@ -192,19 +190,10 @@ def test_a_weak_thermal_signal_is_named_and_the_registration_not_blamed(tmp_path
 def test_maps_with_the_temperature_range_turned_over_are_named(tmp_path):
     # independent forward model (_registration_cases.py) with delta_T written with the other
     # sign (T at minimum load minus T at maximum): before, the run said only that no source fits
-    import xarray as xr
+    def turned_over(maps):
+        maps["delta_T"] = -maps["delta_T"]
 
-    from fusion.io import write_netcdf
-
-    case = _case(tmp_path, rc.control("table_mm", "affine"))
-    cfg = load_config(rc.ROOT / "configs" / "demo.toml")
-    path = case.write(cfg.materials["carbon_epoxy"], 45.0)
-    maps = xr.load_dataset(tmp_path / "maps.nc")
-    maps["delta_T"] = -maps["delta_T"]
-    write_netcdf(maps, tmp_path / "maps.nc", overwrite=True)
-    cfg = load_config(path)
-    result = compute_run(cfg, cfg.runs[0])
-    summary = summarize_run(result.dataset, warnings=result.warnings, meta=result.meta)
+    _, summary = _run(_case(tmp_path, rc.control("table_mm", "affine")), maps_change=turned_over)
     w = [w["message"] for w in summary["warnings"] if w["code"] == "sign_reversed"]
     assert len(w) == 1 and re.search(r"measured = -1\.00 x predicted surface ply, explaining 100% of it; with "
                                      r"their own sign the predictions explain \d+% at best", w[0])
