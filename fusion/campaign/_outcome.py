@@ -73,7 +73,7 @@ class CampaignOutcome:
                     first = (f" (includes compiling {r.compiled} numeric kernel{'s' if r.compiled > 1 else ''} "
                              "on first use; cached for later runs)" if r.compiled else "")
                     lines.append(f"          time: {steps}{first}")
-                # registration warnings change what the verdict means: shown here, not only in the report
+                # warnings that change what the verdict means: shown here, not only in the report
                 lines += [f"          warning ({w['code']}): {w['message']}"
                           for w in _verdict_warnings(r) if (w["code"], w["message"]) not in shared]
         # a warning every finished run shares (the same control points, say) is said once
