@@ -606,3 +606,37 @@ def test_map_grid_titles_clear_the_maps_for_common_camera_formats(ny, nx):
             for n, b in boxes:
                 assert b.x0 >= -1 and b.x1 <= width + 1 and b.y0 >= -1 and b.y1 <= height + 1, \
                     f"{build.__name__}, {k} sources, {ny} x {nx}: {n} leaves the figure"
+
+
+def test_titles_of_a_long_run_name_stay_on_the_figure():
+    # not a physics check: layout. Run names may have 100 characters; titles are shortened and
+    # wrapped so that none leaves the figure or runs into another title
+    import itertools
+
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    ds = make_result()
+    ds.attrs["run_name"] = "P" + "-specimen_7_after_2e6_cycles" * 3 + "-x" * 8
+    assert len(ds.attrs["run_name"]) > 80
+    figures = {
+        "measured_vs_predicted": report.measured_vs_predicted_figure(ds),
+        "residuals": report.residuals_figure(ds),
+        "source_map": report.source_map_figure(ds),
+        "overlay": report.overlay_figure(ds, np.random.default_rng(0).random((NY, NX))),
+        "profile": report.profile_figure(ds),
+    }
+    for name, fig in figures.items():
+        FigureCanvasAgg(fig)
+        fig.set_dpi(72)
+        fig.canvas.draw()
+        r = fig.canvas.get_renderer()
+        width, height = fig.canvas.get_width_height()
+        texts = [fig._suptitle] if fig._suptitle else []
+        texts += [ax.title for ax in fig.axes if ax.get_title()]
+        boxes = [t.get_window_extent(r) for t in texts]
+        assert boxes, name
+        for t, b in zip(texts, boxes):
+            assert b.x0 >= -1 and b.x1 <= width + 1 and b.y1 <= height + 1, f"{name}: {t.get_text()!r} leaves the figure"
+        for (ta, a), (tb, b) in itertools.combinations(zip(texts, boxes), 2):
+            assert not a.overlaps(b), f"{name}: {ta.get_text()!r} overlaps {tb.get_text()!r}"
+        assert any("\u2026" in t.get_text() for t in texts), name       # the name shortened

@@ -24,7 +24,7 @@ from ._style import (
 __all__ = [
     "measured_vs_predicted_figure", "residuals_figure", "source_map_figure", "overlay_figure",
     "draw_source_map", "category_legend_handles", "present_categories", "evaluated_sources",
-    "map_title", "new_figure", "no_data_handle",
+    "map_title", "fit_title", "new_figure", "no_data_handle",
 ]
 
 FIGURE_WIDTH = 7.0  # inches: the text width of a two-column report page
@@ -42,26 +42,36 @@ def evaluated_sources(ds, prefix: str = "ratio_") -> list[str]:
     return [s for s in SOURCES if f"{prefix}{s}" in ds.data_vars]
 
 
+#: Run names longer than this are shortened in figure titles (the report gives them whole).
+TITLE_NAME_CHARS = 40
+
+
 def map_title(ds) -> str:
-    """``"run name · 20 Hz"`` from the global attributes."""
+    """``"run name · 20 Hz"`` from the global attributes (a long name shortened with an ellipsis)."""
     name = str(ds.attrs.get("run_name") or "run")
+    if len(name) > TITLE_NAME_CHARS:
+        name = name[:TITLE_NAME_CHARS - 1] + "\u2026"
     f = frequency_text(attr_float(ds, "frequency"))
     return f"{name} · {f}" if f else name
 
 
-#: Font size of a panel title (points) and the characters of it per inch of panel width (an
-#: average glyph of DejaVu Sans is a little over half its size wide).
+def fit_title(text: str, width_in: float, fontsize: float) -> str:
+    """``text`` wrapped to lines that fit ``width_in`` inches at ``fontsize`` points."""
+    chars = max(12, int(width_in * 72.0 / (0.6 * fontsize)))
+    return textwrap.fill(str(text), width=chars, break_long_words=False) or str(text)
+
+
+#: Font size of a panel title (points).
 _PANEL_TITLE_PT = 9
-_TITLE_CHARS_PER_IN = 72.0 / (0.6 * _PANEL_TITLE_PT)
 
 
 def _panel_titles(names, panel_w: float) -> list[str]:
     """Panel titles wrapped to the panel width, so none runs into its neighbour or off the page."""
-    width = max(12, int(panel_w * _TITLE_CHARS_PER_IN))
-    return [textwrap.fill(str(n), width=width, break_long_words=False) or str(n) for n in names]
+    return [fit_title(n, panel_w, _PANEL_TITLE_PT) for n in names]
 
 
-def _grid_shape(n: int, ny: int, nx: int, title_lines: int = 1) -> tuple[int, int, tuple[float, float]]:
+def _grid_shape(n: int, ny: int, nx: int, title_lines: int = 1,
+                suptitle_lines: int = 1) -> tuple[int, int, tuple[float, float]]:
     """(rows, columns, figure size in inches) of a grid of ``n`` maps of ``ny`` x ``nx`` pixels.
 
     The layout gives a map nearly the whole width of its panel; the figure is made tall enough for
@@ -77,7 +87,7 @@ def _grid_shape(n: int, ny: int, nx: int, title_lines: int = 1) -> tuple[int, in
     # keep one map at most ~5 in tall, so tall coupons still fit a page
     map_h = min((panel_w - 0.1) * aspect, 5.0)
     row_h = map_h + 0.12 + 0.17 * title_lines
-    height = nrows * row_h + 1.4
+    height = nrows * row_h + 1.4 + 0.19 * (suptitle_lines - 1)
     return nrows, ncols, (FIGURE_WIDTH, float(np.clip(height, 2.4, 9.5)))
 
 
@@ -135,7 +145,9 @@ def _map_grid(ds, panels, *, norm, cmap, cbar_label, exponent, title):
     ny, nx = ds.sizes["y"], ds.sizes["x"]
     ncols = _grid_shape(len(panels), ny, nx)[1]
     titles = _panel_titles([p[0] for p in panels], FIGURE_WIDTH / ncols)
-    nrows, ncols, size = _grid_shape(len(panels), ny, nx, max(t.count("\n") + 1 for t in titles))
+    title = fit_title(title, FIGURE_WIDTH, 10)
+    nrows, ncols, size = _grid_shape(len(panels), ny, nx, max(t.count("\n") + 1 for t in titles),
+                                     title.count("\n") + 1)
     fig = new_figure(*size)
     axes = fig.subplots(nrows, ncols, squeeze=False)
     colormap = matplotlib.colormaps[cmap].with_extremes(bad=NO_DATA_COLOUR)
@@ -323,7 +335,7 @@ def source_map_figure(ds):
                      loc="outside right upper", title="source of the signal", fontsize=8,
                      title_fontsize=8, frameon=False)
     leg.set_gid("source_legend")
-    ax.set_title(f"{map_title(ds)} · source of the signal", fontsize=10)
+    ax.set_title(fit_title(f"{map_title(ds)} · source of the signal", 0.7 * FIGURE_WIDTH, 10), fontsize=10)
     return fig
 
 
@@ -388,5 +400,6 @@ def overlay_figure(ds, reference_image, *, region_mask=None, alpha: float = 0.6)
     cb.ax.tick_params(labelsize=7)
     if handles:
         fig.legend(handles=handles, loc="outside right upper", fontsize=8, frameon=False)
-    ax.set_title(f"{map_title(ds)} · measured dT/T0 over the visible image", fontsize=10)
+    ax.set_title(fit_title(f"{map_title(ds)} · measured dT/T0 over the visible image", 0.7 * FIGURE_WIDTH, 10),
+                 fontsize=10)
     return fig

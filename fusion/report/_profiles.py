@@ -6,7 +6,7 @@ import math
 
 import numpy as np
 
-from ._figures import FIGURE_WIDTH, _decorate_axes, evaluated_sources, map_title, new_figure
+from ._figures import FIGURE_WIDTH, _decorate_axes, evaluated_sources, fit_title, map_title, new_figure
 from ._style import (
     CATEGORY_COLOURS, MAP_INTERPOLATION, NO_DATA_COLOUR, SEQUENTIAL_CMAP, SOURCE_LINESTYLES, attr_float, category_label,
     engineering_exponent, pixel_size_mm, ratio_axis_label, ratio_formatter, ratio_limits,
@@ -166,7 +166,7 @@ def profile_figure(ds, line=None, *, sources=None):
     ax.tick_params(labelsize=7)
     fig.legend(handles=ax.get_legend_handles_labels()[0], loc="outside lower center", ncols=3, fontsize=7,
                frameon=False)
-    fig.suptitle(f"{map_title(ds)} · profile", fontsize=10)
+    fig.suptitle(fit_title(f"{map_title(ds)} · profile", FIGURE_WIDTH, 10), fontsize=10)
     return fig
 
 

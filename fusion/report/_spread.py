@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ._figures import FIGURE_WIDTH, _decorate_axes, map_title, new_figure
+from ._figures import FIGURE_WIDTH, _decorate_axes, fit_title, map_title, new_figure
 from ._style import (
     CATEGORY_COLOURS, MAP_INTERPOLATION, DIVERGING_CMAP, NO_DATA_COLOUR, SOURCE_LINESTYLES,
     engineering_exponent, pixel_size_mm, ratio_axis_label, ratio_formatter, symmetric_limit,
@@ -156,5 +156,5 @@ def heat_spread_figure(ds):
     ax.grid(True, lw=0.3, alpha=0.5)
     ax.legend(fontsize=7, loc="upper right")
     note = " · dashed outline: within an in-plane diffusion length of no data" if "lateral_edge" in ds else ""
-    fig.suptitle(f"{map_title(ds)} · heat flowing along the surface{note}", fontsize=9)
+    fig.suptitle(fit_title(f"{map_title(ds)} · heat flowing along the surface{note}", FIGURE_WIDTH, 9), fontsize=9)
     return fig
