@@ -72,6 +72,17 @@ ir_points = {_toml_points(ir_points)}
 
 #: One ply of a made-up material, identity registration and one run "r" at 5 Hz; the run's
 #: thermal and correlation tables follow.
+#: The library, a [0/90]s carbon/epoxy laminate and the identity registration: the head of a
+#: config whose strain data are on the IR pixel grid already.
+IDENTITY_HEAD = f'''material_library = "{(ROOT / "configs" / "materials.toml").as_posix()}"
+[laminate]
+layup = "[0/90]s"
+ply_material = "carbon_epoxy"
+ply_thickness = "0.25 mm"
+[registration]
+method = "identity"
+'''
+
 ONE_PLY_RUN = '''[laminate]
 layup = [0]
 ply_material = "m"

@@ -8,6 +8,8 @@ import pytest
 
 from fusion.cli import main
 
+from _inputs import IDENTITY_HEAD
+
 ROOT = Path(__file__).resolve().parents[1]
 
 
@@ -45,15 +47,7 @@ def test_bad_config_one_line_exit_1(tmp_path, capsys, text, expected):
 
 
 def test_missing_input_file_named(tmp_path, capsys):
-    lib = (ROOT / "configs" / "materials.toml").as_posix()
-    cfg = _write(tmp_path, f'''material_library = "{lib}"
-[laminate]
-layup = "[0/90]s"
-ply_material = "carbon_epoxy"
-ply_thickness = "0.25 mm"
-[registration]
-method = "identity"
-[[run]]
+    cfg = _write(tmp_path, IDENTITY_HEAD + '''[[run]]
 name = "r1"
 frequency = "5 Hz"
 [run.thermal]

@@ -24,17 +24,12 @@ from fusion.cli import main
 from fusion.config import load_config, loads_config
 from fusion.errors import ConfigError, FusionError
 
+from _inputs import IDENTITY_HEAD
+
 ROOT = Path(__file__).resolve().parents[1]
 LIB = (ROOT / "configs" / "materials.toml").as_posix()
 
-BASE = f'''material_library = "{LIB}"
-[laminate]
-layup = "[0/90]s"
-ply_material = "carbon_epoxy"
-ply_thickness = "0.25 mm"
-[registration]
-method = "identity"
-'''
+BASE = IDENTITY_HEAD
 
 
 def _run(name='"r1"', frames='"frames.npy"'):

@@ -16,7 +16,7 @@ import sys
 import numpy as np
 import pytest
 
-from _inputs import ROOT, config_head, write_strain
+from _inputs import IDENTITY_HEAD, ROOT, config_head, write_strain
 
 ROWS = COLS = 128
 BIG_FRAMES = 3072               # 3072 x 128 x 128 float32 = 201 MB
@@ -168,14 +168,7 @@ def _header_campaign(folder, frames_name, budget=None):
     compute = f'[compute]\nmemory_budget = "{budget}"\nscheduler = "synchronous"\n' if budget else \
         '[compute]\nscheduler = "synchronous"\n'
     cfg = folder / "c.toml"
-    cfg.write_text(f'''material_library = "{(ROOT / "configs" / "materials.toml").as_posix()}"
-[laminate]
-layup = "[0/90]s"
-ply_material = "carbon_epoxy"
-ply_thickness = "0.25 mm"
-[registration]
-method = "identity"
-{compute}[output]
+    cfg.write_text(IDENTITY_HEAD + f'''{compute}[output]
 figures = false
 report = false
 [[run]]
